@@ -1,0 +1,1 @@
+//! System tests live in tests/*.rs; this library is empty.
