@@ -1,1 +1,141 @@
-//! placeholder
+//! Persistence for dispar: the [`Store`] trait and its SQLite implementation.
+//!
+//! [`open`] chooses the backend from the database URL (`sqlite:` URLs and plain paths
+//! open SQLite; `postgres://` is refused until that backend is built), runs the
+//! embedded migrations and returns an `Arc<dyn Store>`.
+//!
+//! # Records and revisions
+//!
+//! A count record is identified by its natural key (site, line, date, product). Every
+//! accepted write appends a revision to an append-only history; the latest revision
+//! is the record's current value, kept in a denormalised table so that reports are one
+//! indexed `GROUP BY`. With `C` the current revision and `N` the record being written:
+//!
+//! - no `C`: the write is [`WriteStatus::Created`];
+//! - `N` carries plant revision `r`, `C` has plant revision `c` and `r <= c`: the same
+//!   counts as `C` are [`WriteStatus::Unchanged`], other counts are refused with
+//!   [`RecordProblem::Conflict`] naming `c`;
+//! - otherwise the same counts with no plant revision (or the same one) are
+//!   `Unchanged`, and anything else is [`WriteStatus::Corrected`] (a new revision).
+//!   A write without a plant revision is last-writer-wins.
+//!
+//! `Unchanged` writes nothing. Within one batch a key may appear more than once; each
+//! record is checked against the state the earlier ones left.
+//!
+//! # SQLite
+//!
+//! WAL journal, `synchronous=FULL`, foreign keys on, a busy timeout; one writer
+//! connection (a pool of one) whose transactions all begin with `BEGIN IMMEDIATE`,
+//! and a pool of `query_only` readers. Batches are written with multi-row `INSERT`s.
+//! Busy or locked databases give [`StoreError::Busy`], which is retryable.
+
+mod counts;
+mod error;
+mod keys;
+mod reports;
+mod sites;
+mod sqlite;
+mod store;
+mod timestamp;
+
+use std::sync::Arc;
+use std::time::Duration;
+
+pub use crate::counts::{
+    BatchOutcome, BatchResult, CountFilter, CountPage, Idempotency, MAX_PAGE, RenderAnswer,
+    StoredAnswer, StoredRecord, WriteOutcome, WriteStatus,
+};
+pub use crate::error::{RecordError, RecordProblem, StoreError};
+pub use crate::keys::{ApiKey, KeyId, KeyRole, UnknownRole};
+pub use crate::reports::{Aggregate, AggregateQuery, GroupTotals, Level};
+pub use crate::sites::{SiteWithLines, Upserted};
+pub use crate::sqlite::SqliteStore;
+pub use crate::store::{Backend, Store, StoreStats};
+
+/// How to open a store.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct OpenOptions {
+    /// `sqlite:PATH`, `sqlite://PATH`, a plain file path, or `postgres://...`.
+    pub url: String,
+    /// Size of the read pool (SQLite).
+    pub read_connections: u32,
+    /// How long a statement waits for a lock held by another process before
+    /// [`StoreError::Busy`].
+    pub busy_timeout: Duration,
+    /// How long a write waits for the single writer connection before
+    /// [`StoreError::Busy`].
+    pub write_wait: Duration,
+}
+
+impl OpenOptions {
+    /// Defaults for `url`: 4 readers, 5 s busy timeout, 30 s wait for the writer.
+    pub fn new(url: impl Into<String>) -> Self {
+        Self {
+            url: url.into(),
+            read_connections: 4,
+            busy_timeout: Duration::from_secs(5),
+            write_wait: Duration::from_secs(30),
+        }
+    }
+}
+
+/// Opens (creating and migrating if needed) the store named by `url` with default
+/// options. See [`open_with`].
+pub async fn open(url: &str) -> Result<Arc<dyn Store>, StoreError> {
+    open_with(&OpenOptions::new(url)).await
+}
+
+/// Opens the store named by `options.url`, chosen by scheme: `sqlite:` or a plain path
+/// is SQLite (the file is created if missing); `postgres://` and `postgresql://` are
+/// refused with [`StoreError::Unsupported`] until that backend exists. Migrations run
+/// every time (they are idempotent), so `open` is also "migrate".
+pub async fn open_with(options: &OpenOptions) -> Result<Arc<dyn Store>, StoreError> {
+    match backend_of(&options.url)? {
+        Backend::Sqlite => Ok(Arc::new(SqliteStore::open(options).await?)),
+        Backend::Postgres => Err(StoreError::Unsupported(
+            "the PostgreSQL backend is not built yet; use an SQLite path or sqlite: URL".to_owned(),
+        )),
+    }
+}
+
+/// Which backend a database URL names.
+pub fn backend_of(url: &str) -> Result<Backend, StoreError> {
+    let lower = url.to_ascii_lowercase();
+    if lower.starts_with("postgres://") || lower.starts_with("postgresql://") {
+        return Ok(Backend::Postgres);
+    }
+    if lower.starts_with("sqlite:") {
+        return Ok(Backend::Sqlite);
+    }
+    if let Some((scheme, _)) = lower.split_once("://") {
+        return Err(StoreError::Unsupported(format!(
+            "unknown database scheme {scheme:?}; use an SQLite path, sqlite: or postgres:// URL"
+        )));
+    }
+    if url.trim().is_empty() {
+        return Err(StoreError::Unsupported("the database URL is empty".to_owned()));
+    }
+    Ok(Backend::Sqlite)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_backend_is_chosen_by_url_scheme() {
+        let cases = [
+            ("dispar.db", Some(Backend::Sqlite)),
+            ("/var/lib/dispar/dispar.db", Some(Backend::Sqlite)),
+            ("sqlite:dispar.db", Some(Backend::Sqlite)),
+            ("sqlite:///tmp/x.db", Some(Backend::Sqlite)),
+            ("postgres://u@h/db", Some(Backend::Postgres)),
+            ("postgresql://u@h/db", Some(Backend::Postgres)),
+            ("mysql://u@h/db", None),
+            ("", None),
+        ];
+        for (url, want) in cases {
+            assert_eq!(backend_of(url).ok(), want, "{url}");
+        }
+    }
+}

@@ -1,0 +1,64 @@
+//! Types for report aggregation.
+
+use std::collections::BTreeMap;
+
+use dispar_core::code::{CategoryCode, LineCode, ProductCode, SiteCode};
+use time::{Date, OffsetDateTime};
+
+/// What the groups of a report are.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Level {
+    /// Compare sites.
+    Site,
+    /// Compare the lines of one site.
+    Line {
+        /// The site.
+        site: SiteCode,
+    },
+    /// Compare every line across sites.
+    AllLines,
+}
+
+/// An aggregation request.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct AggregateQuery {
+    /// First production date (inclusive).
+    pub from: Date,
+    /// Last production date (inclusive).
+    pub to: Date,
+    /// The grouping.
+    pub level: Level,
+    /// Only this site (for [`Level::Site`] and [`Level::AllLines`]).
+    pub site: Option<SiteCode>,
+    /// Only this product.
+    pub product: Option<ProductCode>,
+    /// Use the data as it stood at this instant (the latest revision per record with
+    /// `recorded_at <= as_of`) instead of the current data.
+    pub as_of: Option<OffsetDateTime>,
+}
+
+/// The summed counts of one group.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct GroupTotals {
+    /// The site.
+    pub site: SiteCode,
+    /// The line, at the line levels.
+    pub line: Option<LineCode>,
+    /// Units inspected.
+    pub inspected: u64,
+    /// Units defective.
+    pub defective: u64,
+    /// Defects by category (categories with a zero sum are left out).
+    pub defects: BTreeMap<CategoryCode, u64>,
+}
+
+/// The result of an aggregation.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Aggregate {
+    /// The data version the sums were read at (same read snapshot).
+    pub data_version: u64,
+    /// Every registered group at the level (after the site filter), ordered by
+    /// (site, line), including groups with no data in the range (all zeros), so the
+    /// report can list them as excluded.
+    pub groups: Vec<GroupTotals>,
+}

@@ -1,0 +1,144 @@
+//! The store trait: what the server needs from a database, independent of the backend.
+
+use async_trait::async_trait;
+use dispar_core::code::SiteCode;
+use dispar_core::record::{CountRecord, RecordKey};
+use dispar_core::site::{Line, Site};
+use time::OffsetDateTime;
+
+use crate::counts::{BatchResult, CountFilter, CountPage, Idempotency, StoredAnswer, StoredRecord, WriteOutcome};
+use crate::error::StoreError;
+use crate::keys::{ApiKey, KeyId, KeyRole};
+use crate::reports::{Aggregate, AggregateQuery};
+use crate::sites::{SiteWithLines, Upserted};
+
+/// Which database a store talks to.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Backend {
+    /// An SQLite file (or memory).
+    Sqlite,
+    /// A PostgreSQL server (not built yet).
+    Postgres,
+}
+
+/// Row counts, for metrics and tests.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct StoreStats {
+    /// Registered sites.
+    pub sites: u64,
+    /// Registered lines.
+    pub lines: u64,
+    /// Rows in the append-only history.
+    pub revisions: u64,
+    /// Natural keys with a current record.
+    pub records: u64,
+    /// API keys (including revoked ones).
+    pub keys: u64,
+}
+
+/// Persistence for dispar. Used as `Arc<dyn Store>`; every implementation passes the
+/// same story test (`tests/story.rs`).
+///
+/// Every write is one transaction: it is committed before the method returns `Ok`, and
+/// on any error nothing of it is kept.
+#[async_trait]
+pub trait Store: Send + Sync + std::fmt::Debug {
+    /// Which backend this is.
+    fn backend(&self) -> Backend;
+
+    /// Checks that the database answers (for `/readyz`).
+    async fn ping(&self) -> Result<(), StoreError>;
+
+    /// Closes the connections, waiting for those in use to be returned.
+    async fn close(&self);
+
+    /// Creates or updates a site.
+    async fn upsert_site(&self, site: &Site) -> Result<Upserted, StoreError>;
+
+    /// Creates or updates a line; its site must be registered
+    /// ([`StoreError::UnknownSite`] otherwise).
+    async fn upsert_line(&self, line: &Line) -> Result<Upserted, StoreError>;
+
+    /// All sites, ordered by code.
+    async fn list_sites(&self) -> Result<Vec<Site>, StoreError>;
+
+    /// One site with its lines ([`StoreError::NotFound`] if not registered).
+    async fn get_site(&self, site: &SiteCode) -> Result<SiteWithLines, StoreError>;
+
+    /// Writes one record (see the crate docs for the revision rules). A refusal is
+    /// [`StoreError::Rejected`] with one [`crate::RecordError`] of index 0.
+    async fn put_record(
+        &self,
+        record: &CountRecord,
+        api_key_id: Option<KeyId>,
+    ) -> Result<WriteOutcome, StoreError>;
+
+    /// Writes a batch all-or-nothing in one transaction. Refusals are
+    /// [`StoreError::Rejected`] listing every refused record by index. With an
+    /// idempotency key, a stored answer for the same key and body is replayed, the same
+    /// key with another body is [`StoreError::IdempotencyMismatch`], and otherwise the
+    /// rendered answer is stored in the same transaction as the records.
+    async fn put_batch(
+        &self,
+        records: &[CountRecord],
+        api_key_id: Option<KeyId>,
+        idempotency: Option<Idempotency<'_>>,
+    ) -> Result<BatchResult, StoreError>;
+
+    /// Looks up a stored batch answer without writing: `Ok(None)` if the key is unused,
+    /// the answer if it was used with this body, [`StoreError::IdempotencyMismatch`] if
+    /// with another. `put_batch` checks again inside its transaction.
+    async fn find_idempotent(
+        &self,
+        api_key_id: Option<KeyId>,
+        key: &str,
+        body_sha256: &[u8; 32],
+    ) -> Result<Option<StoredAnswer>, StoreError>;
+
+    /// Deletes stored batch answers created before `before`; returns how many.
+    async fn purge_idempotency(&self, before: OffsetDateTime) -> Result<u64, StoreError>;
+
+    /// The current record at a natural key, if any.
+    async fn get_record(&self, key: &RecordKey) -> Result<Option<StoredRecord>, StoreError>;
+
+    /// A page of current records matching `filter`, after `cursor` (from a previous
+    /// page). `limit` is clamped to 1 ..= [`crate::MAX_PAGE`].
+    async fn list_counts(
+        &self,
+        filter: &CountFilter,
+        cursor: Option<&str>,
+        limit: u32,
+    ) -> Result<CountPage, StoreError>;
+
+    /// Every revision of a natural key, oldest first (empty if never written).
+    async fn record_history(&self, key: &RecordKey) -> Result<Vec<StoredRecord>, StoreError>;
+
+    /// Stores a new API key and returns its id. `sites` matter for ingest keys.
+    async fn create_key(
+        &self,
+        role: KeyRole,
+        sites: &[SiteCode],
+        label: Option<&str>,
+        secret_hash: &[u8],
+    ) -> Result<KeyId, StoreError>;
+
+    /// One key by id (revoked keys included; check [`ApiKey::is_revoked`]).
+    async fn find_key(&self, id: KeyId) -> Result<Option<ApiKey>, StoreError>;
+
+    /// All keys, ordered by id.
+    async fn list_keys(&self) -> Result<Vec<ApiKey>, StoreError>;
+
+    /// Revokes a key ([`StoreError::NotFound`] if there is none; revoking again keeps
+    /// the first revocation time).
+    async fn revoke_key(&self, id: KeyId) -> Result<(), StoreError>;
+
+    /// Sums counts per group over a date range, from the current data or as of an
+    /// instant.
+    async fn aggregate(&self, query: &AggregateQuery) -> Result<Aggregate, StoreError>;
+
+    /// The data version: grows with every write that can change a report.
+    async fn data_version(&self) -> Result<u64, StoreError>;
+
+    /// Row counts.
+    async fn stats(&self) -> Result<StoreStats, StoreError>;
+}

@@ -1,0 +1,344 @@
+//! Request extractors that answer in our problem shape instead of the framework's
+//! plain text: [`ApiJson`] (content type, size limit, syntax, unknown fields, types,
+//! each with a JSON pointer), [`Body`] (raw bytes plus media type, for endpoints that
+//! take more than JSON), and [`ApiQuery`] (query strings).
+
+use axum::body::Bytes;
+use axum::extract::{FromRequest, FromRequestParts, Request};
+use axum::http::header;
+use axum::http::request::Parts;
+use axum::response::{IntoResponse, Response};
+use serde::de::DeserializeOwned;
+
+use crate::error::{ApiError, ErrorItem, ProblemKind};
+
+/// A JSON body, checked for content type (415), size (413), syntax (400) and shape
+/// (422, naming each bad field with a JSON pointer; unknown fields are refused by the
+/// target types' `deny_unknown_fields`).
+#[derive(Debug, Clone)]
+pub struct ApiJson<T>(pub T);
+
+/// The media types a body may have, as far as this API cares.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum MediaType {
+    /// `application/json` or any `application/*+json`.
+    Json,
+    /// `text/csv`.
+    Csv,
+}
+
+/// A request body read to the end within the size limit, with its media type.
+#[derive(Debug, Clone)]
+pub struct Body {
+    /// The media type from `Content-Type`, when it is one we know.
+    pub media_type: Option<MediaType>,
+    /// The `Content-Type` header as sent (for messages).
+    pub content_type: Option<String>,
+    /// The bytes.
+    pub bytes: Bytes,
+}
+
+/// Reads the media type of a `Content-Type` value (parameters such as `charset` are
+/// accepted; a `charset` other than UTF-8 is not, and gives `None`).
+pub fn media_type(content_type: &str) -> Option<MediaType> {
+    let mut parts = content_type.split(';');
+    let essence = parts.next().unwrap_or("").trim().to_ascii_lowercase();
+    for param in parts {
+        if let Some((name, value)) = param.split_once('=')
+            && name.trim().eq_ignore_ascii_case("charset")
+        {
+            let value = value.trim().trim_matches('"');
+            if !value.eq_ignore_ascii_case("utf-8") && !value.eq_ignore_ascii_case("utf8") {
+                return None;
+            }
+        }
+    }
+    if essence == "application/json"
+        || (essence.starts_with("application/") && essence.ends_with("+json"))
+    {
+        Some(MediaType::Json)
+    } else if essence == "text/csv" {
+        Some(MediaType::Csv)
+    } else {
+        None
+    }
+}
+
+impl<S: Send + Sync> FromRequest<S> for Body {
+    type Rejection = ApiError;
+
+    async fn from_request(req: Request, state: &S) -> Result<Self, Self::Rejection> {
+        let content_type = req
+            .headers()
+            .get(header::CONTENT_TYPE)
+            .and_then(|v| v.to_str().ok())
+            .map(str::to_owned);
+        let media_type = content_type.as_deref().and_then(media_type);
+        // `Bytes` honours the router's `DefaultBodyLimit` (set from --max-body-bytes).
+        let bytes = Bytes::from_request(req, state).await.map_err(|rejection| {
+            if rejection.status() == axum::http::StatusCode::PAYLOAD_TOO_LARGE {
+                too_large()
+            } else {
+                ApiError::new(ProblemKind::BadRequest, "The request body could not be read.")
+                    .with_cause(rejection.body_text())
+            }
+        })?;
+        Ok(Body {
+            media_type,
+            content_type,
+            bytes,
+        })
+    }
+}
+
+impl Body {
+    /// The body as JSON of type `T` (415 if it is not declared JSON).
+    pub fn json<T: DeserializeOwned>(&self) -> Result<T, ApiError> {
+        if self.media_type != Some(MediaType::Json) {
+            return Err(unsupported(self.content_type.as_deref(), "application/json"));
+        }
+        parse_json(&self.bytes)
+    }
+}
+
+/// The 413 problem.
+pub fn too_large() -> ApiError {
+    ApiError::new(
+        ProblemKind::PayloadTooLarge,
+        "The request body is larger than this server accepts; send smaller batches.",
+    )
+    .with_error(ErrorItem::general("too_large", "the body exceeds the size limit"))
+}
+
+/// The 415 problem for an endpoint taking the given media types.
+pub fn unsupported(content_type: Option<&str>, accepted: &str) -> ApiError {
+    let detail = match content_type {
+        Some(ct) => format!("A body of type {ct:?} is not accepted here; send {accepted}."),
+        None => format!("The request has no Content-Type; send {accepted}."),
+    };
+    ApiError::new(ProblemKind::UnsupportedMediaType, detail).with_error(ErrorItem::header(
+        "content-type",
+        "unsupported_media_type",
+        format!("expected {accepted}"),
+    ))
+}
+
+impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for ApiJson<T> {
+    type Rejection = ApiError;
+
+    async fn from_request(req: Request, state: &S) -> Result<Self, Self::Rejection> {
+        Body::from_request(req, state).await?.json().map(ApiJson)
+    }
+}
+
+impl<T: serde::Serialize> IntoResponse for ApiJson<T> {
+    fn into_response(self) -> Response {
+        axum::Json(self.0).into_response()
+    }
+}
+
+/// Parses `bytes` as JSON into `T`, turning errors into problems with JSON pointers.
+pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
+    let mut de = serde_json::Deserializer::from_slice(bytes);
+    let value = serde_path_to_error::deserialize(&mut de).map_err(|e| {
+        let pointer = pointer_of(e.path());
+        json_error(pointer, e.into_inner())
+    })?;
+    de.end().map_err(|e| json_error(String::new(), e))?;
+    Ok(value)
+}
+
+/// Deserializes `value` into `T`; errors get JSON pointers below `prefix`.
+pub fn from_value<T: DeserializeOwned>(
+    value: serde_json::Value,
+    prefix: &str,
+) -> Result<T, ErrorItem> {
+    serde_path_to_error::deserialize(value).map_err(|e| {
+        let pointer = format!("{prefix}{}", pointer_of(e.path()));
+        data_error_item(pointer, &e.into_inner())
+    })
+}
+
+/// The RFC 6901 pointer of a serde path (`""` for the root).
+fn pointer_of(path: &serde_path_to_error::Path) -> String {
+    use serde_path_to_error::Segment;
+    let mut out = String::new();
+    for segment in path {
+        match segment {
+            Segment::Seq { index } => {
+                out.push('/');
+                out.push_str(&index.to_string());
+            }
+            Segment::Map { key } => {
+                out.push('/');
+                out.push_str(&dispar_core::error::pointer_segment(key));
+            }
+            Segment::Enum { .. } | Segment::Unknown => {}
+        }
+    }
+    out
+}
+
+fn json_error(pointer: String, e: serde_json::Error) -> ApiError {
+    use serde_json::error::Category;
+    match e.classify() {
+        Category::Syntax | Category::Eof | Category::Io => {
+            let message = format!(
+                "invalid JSON at line {} column {}: {}",
+                e.line(),
+                e.column(),
+                strip_position(&e.to_string())
+            );
+            ApiError::new(ProblemKind::MalformedBody, "The request body is not valid JSON.")
+                .with_error(ErrorItem::pointer(pointer, "invalid_json", message))
+        }
+        Category::Data => {
+            let item = data_error_item(pointer, &e);
+            ApiError::validation("The request body has invalid fields.", vec![item])
+        }
+    }
+}
+
+/// serde_json appends " at line L column C"; the message has its own position.
+fn strip_position(message: &str) -> &str {
+    match message.rfind(" at line ") {
+        Some(i) => &message[..i],
+        None => message,
+    }
+}
+
+/// Classifies a serde data error; unknown and missing fields get the field appended
+/// to the pointer (serde reports them at the enclosing object).
+fn data_error_item(pointer: String, e: &serde_json::Error) -> ErrorItem {
+    let text = e.to_string();
+    let message = strip_position(&text).to_owned();
+    if let Some(field) = backticked_after(&message, "unknown field ") {
+        let pointer = append_field(&pointer, &field);
+        return ErrorItem::pointer(pointer, "unknown_field", format!("{field:?} is not a field here ({message})"));
+    }
+    if let Some(field) = backticked_after(&message, "missing field ") {
+        let pointer = append_field(&pointer, &field);
+        return ErrorItem::pointer(pointer, "required", format!("{field:?} is required"));
+    }
+    let reason = if message.starts_with("invalid type") {
+        "invalid_type"
+    } else if message.starts_with("invalid length") {
+        "invalid_length"
+    } else {
+        "invalid_value"
+    };
+    ErrorItem::pointer(pointer, reason, message)
+}
+
+/// For a message like "unknown field `foo`, expected ...", the text between the first
+/// pair of backticks after `lead`.
+fn backticked_after(message: &str, lead: &str) -> Option<String> {
+    let rest = message.strip_prefix(lead)?;
+    let rest = rest.strip_prefix('`')?;
+    let end = rest.find('`')?;
+    Some(rest[..end].to_owned())
+}
+
+/// Appends `field` to `pointer` unless the pointer already ends with it (serde's
+/// path tracker sometimes has already recorded the key).
+fn append_field(pointer: &str, field: &str) -> String {
+    let segment = dispar_core::error::pointer_segment(field);
+    if pointer.rsplit('/').next() == Some(segment.as_str()) && !pointer.is_empty() {
+        pointer.to_owned()
+    } else {
+        format!("{pointer}/{segment}")
+    }
+}
+
+/// A query string deserialized into `T`; errors are 422 naming the parameter.
+#[derive(Debug, Clone)]
+pub struct ApiQuery<T>(pub T);
+
+impl<S: Send + Sync, T: DeserializeOwned> FromRequestParts<S> for ApiQuery<T> {
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, _state: &S) -> Result<Self, Self::Rejection> {
+        let query = parts.uri.query().unwrap_or("");
+        // Query types in this crate hold strings and parse values themselves, so the
+        // only errors here are unknown, repeated or undecodable parameters.
+        serde_urlencoded::from_str(query).map(ApiQuery).map_err(|e| {
+            let message = e.to_string();
+            let item = if let Some(field) = backticked_after(&message, "unknown field ") {
+                ErrorItem::parameter(field, "unknown_parameter", message)
+            } else if let Some(field) = backticked_after(&message, "duplicate field ") {
+                ErrorItem::parameter(field, "duplicate", message)
+            } else if let Some(field) = backticked_after(&message, "missing field ") {
+                ErrorItem::parameter(field, "required", message)
+            } else {
+                ErrorItem::general("invalid_query", message)
+            };
+            ApiError::validation("The query string has invalid parameters.", vec![item])
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use serde::Deserialize;
+
+    #[derive(Debug, Deserialize)]
+    #[serde(deny_unknown_fields)]
+    #[allow(dead_code)]
+    struct Rec {
+        inspected: u64,
+        defective: u64,
+    }
+
+    #[derive(Debug, Deserialize)]
+    #[serde(deny_unknown_fields)]
+    #[allow(dead_code)]
+    struct Batch {
+        records: Vec<Rec>,
+    }
+
+    fn err<T: DeserializeOwned + std::fmt::Debug>(json: &str) -> ApiError {
+        match parse_json::<T>(json.as_bytes()) {
+            Ok(v) => panic!("expected an error for {json}, got {v:?}"),
+            Err(e) => e,
+        }
+    }
+
+    #[test]
+    fn unknown_fields_are_named_by_pointer() {
+        let e = err::<Batch>(r#"{"records":[{"inspected":1,"defective":0},{"inspected":1,"defective":0,"colour":"red"}]}"#);
+        assert_eq!(e.status().as_u16(), 422);
+        assert_eq!(e.errors()[0].pointer.as_deref(), Some("/records/1/colour"));
+        assert_eq!(e.errors()[0].reason, "unknown_field");
+    }
+
+    #[test]
+    fn missing_fields_and_wrong_types_are_named_by_pointer() {
+        let e = err::<Batch>(r#"{"records":[{"inspected":1}]}"#);
+        assert_eq!(e.errors()[0].pointer.as_deref(), Some("/records/0/defective"));
+        assert_eq!(e.errors()[0].reason, "required");
+        let e = err::<Batch>(r#"{"records":[{"inspected":"many","defective":0}]}"#);
+        assert_eq!(e.errors()[0].pointer.as_deref(), Some("/records/0/inspected"));
+        assert_eq!(e.errors()[0].reason, "invalid_type");
+    }
+
+    #[test]
+    fn syntax_errors_are_400_with_a_position() {
+        let e = err::<Batch>(r#"{"records": [}"#);
+        assert_eq!(e.status().as_u16(), 400);
+        assert_eq!(e.errors()[0].reason, "invalid_json");
+        assert!(e.errors()[0].message.contains("line 1"), "{:?}", e.errors());
+        let e = err::<Batch>(r#"{"records": []} trailing"#);
+        assert_eq!(e.status().as_u16(), 400);
+    }
+
+    #[test]
+    fn media_types_are_read_with_parameters() {
+        assert_eq!(media_type("application/json"), Some(MediaType::Json));
+        assert_eq!(media_type("application/json; charset=utf-8"), Some(MediaType::Json));
+        assert_eq!(media_type("Application/Merge-Patch+JSON"), Some(MediaType::Json));
+        assert_eq!(media_type("text/csv; charset=UTF-8; header=present"), Some(MediaType::Csv));
+        assert_eq!(media_type("text/csv; charset=latin1"), None);
+        assert_eq!(media_type("text/plain"), None);
+    }
+}

@@ -1,0 +1,216 @@
+//! Operations: `/livez`, `/readyz`, `/metrics`, the `/problems/{slug}` pages, and
+//! the middleware every request passes (metrics, timeout, problem bodies for errors
+//! produced outside our handlers).
+//!
+//! Metrics (Prometheus text format, `GET /metrics`, no key needed):
+//! - `dispar_http_requests_total{method, route, status}` — `route` is the route
+//!   template (`/v1/sites/{site}`), or `unmatched`, so the label set stays small;
+//! - `dispar_http_request_duration_seconds{method, route}` — a histogram;
+//! - `dispar_http_requests_in_flight` — a gauge;
+//! - `dispar_records_written_total{outcome}` — count records by `created`,
+//!   `corrected`, `unchanged`, counted after the commit returned.
+
+use std::sync::OnceLock;
+use std::time::{Duration, Instant};
+
+use axum::extract::{MatchedPath, Path, Request, State};
+use axum::http::header::{self, HeaderValue};
+use axum::http::{Method, StatusCode};
+use axum::middleware::Next;
+use axum::response::{Html, IntoResponse, Response};
+use axum::routing::get;
+use axum::Router;
+use metrics_exporter_prometheus::{Matcher, PrometheusBuilder, PrometheusHandle};
+
+use crate::error::{ApiError, ProblemKind, PROBLEM_JSON};
+use crate::state::AppState;
+
+/// Counter of requests.
+pub const REQUESTS_TOTAL: &str = "dispar_http_requests_total";
+/// Histogram of request latency in seconds.
+pub const REQUEST_DURATION: &str = "dispar_http_request_duration_seconds";
+/// Gauge of requests being handled.
+pub const IN_FLIGHT: &str = "dispar_http_requests_in_flight";
+/// Counter of count records by outcome.
+pub const RECORDS_WRITTEN: &str = "dispar_records_written_total";
+
+const LATENCY_BUCKETS: [f64; 14] = [
+    0.0005, 0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5, 5.0, 10.0,
+];
+
+/// The process-wide Prometheus recorder's handle, installed on first use.
+///
+/// If another recorder was installed first (not done anywhere in dispar), metrics are
+/// rendered from a recorder of our own that nothing writes to, and a warning is logged.
+pub fn metrics_handle() -> PrometheusHandle {
+    static HANDLE: OnceLock<PrometheusHandle> = OnceLock::new();
+    HANDLE
+        .get_or_init(|| {
+            let builder = || {
+                PrometheusBuilder::new()
+                    .set_buckets_for_metric(Matcher::Full(REQUEST_DURATION.to_owned()), &LATENCY_BUCKETS)
+            };
+            match builder().and_then(PrometheusBuilder::install_recorder) {
+                Ok(handle) => {
+                    metrics::describe_counter!(REQUESTS_TOTAL, "HTTP requests by method, route template and status");
+                    metrics::describe_histogram!(
+                        REQUEST_DURATION,
+                        metrics::Unit::Seconds,
+                        "HTTP request latency by method and route template"
+                    );
+                    metrics::describe_gauge!(IN_FLIGHT, "HTTP requests being handled");
+                    metrics::describe_counter!(
+                        RECORDS_WRITTEN,
+                        "Count records in committed writes, by outcome (created, corrected, unchanged)"
+                    );
+                    handle
+                }
+                Err(e) => {
+                    tracing::warn!(error = %e, "could not install the metrics recorder; /metrics will be empty");
+                    PrometheusBuilder::new().build_recorder().handle()
+                }
+            }
+        })
+        .clone()
+}
+
+/// Counts records of a committed write.
+pub fn count_records(created: usize, corrected: usize, unchanged: usize) {
+    for (outcome, n) in [("created", created), ("corrected", corrected), ("unchanged", unchanged)] {
+        if n > 0 {
+            metrics::counter!(RECORDS_WRITTEN, "outcome" => outcome).increment(n as u64);
+        }
+    }
+}
+
+/// The operations routes (no key needed).
+pub fn router() -> Router<AppState> {
+    Router::new()
+        .route("/livez", get(livez))
+        .route("/readyz", get(readyz))
+        .route("/metrics", get(render_metrics))
+        .route("/problems/{slug}", get(problem_page))
+}
+
+/// 200 while the process runs.
+async fn livez() -> impl IntoResponse {
+    axum::Json(serde_json::json!({"status": "ok"}))
+}
+
+/// 200 when the database answers within 2 s and shutdown has not begun; else 503.
+async fn readyz(State(state): State<AppState>) -> Result<impl IntoResponse, ApiError> {
+    if state.is_shutting_down() {
+        return Err(ApiError::unavailable("The server is shutting down.", 5));
+    }
+    match tokio::time::timeout(Duration::from_secs(2), state.store().ping()).await {
+        Ok(Ok(())) => Ok(axum::Json(serde_json::json!({"status": "ready"}))),
+        Ok(Err(e)) => {
+            tracing::warn!(error = %e, "readiness check: database ping failed");
+            Err(ApiError::unavailable("The database does not answer.", 5))
+        }
+        Err(_) => {
+            tracing::warn!("readiness check: database ping timed out");
+            Err(ApiError::unavailable("The database does not answer in time.", 5))
+        }
+    }
+}
+
+async fn render_metrics(State(state): State<AppState>) -> impl IntoResponse {
+    (
+        [(header::CONTENT_TYPE, HeaderValue::from_static("text/plain; version=0.0.4; charset=utf-8"))],
+        state.metrics().render(),
+    )
+}
+
+/// A short HTML page describing a problem type.
+async fn problem_page(Path(slug): Path<String>) -> Result<Html<String>, ApiError> {
+    let Some(kind) = ProblemKind::from_slug(&slug) else {
+        return Err(ApiError::not_found(format!("There is no problem type {slug:?}.")));
+    };
+    Ok(Html(format!(
+        "<!doctype html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{title}</title></head>\n<body><h1>{title}</h1><p>HTTP status {status}. Problem type <code>{uri}</code>.</p><p>{text}</p></body></html>\n",
+        title = kind.title(),
+        status = kind.status().as_u16(),
+        uri = kind.type_uri(),
+        text = escape_html(kind.description()),
+    )))
+}
+
+fn escape_html(s: &str) -> String {
+    s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;")
+}
+
+/// Fallback for unknown paths: 404 problem.
+pub async fn not_found(method: Method, uri: axum::http::Uri) -> ApiError {
+    ApiError::not_found(format!("There is no resource at {method} {}.", uri.path()))
+}
+
+/// Middleware: records request count, latency and in-flight gauge by route template.
+pub async fn track_metrics(request: Request, next: Next) -> Response {
+    let route = request
+        .extensions()
+        .get::<MatchedPath>()
+        .map_or_else(|| "unmatched".to_owned(), |p| p.as_str().to_owned());
+    let method = request.method().as_str().to_owned();
+    let start = Instant::now();
+    let gauge = metrics::gauge!(IN_FLIGHT);
+    gauge.increment(1.0);
+    let response = next.run(request).await;
+    gauge.decrement(1.0);
+    let status = response.status().as_u16().to_string();
+    metrics::counter!(REQUESTS_TOTAL, "method" => method.clone(), "route" => route.clone(), "status" => status)
+        .increment(1);
+    metrics::histogram!(REQUEST_DURATION, "method" => method, "route" => route)
+        .record(start.elapsed().as_secs_f64());
+    response
+}
+
+/// Middleware: answers 503 `timeout` when the handler takes longer than the limit.
+///
+/// The handler's future is dropped; a write in progress is rolled back by the store,
+/// unless its commit had already been handed to SQLite, which is why the problem says
+/// the write may or may not have happened.
+pub async fn timeout(State(state): State<AppState>, request: Request, next: Next) -> Response {
+    let limit = state.limits().request_timeout;
+    match tokio::time::timeout(limit, next.run(request)).await {
+        Ok(response) => response,
+        Err(_) => ApiError::new(
+            ProblemKind::Timeout,
+            format!("The request took longer than {} ms.", limit.as_millis()),
+        )
+        .into_response(),
+    }
+}
+
+/// Middleware: gives every error response a problem body. Our handlers already
+/// answer with `application/problem+json`; this catches the rest (axum's 405, a
+/// panic caught by `CatchPanicLayer`, a body-limit layer), keeping their headers.
+pub async fn problem_bodies(request: Request, next: Next) -> Response {
+    let response = next.run(request).await;
+    let status = response.status();
+    if !(status.is_client_error() || status.is_server_error()) {
+        return response;
+    }
+    let is_problem = response
+        .headers()
+        .get(header::CONTENT_TYPE)
+        .is_some_and(|v| v.as_bytes().starts_with(PROBLEM_JSON.as_bytes()));
+    if is_problem {
+        return response;
+    }
+    let kind = ProblemKind::for_status(status);
+    let detail = match status {
+        StatusCode::METHOD_NOT_ALLOWED => "This path does not take this method; see the Allow header.".to_owned(),
+        s if s.is_server_error() => "The server failed to handle the request; the cause is in the server log.".to_owned(),
+        s => s.canonical_reason().unwrap_or("Request refused").to_owned(),
+    };
+    let mut body = ApiError::new(kind, detail).body();
+    // Keep the status that was chosen (e.g. 429 from a layer); the body says the same.
+    body["status"] = status.as_u16().into();
+    let (mut parts, _) = response.into_parts();
+    parts.headers.remove(header::CONTENT_LENGTH);
+    parts
+        .headers
+        .insert(header::CONTENT_TYPE, HeaderValue::from_static(PROBLEM_JSON));
+    Response::from_parts(parts, axum::body::Body::from(serde_json::to_vec(&body).unwrap_or_default()))
+}

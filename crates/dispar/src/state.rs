@@ -1,0 +1,86 @@
+//! The state every handler shares: the store, the metrics handle, the limits and
+//! the shutdown flag.
+
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::time::Duration;
+
+use dispar_store::Store;
+use metrics_exporter_prometheus::PrometheusHandle;
+
+/// Request limits of the server (from `dispar serve` flags).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Limits {
+    /// Largest accepted request body, in bytes (413 above it).
+    pub max_body_bytes: usize,
+    /// Longest time a request may take (503 `timeout` after it).
+    pub request_timeout: Duration,
+    /// Most `/v1` requests handled at once; more wait for a slot (within the timeout).
+    pub max_concurrency: usize,
+    /// Most records in one batch (422 above it).
+    pub max_batch_records: usize,
+}
+
+impl Default for Limits {
+    fn default() -> Self {
+        Self {
+            max_body_bytes: 16 * 1024 * 1024,
+            request_timeout: Duration::from_secs(30),
+            max_concurrency: 64,
+            max_batch_records: 10_000,
+        }
+    }
+}
+
+/// Shared state, cheap to clone.
+#[derive(Debug, Clone)]
+pub struct AppState {
+    inner: Arc<Inner>,
+}
+
+#[derive(Debug)]
+struct Inner {
+    store: Arc<dyn Store>,
+    metrics: PrometheusHandle,
+    limits: Limits,
+    shutting_down: AtomicBool,
+}
+
+impl AppState {
+    /// State over `store` with `limits`; metrics go to the process-wide recorder.
+    pub fn new(store: Arc<dyn Store>, limits: Limits) -> Self {
+        Self {
+            inner: Arc::new(Inner {
+                store,
+                metrics: crate::ops::metrics_handle(),
+                limits,
+                shutting_down: AtomicBool::new(false),
+            }),
+        }
+    }
+
+    /// The store.
+    pub fn store(&self) -> &Arc<dyn Store> {
+        &self.inner.store
+    }
+
+    /// The Prometheus handle (renders `/metrics`).
+    pub fn metrics(&self) -> &PrometheusHandle {
+        &self.inner.metrics
+    }
+
+    /// The limits.
+    pub fn limits(&self) -> Limits {
+        self.inner.limits
+    }
+
+    /// Marks the server as shutting down: `/readyz` answers 503 from now on.
+    pub fn begin_shutdown(&self) {
+        self.inner.shutting_down.store(true, Ordering::SeqCst);
+    }
+
+    /// True once shutdown has begun.
+    pub fn is_shutting_down(&self) -> bool {
+        self.inner.shutting_down.load(Ordering::SeqCst)
+    }
+}
