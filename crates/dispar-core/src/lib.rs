@@ -6,6 +6,7 @@
 //! - [`record`]: daily count records and their raw (serde) input forms;
 //! - [`date`]: production dates;
 //! - [`period`]: report periods (ISO 8601 day, week, month, quarter, year, range);
+//! - [`report`]: the report builder, its JSON model and text layout;
 //! - [`tabular`]: checking the CSV cells of `dispar analyze` input;
 //! - [`error`]: field-level validation errors.
 //!
@@ -19,5 +20,6 @@ pub mod date;
 pub mod error;
 pub mod period;
 pub mod record;
+pub mod report;
 pub mod site;
 pub mod tabular;

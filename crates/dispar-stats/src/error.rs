@@ -57,6 +57,12 @@ pub enum StatsError {
         /// Sum of the column totals.
         col_sum: u64,
     },
+    /// A group in a rate comparison inspected no units.
+    #[error("group {index} inspected no units")]
+    EmptyGroup {
+        /// Index of the group in the input.
+        index: usize,
+    },
     /// A proportion was asked for a sample of size 0.
     #[error("no trials: a proportion of 0 units has no estimate and no interval")]
     NoTrials,

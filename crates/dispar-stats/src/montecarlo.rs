@@ -357,7 +357,7 @@ pub fn conditional_p(table: &Table, resamples: u64, seed: u64) -> Result<MonteCa
                 .collect();
             handles
                 .into_iter()
-                .map(|h| h.join().unwrap_or(0))
+                .map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
                 .sum::<u64>()
         })
     };

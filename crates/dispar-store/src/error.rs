@@ -58,9 +58,7 @@ pub enum StoreError {
 }
 
 fn first_problem(errors: &[RecordError]) -> String {
-    errors
-        .first()
-        .map_or_else(String::new, ToString::to_string)
+    errors.first().map_or_else(String::new, ToString::to_string)
 }
 
 impl StoreError {
@@ -71,10 +69,6 @@ impl StoreError {
 
     pub(crate) fn internal(message: impl Into<String>) -> Self {
         StoreError::Internal(message.into().into())
-    }
-
-    pub(crate) fn record(index: usize, problem: RecordProblem) -> Self {
-        StoreError::Rejected(vec![RecordError { index, problem }])
     }
 }
 
@@ -195,7 +189,10 @@ mod tests {
             constraint_name("UNIQUE constraint failed: sites.code").as_deref(),
             Some("unique:sites.code")
         );
-        assert_eq!(constraint_name("FOREIGN KEY constraint failed").as_deref(), Some("foreign_key"));
+        assert_eq!(
+            constraint_name("FOREIGN KEY constraint failed").as_deref(),
+            Some("foreign_key")
+        );
         assert_eq!(constraint_name("no such table: x"), None);
     }
 }

@@ -113,7 +113,9 @@ pub fn backend_of(url: &str) -> Result<Backend, StoreError> {
         )));
     }
     if url.trim().is_empty() {
-        return Err(StoreError::Unsupported("the database URL is empty".to_owned()));
+        return Err(StoreError::Unsupported(
+            "the database URL is empty".to_owned(),
+        ));
     }
     Ok(Backend::Sqlite)
 }

@@ -6,7 +6,9 @@ use dispar_core::record::{CountRecord, RecordKey};
 use dispar_core::site::{Line, Site};
 use time::OffsetDateTime;
 
-use crate::counts::{BatchResult, CountFilter, CountPage, Idempotency, StoredAnswer, StoredRecord, WriteOutcome};
+use crate::counts::{
+    BatchResult, CountFilter, CountPage, Idempotency, StoredAnswer, StoredRecord, WriteOutcome,
+};
 use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::reports::{Aggregate, AggregateQuery};

@@ -63,10 +63,16 @@ mod tests {
     #[test]
     fn instants_are_fixed_width_utc_microseconds_and_round_trip() {
         let t = datetime!(2026-03-14 09:15:00.123456789 +01:00);
-        let s = format_instant(t).unwrap();
+        let s = format_instant(t).expect("format");
         assert_eq!(s, "2026-03-14T08:15:00.123456Z");
-        assert_eq!(parse_instant(&s).unwrap(), datetime!(2026-03-14 08:15:00.123456 UTC));
-        assert_eq!(format_instant(datetime!(2026-03-14 08:15:00 UTC)).unwrap(), "2026-03-14T08:15:00.000000Z");
+        assert_eq!(
+            parse_instant(&s).expect("parse"),
+            datetime!(2026-03-14 08:15:00.123456 UTC)
+        );
+        assert_eq!(
+            format_instant(datetime!(2026-03-14 08:15:00 UTC)).expect("format"),
+            "2026-03-14T08:15:00.000000Z"
+        );
     }
 
     #[test]

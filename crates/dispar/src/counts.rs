@@ -322,15 +322,21 @@ async fn list_counts(
         })?,
     }
     let mut errors: Vec<FieldError> = Vec::new();
-    let mut take = |r: Result<_, FieldError>| r.map_err(|e| errors.push(e)).ok();
-    let site = q.site.as_deref().and_then(|s| take(SiteCode::parse_field(s, "site")));
-    let line = q.line.as_deref().and_then(|s| take(LineCode::parse_field(s, "line")));
-    let product = q.product.as_deref().and_then(|s| take(ProductCode::parse_field(s, "product")));
-    let from = q.from.as_deref().and_then(|s| take(parse_date_field(s, "from")));
-    let to = q.to.as_deref().and_then(|s| take(parse_date_field(s, "to")));
+    fn take<T>(errors: &mut Vec<FieldError>, r: Result<T, FieldError>) -> Option<T> {
+        r.map_err(|e| errors.push(e)).ok()
+    }
+    let e = &mut errors;
+    let site = q.site.as_deref().and_then(|s| take(e, SiteCode::parse_field(s, "site")));
+    let line = q.line.as_deref().and_then(|s| take(e, LineCode::parse_field(s, "line")));
+    let product = q
+        .product
+        .as_deref()
+        .and_then(|s| take(e, ProductCode::parse_field(s, "product")));
+    let from = q.from.as_deref().and_then(|s| take(e, parse_date_field(s, "from")));
+    let to = q.to.as_deref().and_then(|s| take(e, parse_date_field(s, "to")));
     let limit = match q.limit.as_deref() {
         None => Some(DEFAULT_PAGE),
-        Some(s) => take(parse_limit(s)),
+        Some(s) => take(e, parse_limit(s)),
     };
     if let (Some(f), Some(t)) = (from, to)
         && f > t

@@ -445,20 +445,32 @@ impl ApiError {
 
     /// The problem body as JSON.
     pub fn body(&self) -> serde_json::Value {
-        let mut body = serde_json::Map::new();
-        body.insert("type".into(), self.kind.type_uri().into());
-        body.insert("title".into(), self.kind.title().into());
-        body.insert("status".into(), self.kind.status().as_u16().into());
-        body.insert("detail".into(), self.detail.clone().into());
-        body.insert(
-            "errors".into(),
-            serde_json::to_value(&self.errors).unwrap_or_else(|_| serde_json::Value::Array(Vec::new())),
-        );
-        for (k, v) in &self.extensions {
-            body.entry(k.clone()).or_insert_with(|| v.clone());
-        }
-        serde_json::Value::Object(body)
+        serde_json::to_value(self.problem()).unwrap_or_default()
     }
+
+    fn problem(&self) -> ProblemBody<'_> {
+        ProblemBody {
+            type_uri: self.kind.type_uri(),
+            title: self.kind.title(),
+            status: self.kind.status().as_u16(),
+            detail: &self.detail,
+            errors: &self.errors,
+            extensions: &self.extensions,
+        }
+    }
+}
+
+/// The serialized problem, members in the order RFC 9457 lists them.
+#[derive(Serialize)]
+struct ProblemBody<'a> {
+    #[serde(rename = "type")]
+    type_uri: String,
+    title: &'static str,
+    status: u16,
+    detail: &'a str,
+    errors: &'a [ErrorItem],
+    #[serde(flatten)]
+    extensions: &'a serde_json::Map<String, serde_json::Value>,
 }
 
 impl IntoResponse for ApiError {
@@ -472,7 +484,7 @@ impl IntoResponse for ApiError {
         } else if let Some(cause) = &self.cause {
             tracing::debug!(problem = self.kind.slug(), error = %cause, "request refused");
         }
-        let body = serde_json::to_vec(&self.body()).unwrap_or_default();
+        let body = serde_json::to_vec(&self.problem()).unwrap_or_default();
         let mut response = (status, body).into_response();
         let headers = response.headers_mut();
         headers.insert(header::CONTENT_TYPE, HeaderValue::from_static(PROBLEM_JSON));

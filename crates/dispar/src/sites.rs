@@ -80,16 +80,23 @@ fn outcome_word(u: Upserted) -> &'static str {
     }
 }
 
+#[derive(Serialize)]
+struct Written<T> {
+    outcome: &'static str,
+    #[serde(flatten)]
+    view: T,
+}
+
 /// 201 + Location for created, else 200; the body gets `outcome`.
 fn upsert_response(outcome: Upserted, location: &str, view: impl Serialize) -> Response {
-    let mut body = serde_json::to_value(view).unwrap_or_default();
-    if let Some(map) = body.as_object_mut() {
-        map.insert("outcome".into(), outcome_word(outcome).into());
-    }
     let status = if outcome == Upserted::Created {
         StatusCode::CREATED
     } else {
         StatusCode::OK
+    };
+    let body = Written {
+        outcome: outcome_word(outcome),
+        view,
     };
     let mut response = (status, Json(body)).into_response();
     if outcome == Upserted::Created

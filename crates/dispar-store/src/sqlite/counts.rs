@@ -102,7 +102,11 @@ enum Decision {
     Unchanged,
 }
 
-fn decide(current: Option<&Current>, rows: &[Row<'_>], row: &Row<'_>) -> Result<Decision, RecordProblem> {
+fn decide(
+    current: Option<&Current>,
+    rows: &[Row<'_>],
+    row: &Row<'_>,
+) -> Result<Decision, RecordProblem> {
     let Some(c) = current else {
         return Ok(Decision::Write(WriteStatus::Created));
     };
@@ -153,11 +157,14 @@ pub(super) async fn find_idempotent(
     .await?;
     match row {
         None => Ok(None),
-        Some((hash, status, body)) if hash.as_slice() == body_sha256.as_slice() => Ok(Some(StoredAnswer {
-            status: u16::try_from(status)
-                .map_err(|_| StoreError::internal(format!("stored status {status} is out of range")))?,
-            body,
-        })),
+        Some((hash, status, body)) if hash.as_slice() == body_sha256.as_slice() => {
+            Ok(Some(StoredAnswer {
+                status: u16::try_from(status).map_err(|_| {
+                    StoreError::internal(format!("stored status {status} is out of range"))
+                })?,
+                body,
+            }))
+        }
         Some(_) => Err(StoreError::IdempotencyMismatch),
     }
 }
@@ -177,7 +184,8 @@ async fn check_registry(
 
     let mut known_sites: HashSet<String> = HashSet::new();
     for chunk in sites.chunks(LOOKUP_CHUNK) {
-        let mut q: QueryBuilder<Sqlite> = QueryBuilder::new("SELECT code FROM sites WHERE code IN (");
+        let mut q: QueryBuilder<Sqlite> =
+            QueryBuilder::new("SELECT code FROM sites WHERE code IN (");
         let mut sep = q.separated(", ");
         for s in chunk {
             sep.push_bind(*s);
@@ -188,12 +196,13 @@ async fn check_registry(
     }
     let mut known_lines: HashSet<(String, String)> = HashSet::new();
     for chunk in lines.chunks(LOOKUP_CHUNK) {
-        let mut q: QueryBuilder<Sqlite> =
-            QueryBuilder::new("WITH k(site, code) AS (");
+        let mut q: QueryBuilder<Sqlite> = QueryBuilder::new("WITH k(site, code) AS (");
         q.push_values(chunk, |mut b, (s, l)| {
             b.push_bind(*s).push_bind(*l);
         });
-        q.push(") SELECT l.site, l.code FROM k JOIN lines l ON l.site = k.site AND l.code = k.code");
+        q.push(
+            ") SELECT l.site, l.code FROM k JOIN lines l ON l.site = k.site AND l.code = k.code",
+        );
         let found: Vec<(String, String)> = q.build_query_as().fetch_all(&mut **tx).await?;
         known_lines.extend(found);
     }
@@ -202,7 +211,9 @@ async fn check_registry(
         if !known_sites.contains(site) {
             errors.push(RecordError {
                 index,
-                problem: RecordProblem::UnknownSite { site: site.to_owned() },
+                problem: RecordProblem::UnknownSite {
+                    site: site.to_owned(),
+                },
             });
         } else if !known_lines.contains(&(site.to_owned(), line.to_owned())) {
             errors.push(RecordError {
@@ -236,14 +247,16 @@ async fn load_current<'a>(
                     .push_bind(r.key.3);
             });
         };
-        let mut q: QueryBuilder<Sqlite> = QueryBuilder::new("WITH k(i, site, line, date, product) AS (");
+        let mut q: QueryBuilder<Sqlite> =
+            QueryBuilder::new("WITH k(i, site, line, date, product) AS (");
         values(&mut q);
         q.push(
             ") SELECT k.i, c.revision_id, c.inspected, c.defective, c.plant_revision \
              FROM k JOIN counts_current c \
              ON c.site = k.site AND c.line = k.line AND c.date = k.date AND c.product = k.product",
         );
-        let found: Vec<(i64, i64, i64, i64, Option<i64>)> = q.build_query_as().fetch_all(&mut **tx).await?;
+        let found: Vec<(i64, i64, i64, i64, Option<i64>)> =
+            q.build_query_as().fetch_all(&mut **tx).await?;
         if found.is_empty() {
             continue;
         }
@@ -261,7 +274,8 @@ async fn load_current<'a>(
                 stored_defects: false,
             });
         }
-        let mut q: QueryBuilder<Sqlite> = QueryBuilder::new("WITH k(i, site, line, date, product) AS (");
+        let mut q: QueryBuilder<Sqlite> =
+            QueryBuilder::new("WITH k(i, site, line, date, product) AS (");
         values(&mut q);
         q.push(
             ") SELECT k.i, d.category, d.count FROM k JOIN current_defects d \
@@ -302,7 +316,8 @@ impl SqliteStore {
 
         let mut tx = self.begin_write().await?;
         if let Some(idem) = &idempotency
-            && let Some(answer) = find_idempotent(&mut tx, api_key_id, idem.key, &idem.body_sha256).await?
+            && let Some(answer) =
+                find_idempotent(&mut tx, api_key_id, idem.key, &idem.body_sha256).await?
         {
             tx.rollback().await?;
             return Ok(BatchResult::Replayed(answer));
@@ -342,7 +357,8 @@ impl SqliteStore {
             match decide(current, &rows, row) {
                 Err(problem) => errors.push(RecordError { index, problem }),
                 Ok(Decision::Unchanged) => {
-                    let c = current.ok_or_else(|| StoreError::internal("unchanged without a current value"))?;
+                    let c = current
+                        .ok_or_else(|| StoreError::internal("unchanged without a current value"))?;
                     outcome.push(WriteOutcome {
                         revision_id: c.revision_id,
                         plant_revision: plant_revision_u64(c.plant_revision)?,
@@ -417,8 +433,9 @@ impl SqliteStore {
                 .flat_map(|(id, r)| r.defects.iter().map(move |&(c, n)| (id, c, n)))
                 .collect();
             for chunk in revision_defects.chunks(DEFECT_CHUNK) {
-                let mut q: QueryBuilder<Sqlite> =
-                    QueryBuilder::new("INSERT INTO revision_defects (revision_id, category, count) ");
+                let mut q: QueryBuilder<Sqlite> = QueryBuilder::new(
+                    "INSERT INTO revision_defects (revision_id, category, count) ",
+                );
                 q.push_values(chunk, |mut b, &(id, c, n)| {
                     b.push_bind(id).push_bind(c).push_bind(n);
                 });
@@ -430,7 +447,9 @@ impl SqliteStore {
                 .iter()
                 .filter_map(|&k| {
                     let c = state.get(k)?.as_ref()?;
-                    let Defects::Row(i) = c.defects else { return None };
+                    let Defects::Row(i) = c.defects else {
+                        return None;
+                    };
                     Some((rows.get(i)?, c))
                 })
                 .collect();
@@ -463,7 +482,8 @@ impl SqliteStore {
                 .map(|(r, _)| *r)
                 .collect();
             for chunk in replaced.chunks(INSERT_CHUNK) {
-                let mut q: QueryBuilder<Sqlite> = QueryBuilder::new("WITH k(date, site, line, product) AS (");
+                let mut q: QueryBuilder<Sqlite> =
+                    QueryBuilder::new("WITH k(date, site, line, product) AS (");
                 q.push_values(chunk, |mut b, r| {
                     b.push_bind(r.date_text.as_str())
                         .push_bind(r.key.0)
@@ -522,7 +542,10 @@ impl SqliteStore {
         Ok(BatchResult::Written { outcome, answer })
     }
 
-    pub(super) async fn purge_idempotency_impl(&self, before: OffsetDateTime) -> Result<u64, StoreError> {
+    pub(super) async fn purge_idempotency_impl(
+        &self,
+        before: OffsetDateTime,
+    ) -> Result<u64, StoreError> {
         let mut tx = self.begin_write().await?;
         let done = sqlx::query("DELETE FROM idempotency WHERE created_at < ?")
             .bind(format_instant(before)?)
@@ -532,7 +555,10 @@ impl SqliteStore {
         Ok(done.rows_affected())
     }
 
-    pub(super) async fn get_record_impl(&self, key: &RecordKey) -> Result<Option<StoredRecord>, StoreError> {
+    pub(super) async fn get_record_impl(
+        &self,
+        key: &RecordKey,
+    ) -> Result<Option<StoredRecord>, StoreError> {
         let mut tx = self.reader.begin().await?;
         let row: Option<CurrentRow> = sqlx::query_as(sqlx::AssertSqlSafe(format!(
             "{CURRENT_SELECT} WHERE c.site = ? AND c.line = ? AND c.date = ? AND c.product = ?"
@@ -578,15 +604,24 @@ impl SqliteStore {
             q.push(" AND c.date <= ").push_bind(format_date(d));
         }
         if let Some([site, line, date, product]) = after {
-            q.push(" AND (c.site, c.line, c.date, c.product) > (")
-                .push_bind(site)
-                .push(", ")
-                .push_bind(line)
-                .push(", ")
-                .push_bind(date)
-                .push(", ")
-                .push_bind(product)
-                .push(")");
+            // The keyset condition leaves out the columns an equality filter fixes to the
+            // cursor's value (equivalent there), so SQLite seeks straight to the cursor.
+            let site_fixed = filter.site.as_ref().is_some_and(|s| s.as_str() == site);
+            let line_fixed = site_fixed && filter.line.as_ref().is_some_and(|l| l.as_str() == line);
+            if line_fixed {
+                q.push(" AND (c.date, c.product) > (");
+            } else if site_fixed {
+                q.push(" AND (c.line, c.date, c.product) > (")
+                    .push_bind(line)
+                    .push(", ");
+            } else {
+                q.push(" AND (c.site, c.line, c.date, c.product) > (")
+                    .push_bind(site)
+                    .push(", ")
+                    .push_bind(line)
+                    .push(", ");
+            }
+            q.push_bind(date).push(", ").push_bind(product).push(")");
         }
         q.push(" ORDER BY c.site, c.line, c.date, c.product LIMIT ")
             .push_bind(i64::from(limit) + 1);
@@ -610,10 +645,16 @@ impl SqliteStore {
                 stored_from_current(row, d)
             })
             .collect::<Result<_, _>>()?;
-        Ok(CountPage { records, next_cursor })
+        Ok(CountPage {
+            records,
+            next_cursor,
+        })
     }
 
-    pub(super) async fn record_history_impl(&self, key: &RecordKey) -> Result<Vec<StoredRecord>, StoreError> {
+    pub(super) async fn record_history_impl(
+        &self,
+        key: &RecordKey,
+    ) -> Result<Vec<StoredRecord>, StoreError> {
         let rows: Vec<HistoryRow> = sqlx::query_as(
             "SELECT r.id, r.inspected, r.defective, r.plant_revision, r.recorded_at, r.api_key_id, \
                     d.category, d.count \
@@ -629,17 +670,28 @@ impl SqliteStore {
         .await?;
         let mut out: Vec<StoredRecord> = Vec::new();
         let mut pending: Option<(HistoryHead, BTreeMap<CategoryCode, u64>)> = None;
-        for (id, inspected, defective, plant_revision, recorded_at, api_key_id, category, count) in rows {
+        for (id, inspected, defective, plant_revision, recorded_at, api_key_id, category, count) in
+            rows
+        {
             if pending.as_ref().is_none_or(|(h, _)| h.0 != id) {
                 if let Some((head, defects)) = pending.take() {
                     out.push(stored_from_history(key, head, defects)?);
                 }
                 pending = Some((
-                    (id, inspected, defective, plant_revision, recorded_at, api_key_id),
+                    (
+                        id,
+                        inspected,
+                        defective,
+                        plant_revision,
+                        recorded_at,
+                        api_key_id,
+                    ),
                     BTreeMap::new(),
                 ));
             }
-            if let (Some((_, defects)), Some(category), Some(count)) = (pending.as_mut(), category, count) {
+            if let (Some((_, defects)), Some(category), Some(count)) =
+                (pending.as_mut(), category, count)
+            {
                 defects.insert(parse_code(&category)?, to_u64(count, "defect count")?);
             }
         }
@@ -652,7 +704,18 @@ impl SqliteStore {
 
 /// `(site, line, date, product, revision_id, inspected, defective, plant_revision,
 /// recorded_at, api_key_id)`
-type CurrentRow = (String, String, String, String, i64, i64, i64, Option<i64>, String, Option<i64>);
+type CurrentRow = (
+    String,
+    String,
+    String,
+    String,
+    i64,
+    i64,
+    i64,
+    Option<i64>,
+    String,
+    Option<i64>,
+);
 
 const CURRENT_SELECT: &str = "SELECT c.site, c.line, c.date, c.product, c.revision_id, c.inspected, \
      c.defective, c.plant_revision, r.recorded_at, r.api_key_id \
@@ -660,7 +723,16 @@ const CURRENT_SELECT: &str = "SELECT c.site, c.line, c.date, c.product, c.revisi
 
 /// `(id, inspected, defective, plant_revision, recorded_at, api_key_id)`
 type HistoryHead = (i64, i64, i64, Option<i64>, String, Option<i64>);
-type HistoryRow = (i64, i64, i64, Option<i64>, String, Option<i64>, Option<String>, Option<i64>);
+type HistoryRow = (
+    i64,
+    i64,
+    i64,
+    Option<i64>,
+    String,
+    Option<i64>,
+    Option<String>,
+    Option<i64>,
+);
 
 async fn load_revision_defects(
     conn: &mut SqliteConnection,
@@ -668,8 +740,9 @@ async fn load_revision_defects(
 ) -> Result<HashMap<i64, BTreeMap<CategoryCode, u64>>, StoreError> {
     let mut out: HashMap<i64, BTreeMap<CategoryCode, u64>> = HashMap::new();
     for chunk in ids.chunks(LOOKUP_CHUNK) {
-        let mut q: QueryBuilder<Sqlite> =
-            QueryBuilder::new("SELECT revision_id, category, count FROM revision_defects WHERE revision_id IN (");
+        let mut q: QueryBuilder<Sqlite> = QueryBuilder::new(
+            "SELECT revision_id, category, count FROM revision_defects WHERE revision_id IN (",
+        );
         let mut sep = q.separated(", ");
         for id in chunk {
             sep.push_bind(*id);
@@ -692,8 +765,12 @@ fn build_record(
     plant_revision: Option<i64>,
     defects: BTreeMap<CategoryCode, u64>,
 ) -> Result<CountRecord, StoreError> {
-    let counts = Counts::new(to_u64(inspected, "inspected")?, to_u64(defective, "defective")?, defects)
-        .map_err(|e| StoreError::internal(format!("stored counts are invalid: {e:?}")))?;
+    let counts = Counts::new(
+        to_u64(inspected, "inspected")?,
+        to_u64(defective, "defective")?,
+        defects,
+    )
+    .map_err(|e| StoreError::internal(format!("stored counts are invalid: {e:?}")))?;
     Ok(CountRecord {
         key,
         counts,
@@ -701,12 +778,30 @@ fn build_record(
     })
 }
 
-fn stored_from_current(row: CurrentRow, defects: BTreeMap<CategoryCode, u64>) -> Result<StoredRecord, StoreError> {
-    let (site, line, date, product, revision_id, inspected, defective, plant_revision, recorded_at, api_key_id) = row;
+fn stored_from_current(
+    row: CurrentRow,
+    defects: BTreeMap<CategoryCode, u64>,
+) -> Result<StoredRecord, StoreError> {
+    let (
+        site,
+        line,
+        date,
+        product,
+        revision_id,
+        inspected,
+        defective,
+        plant_revision,
+        recorded_at,
+        api_key_id,
+    ) = row;
     let key = RecordKey::new(
         parse_code(&site)?,
         parse_code(&line)?,
-        if product.is_empty() { None } else { Some(parse_code(&product)?) },
+        if product.is_empty() {
+            None
+        } else {
+            Some(parse_code(&product)?)
+        },
         parse_date(&date)?,
     )
     .map_err(|e| StoreError::internal(format!("stored key is invalid: {}", e.message)))?;
@@ -744,9 +839,10 @@ async fn next_revision_id(tx: &mut WriteTx) -> Result<i64, StoreError> {
 }
 
 async fn last_recorded_at(tx: &mut WriteTx) -> Result<Option<OffsetDateTime>, StoreError> {
-    let last: Option<String> = sqlx::query_scalar("SELECT recorded_at FROM count_revisions ORDER BY id DESC LIMIT 1")
-        .fetch_optional(&mut **tx)
-        .await?;
+    let last: Option<String> =
+        sqlx::query_scalar("SELECT recorded_at FROM count_revisions ORDER BY id DESC LIMIT 1")
+            .fetch_optional(&mut **tx)
+            .await?;
     last.as_deref().map(parse_instant).transpose()
 }
 
@@ -760,9 +856,13 @@ fn decode_cursor(cursor: &str) -> Result<[String; 4], StoreError> {
     let bytes = hex::decode(cursor).map_err(|_| StoreError::BadCursor)?;
     let text = String::from_utf8(bytes).map_err(|_| StoreError::BadCursor)?;
     let mut parts = text.split('\n').map(str::to_owned);
-    let (Some(site), Some(line), Some(date), Some(product), None) =
-        (parts.next(), parts.next(), parts.next(), parts.next(), parts.next())
-    else {
+    let (Some(site), Some(line), Some(date), Some(product), None) = (
+        parts.next(),
+        parts.next(),
+        parts.next(),
+        parts.next(),
+        parts.next(),
+    ) else {
         return Err(StoreError::BadCursor);
     };
     if dispar_core::date::parse_iso_date(&date).is_none() || site.is_empty() || line.is_empty() {
@@ -779,11 +879,24 @@ mod tests {
     fn cursors_round_trip_and_garbage_is_refused() {
         let c = encode_cursor(["S1", "L1", "2026-03-14", ""]);
         assert_eq!(
-            decode_cursor(&c).unwrap(),
-            ["S1".to_owned(), "L1".to_owned(), "2026-03-14".to_owned(), String::new()]
+            decode_cursor(&c).expect("round trip"),
+            [
+                "S1".to_owned(),
+                "L1".to_owned(),
+                "2026-03-14".to_owned(),
+                String::new()
+            ]
         );
-        for bad in ["zz", "", &hex::encode("S1\nL1\nnot-a-date\n"), &hex::encode("S1\nL1")] {
-            assert!(matches!(decode_cursor(bad), Err(StoreError::BadCursor)), "{bad}");
+        for bad in [
+            "zz",
+            "",
+            &hex::encode("S1\nL1\nnot-a-date\n"),
+            &hex::encode("S1\nL1"),
+        ] {
+            assert!(
+                matches!(decode_cursor(bad), Err(StoreError::BadCursor)),
+                "{bad}"
+            );
         }
     }
 }

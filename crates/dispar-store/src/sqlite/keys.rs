@@ -29,7 +29,8 @@ fn key_from_row(row: KeyRow, sites: Vec<SiteCode>) -> Result<ApiKey, StoreError>
     })
 }
 
-const KEY_COLUMNS: &str = "SELECT id, role, label, secret_hash, created_at, revoked_at FROM api_keys";
+const KEY_COLUMNS: &str =
+    "SELECT id, role, label, secret_hash, created_at, revoked_at FROM api_keys";
 
 impl SqliteStore {
     pub(super) async fn create_key_impl(
@@ -54,7 +55,8 @@ impl SqliteStore {
         unique.sort_unstable();
         unique.dedup();
         for chunk in unique.chunks(500) {
-            let mut q: QueryBuilder<Sqlite> = QueryBuilder::new("INSERT INTO api_key_sites (key_id, site) ");
+            let mut q: QueryBuilder<Sqlite> =
+                QueryBuilder::new("INSERT INTO api_key_sites (key_id, site) ");
             q.push_values(chunk, |mut b, site| {
                 b.push_bind(id).push_bind(*site);
             });
@@ -75,20 +77,25 @@ impl SqliteStore {
         let Some(row) = row else {
             return Ok(None);
         };
-        let sites: Vec<String> = sqlx::query_scalar("SELECT site FROM api_key_sites WHERE key_id = ? ORDER BY site")
-            .bind(id)
-            .fetch_all(&mut *tx)
-            .await?;
+        let sites: Vec<String> =
+            sqlx::query_scalar("SELECT site FROM api_key_sites WHERE key_id = ? ORDER BY site")
+                .bind(id)
+                .fetch_all(&mut *tx)
+                .await?;
         tx.rollback().await?;
-        let sites = sites.iter().map(|s| parse_code(s)).collect::<Result<_, _>>()?;
+        let sites = sites
+            .iter()
+            .map(|s| parse_code(s))
+            .collect::<Result<_, _>>()?;
         key_from_row(row, sites).map(Some)
     }
 
     pub(super) async fn list_keys_impl(&self) -> Result<Vec<ApiKey>, StoreError> {
         let mut tx = self.reader.begin().await?;
-        let rows: Vec<KeyRow> = sqlx::query_as(sqlx::AssertSqlSafe(format!("{KEY_COLUMNS} ORDER BY id")))
-            .fetch_all(&mut *tx)
-            .await?;
+        let rows: Vec<KeyRow> =
+            sqlx::query_as(sqlx::AssertSqlSafe(format!("{KEY_COLUMNS} ORDER BY id")))
+                .fetch_all(&mut *tx)
+                .await?;
         let site_rows: Vec<(i64, String)> =
             sqlx::query_as("SELECT key_id, site FROM api_key_sites ORDER BY key_id, site")
                 .fetch_all(&mut *tx)
@@ -109,11 +116,12 @@ impl SqliteStore {
     pub(super) async fn revoke_key_impl(&self, id: KeyId) -> Result<(), StoreError> {
         let mut tx = self.begin_write().await?;
         let now = format_instant(OffsetDateTime::now_utc())?;
-        let done = sqlx::query("UPDATE api_keys SET revoked_at = COALESCE(revoked_at, ?) WHERE id = ?")
-            .bind(now)
-            .bind(id)
-            .execute(&mut *tx)
-            .await?;
+        let done =
+            sqlx::query("UPDATE api_keys SET revoked_at = COALESCE(revoked_at, ?) WHERE id = ?")
+                .bind(now)
+                .bind(id)
+                .execute(&mut *tx)
+                .await?;
         if done.rows_affected() == 0 {
             return Err(StoreError::NotFound {
                 what: "api key",

@@ -22,13 +22,15 @@ use sqlx::sqlite::{
 use sqlx::{Sqlite, Transaction};
 use time::OffsetDateTime;
 
-use crate::counts::{BatchResult, CountFilter, CountPage, Idempotency, StoredAnswer, StoredRecord, WriteOutcome};
+use crate::OpenOptions;
+use crate::counts::{
+    BatchResult, CountFilter, CountPage, Idempotency, StoredAnswer, StoredRecord, WriteOutcome,
+};
 use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::reports::{Aggregate, AggregateQuery};
 use crate::sites::{SiteWithLines, Upserted};
 use crate::store::{Backend, Store, StoreStats};
-use crate::OpenOptions;
 
 /// The embedded SQLite migrations (`migrations/sqlite`).
 pub static MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("../../migrations/sqlite");
@@ -113,7 +115,8 @@ where
     T: FromStr,
     T::Err: std::fmt::Display,
 {
-    T::from_str(s).map_err(|e| StoreError::internal(format!("stored code {s:?} is unreadable: {e}")))
+    T::from_str(s)
+        .map_err(|e| StoreError::internal(format!("stored code {s:?} is unreadable: {e}")))
 }
 
 #[async_trait]
@@ -162,7 +165,9 @@ impl Store for SqliteStore {
                 .first()
                 .copied()
                 .ok_or_else(|| StoreError::internal("a one-record write gave no outcome")),
-            BatchResult::Replayed(_) => Err(StoreError::internal("a write without idempotency key was replayed")),
+            BatchResult::Replayed(_) => Err(StoreError::internal(
+                "a write without idempotency key was replayed",
+            )),
         }
     }
 

@@ -50,7 +50,10 @@ fn push_filters(q: &mut QueryBuilder<Sqlite>, query: &AggregateQuery, from: &str
 type GroupKey = (String, Option<String>);
 
 impl SqliteStore {
-    pub(super) async fn aggregate_impl(&self, query: &AggregateQuery) -> Result<Aggregate, StoreError> {
+    pub(super) async fn aggregate_impl(
+        &self,
+        query: &AggregateQuery,
+    ) -> Result<Aggregate, StoreError> {
         let from = format_date(query.from);
         let to = format_date(query.to);
         let as_of = query.as_of.map(format_instant).transpose()?;
@@ -72,7 +75,9 @@ impl SqliteStore {
                 .fetch_optional(&mut *tx)
                 .await?;
             if known.is_none() {
-                return Err(StoreError::UnknownSite { site: site.to_string() });
+                return Err(StoreError::UnknownSite {
+                    site: site.to_string(),
+                });
             }
         }
         let mut registry: QueryBuilder<Sqlite> = QueryBuilder::new(match query.level {
@@ -86,7 +91,8 @@ impl SqliteStore {
             });
             registry.push_bind(site.as_str().to_owned());
         }
-        let registered: Vec<(String, Option<String>)> = registry.build_query_as().fetch_all(&mut *tx).await?;
+        let registered: Vec<(String, Option<String>)> =
+            registry.build_query_as().fetch_all(&mut *tx).await?;
 
         // The sums.
         let (totals_sql, defects_sql) = match &as_of {
@@ -136,7 +142,8 @@ impl SqliteStore {
             defects_sql.build_query_as().fetch_all(&mut *tx).await?;
         tx.rollback().await?;
 
-        let mut groups: BTreeMap<GroupKey, (u64, u64, BTreeMap<CategoryCode, u64>)> = BTreeMap::new();
+        let mut groups: BTreeMap<GroupKey, (u64, u64, BTreeMap<CategoryCode, u64>)> =
+            BTreeMap::new();
         for key in registered {
             groups.entry(key).or_default();
         }

@@ -1,0 +1,614 @@
+//! The report builder: aggregated counts per group in, [`Report`] out. Pure: no I/O,
+//! no clock; the same input always gives the same report (Monte Carlo p-values are
+//! seeded from the table).
+
+use std::collections::BTreeMap;
+
+use dispar_stats::StatsError;
+use dispar_stats::adjust::Adjustment;
+use dispar_stats::analysis::{self, Analysis, Dispersion, Method, Options, RateAnalysis, TestUsed};
+use dispar_stats::anom::AnomMethod;
+use dispar_stats::interval::{Interval, wilson};
+use dispar_stats::pairwise::{PairMethod, PairTest};
+use dispar_stats::table::Table;
+use dispar_stats::{NotTestable, NotTestableReason};
+
+use super::model::{
+    CategoryReport, CategoryTotal, CellRow, Ci, Excluded, Flag, Flagged, GroupRow, Margin,
+    NotTestableNote, OverdispersionNote, PairRow, ParametersEcho, Report, TableAnalysis,
+    TableReport, Test, Totals, ValidityNotes,
+};
+use super::params::{
+    AdjustChoice, DispersionChoice, Filters, LevelKind, MethodChoice, PairwiseChoice, Parameters,
+};
+use crate::period::Period;
+use crate::tabular::{CountTable, RateRow};
+
+/// With more groups than this, pairwise follow-ups are skipped (19,900 pairs at 200
+/// groups); the flagged contributors give the overview instead.
+pub const MAX_PAIRWISE_GROUPS: usize = 200;
+
+/// From this many units inspected (with Cramer's V below 0.1 and no minimum difference
+/// given), a significant result carries a caution that small differences become
+/// significant at large volumes.
+pub const LARGE_VOLUME: u64 = 100_000;
+
+/// Reason given for a group left out because it inspected nothing.
+pub const NO_UNITS: &str = "no units inspected";
+
+/// One group's aggregated counts over the period (a site, or a site's line).
+#[derive(Debug, Clone, PartialEq, Eq, Default)]
+pub struct GroupCounts {
+    /// Key shown as `name`: a site code, `site/line`, or a name from a file.
+    pub name: String,
+    /// Display name, if any.
+    pub label: Option<String>,
+    /// Units inspected.
+    pub inspected: u64,
+    /// Units defective (`<= inspected`; a group breaking this is excluded).
+    pub defective: u64,
+    /// Defects counted per category code (may be empty).
+    pub defects: BTreeMap<String, u64>,
+}
+
+/// What a report is about, besides its groups.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct ReportRequest {
+    /// The period (None for `dispar analyze`).
+    pub period: Option<Period>,
+    /// The level (None for `dispar analyze`).
+    pub level: Option<LevelKind>,
+    /// Filters applied to the data.
+    pub filters: Filters,
+    /// Statistical parameters.
+    pub parameters: Parameters,
+    /// The `as_of` timestamp the data were read at, echoed.
+    pub as_of: Option<String>,
+}
+
+/// The fixed cautions every report carries.
+pub const CAUTIONS: [&str; 4] = [
+    "A statistically significant difference is evidence that defect rates differ, not a root cause; find the cause before acting.",
+    "No significant difference is not proof that the rates are equal: small samples can hide real differences.",
+    "Every rate is shown with the units behind it and its interval; a rate from few units is uncertain.",
+    "Containment and release decisions follow the plant's quality procedures and the regulations that apply (for example for safety-critical products), not this report alone.",
+];
+
+fn options(p: &Parameters) -> Options {
+    Options {
+        alpha: p.alpha,
+        method: match p.method {
+            MethodChoice::Auto => Method::Auto,
+            MethodChoice::Pearson => Method::Pearson,
+            MethodChoice::G => Method::LikelihoodRatio,
+            MethodChoice::Exact => Method::Exact,
+        },
+        pairwise: match p.pairwise {
+            PairwiseChoice::Auto => PairMethod::Auto,
+            PairwiseChoice::Pearson => PairMethod::Pearson,
+            PairwiseChoice::PearsonYates => PairMethod::PearsonYates,
+            PairwiseChoice::Fisher => PairMethod::Fisher,
+        },
+        adjust: match p.adjust {
+            AdjustChoice::Holm => Adjustment::Holm,
+            AdjustChoice::Bonferroni => Adjustment::Bonferroni,
+            AdjustChoice::Hochberg => Adjustment::Hochberg,
+            AdjustChoice::Bh => Adjustment::BenjaminiHochberg,
+        },
+        resamples: p.resamples,
+        min_difference: p.min_difference,
+        dispersion: match p.overdispersion {
+            DispersionChoice::Report => Dispersion::Report,
+            DispersionChoice::Widen => Dispersion::Widen,
+        },
+        ..Options::default()
+    }
+}
+
+fn echo(p: &Parameters, as_of: Option<String>) -> ParametersEcho {
+    ParametersEcho {
+        alpha: p.alpha,
+        method: p.method,
+        pairwise: p.pairwise,
+        adjust: p.adjust,
+        resamples: p.resamples,
+        min_difference: p.min_difference,
+        overdispersion: p.overdispersion,
+        as_of,
+    }
+}
+
+fn ratio(num: u64, den: u64) -> f64 {
+    if den == 0 { 0.0 } else { num as f64 / den as f64 }
+}
+
+fn ci(i: Interval) -> Ci {
+    Ci {
+        lower: i.lower,
+        upper: i.upper,
+    }
+}
+
+/// Wilson interval, or the whole [0, 1] if it cannot be computed (n = 0, never here).
+fn wilson_ci(x: u64, n: u64, alpha: f64) -> Ci {
+    wilson(x, n, 1.0 - alpha).map_or(Ci { lower: 0.0, upper: 1.0 }, ci)
+}
+
+/// Formats a p-value for sentences.
+fn p_words(p: f64, log10_p: f64) -> String {
+    super::text::fmt_p(p, log10_p)
+}
+
+fn method_code(t: TestUsed) -> &'static str {
+    match t {
+        TestUsed::Pearson => "pearson",
+        TestUsed::LikelihoodRatio => "g",
+        TestUsed::FisherExact => "fisher",
+        TestUsed::MonteCarlo => "monte-carlo",
+    }
+}
+
+fn test_of(a: &Analysis, alpha: f64, between: &str, subject: &str) -> Test {
+    let p = p_words(a.p, a.log10_p);
+    let decision = if a.reject {
+        format!("The {subject} differ between the {between} (p = {p}, below alpha = {alpha}).")
+    } else {
+        format!(
+            "No statistically significant difference in {subject} between the {between} at alpha = {alpha} (p = {p}); this is not proof that they are equal."
+        )
+    };
+    Test {
+        method: method_code(a.test),
+        method_reason: a.reason.clone(),
+        statistic: a.statistic,
+        df: a.df,
+        p_value: a.p,
+        log10_p: a.log10_p,
+        p_std_error: a.monte_carlo.map(|m| m.std_error),
+        resamples: a.monte_carlo.map(|m| m.resamples),
+        critical_value: a.critical_value,
+        reject: a.reject,
+        decision,
+        cramers_v: a.cramers_v,
+        cramers_v_corrected: a.cramers_v_corrected,
+    }
+}
+
+fn validity_of(a: &Analysis) -> ValidityNotes {
+    let v = a.validity;
+    ValidityNotes {
+        min_expected: v.min_expected,
+        cells: v.cells,
+        cells_below_1: v.cells_below_1,
+        cells_below_5: v.cells_below_5,
+        share_below_5: v.share_below_5,
+        cochran_holds: v.holds,
+        reason: a.reason.clone(),
+    }
+}
+
+fn not_testable_words(e: &StatsError, between: &str, defective: u64, inspected: u64) -> String {
+    match e {
+        StatsError::NotTestable(NotTestable {
+            reason: NotTestableReason::TooFewRows { usable },
+            ..
+        }) => format!(
+            "only {usable} of the {between} {} counts; a comparison needs at least 2",
+            if *usable == 1 { "has" } else { "have" }
+        ),
+        StatsError::NotTestable(NotTestable {
+            reason: NotTestableReason::TooFewColumns { .. },
+            ..
+        }) => {
+            if defective == 0 {
+                format!("no defective units in any of the {between}: there is no difference to test")
+            } else if defective == inspected {
+                format!("every inspected unit is defective in all the {between}: there is no difference to test")
+            } else {
+                "only one outcome occurs: there is no difference to test".to_owned()
+            }
+        }
+        other => format!("the analysis could not be done: {other}"),
+    }
+}
+
+/// Builds the report of a rate comparison from per-group counts (the groups as they
+/// come; the order is kept).
+///
+/// Groups with nothing inspected are listed in `excluded` ("no units inspected"), as is
+/// any group with more defective than inspected units (which checked records cannot
+/// produce). Fewer than two remaining groups, or no variation in outcome, gives
+/// `test: null` with `not_testable.reason`; the per-group table is still filled.
+pub fn build_report(request: &ReportRequest, groups: &[GroupCounts]) -> Report {
+    let params = &request.parameters;
+    let alpha = params.alpha;
+    let between = match request.level {
+        Some(LevelKind::Site) => "sites",
+        Some(LevelKind::Line | LevelKind::AllLines) => "lines",
+        None => "groups",
+    };
+    let mut excluded = Vec::new();
+    let mut used: Vec<&GroupCounts> = Vec::with_capacity(groups.len());
+    for g in groups {
+        if g.inspected == 0 {
+            excluded.push(Excluded {
+                name: g.name.clone(),
+                reason: NO_UNITS.to_owned(),
+            });
+        } else if g.defective > g.inspected {
+            excluded.push(Excluded {
+                name: g.name.clone(),
+                reason: format!("defective ({}) exceeds inspected ({})", g.defective, g.inspected),
+            });
+        } else {
+            used.push(g);
+        }
+    }
+    let inspected: u64 = used.iter().map(|g| g.inspected).sum();
+    let defective: u64 = used.iter().map(|g| g.defective).sum();
+    let pooled = ratio(defective, inspected);
+    let totals = Totals {
+        groups: used.len(),
+        inspected,
+        defective,
+        rate: pooled,
+    };
+
+    let mut opts = options(params);
+    let mut cautions: Vec<String> = CAUTIONS.iter().map(|s| (*s).to_owned()).collect();
+    if used.len() > MAX_PAIRWISE_GROUPS {
+        opts.pairwise = PairMethod::Off;
+        cautions.push(format!(
+            "Pairwise comparisons are not listed for more than {MAX_PAIRWISE_GROUPS} {between}; the flagged contributors show which ones stand out."
+        ));
+    }
+    let pairs: Vec<(u64, u64)> = used.iter().map(|g| (g.inspected, g.defective)).collect();
+    let analysis = analysis::analyze_rates(&pairs, &opts);
+
+    let mut report = Report {
+        period: request.period,
+        dates: request.period.map(|p| p.dates()),
+        level: request.level,
+        filters: request.filters.clone(),
+        parameters: echo(params, request.as_of.clone()),
+        totals,
+        test: None,
+        validity: None,
+        groups: Vec::new(),
+        pairwise: Vec::new(),
+        flagged: Vec::new(),
+        overdispersion: None,
+        categories: categories(&used, &opts, between),
+        excluded,
+        not_testable: None,
+        cautions: Vec::new(),
+    };
+    match analysis {
+        Ok(ra) => fill_from_analysis(&mut report, &used, &ra, alpha, between, &mut cautions),
+        Err(e) => {
+            report.not_testable = Some(NotTestableNote {
+                reason: not_testable_words(&e, between, defective, inspected),
+            });
+            report.groups = used
+                .iter()
+                .map(|g| GroupRow {
+                    name: g.name.clone(),
+                    label: g.label.clone(),
+                    inspected: g.inspected,
+                    defective: g.defective,
+                    rate: ratio(g.defective, g.inspected),
+                    rate_ci: wilson_ci(g.defective, g.inspected, alpha),
+                    expected: g.inspected as f64 * pooled,
+                    contribution: None,
+                    adjusted_residual: None,
+                    flag: None,
+                    share_of_statistic: None,
+                })
+                .collect();
+        }
+    }
+    report.cautions = cautions;
+    report
+}
+
+fn fill_from_analysis(
+    report: &mut Report,
+    used: &[&GroupCounts],
+    ra: &RateAnalysis,
+    alpha: f64,
+    between: &str,
+    cautions: &mut Vec<String>,
+) {
+    let a = &ra.test;
+    report.test = Some(test_of(a, alpha, between, "defect rates"));
+    report.validity = Some(validity_of(a));
+    report.groups = ra
+        .groups
+        .iter()
+        .map(|s| {
+            let g = used[s.index];
+            GroupRow {
+                name: g.name.clone(),
+                label: g.label.clone(),
+                inspected: s.inspected,
+                defective: s.defective,
+                rate: s.rate,
+                rate_ci: ci(s.rate_ci),
+                expected: s.expected,
+                contribution: Some(s.contribution),
+                adjusted_residual: Some(s.adjusted_residual),
+                flag: s.flag.map(|f| match f {
+                    analysis::Flag::Above => Flag::Above,
+                    analysis::Flag::Below => Flag::Below,
+                }),
+                share_of_statistic: Some(s.share_of_x2),
+            }
+        })
+        .collect();
+    let mut flagged: Vec<Flagged> = report
+        .groups
+        .iter()
+        .filter_map(|g| {
+            Some(Flagged {
+                name: g.name.clone(),
+                flag: g.flag?,
+                rate: g.rate,
+                adjusted_residual: g.adjusted_residual?,
+                share_of_statistic: g.share_of_statistic?,
+            })
+        })
+        .collect();
+    flagged.sort_by(|x, y| {
+        y.share_of_statistic
+            .total_cmp(&x.share_of_statistic)
+            .then_with(|| x.name.cmp(&y.name))
+    });
+    report.flagged = flagged;
+    report.pairwise = ra
+        .pairwise
+        .iter()
+        .map(|p| PairRow {
+            a: used[p.a].name.clone(),
+            b: used[p.b].name.clone(),
+            method: match p.method {
+                PairTest::Pearson => "pearson",
+                PairTest::PearsonYates => "pearson-yates",
+                PairTest::Fisher => "fisher",
+            },
+            difference: p.difference,
+            difference_ci: ci(p.difference_ci),
+            statistic: p.statistic,
+            p_value: p.p,
+            log10_p: p.log10_p,
+            p_adjusted: p.p_adjusted,
+            reject: p.reject,
+            practically_different: p.practically_different,
+        })
+        .collect();
+    let o = ra.overdispersion;
+    let widened = ra.limit > ra.anom.h;
+    let note = if !o.applied {
+        format!(
+            "Overdispersion phi = {:.3} over {} {between}: no more variation between them than binomial sampling explains.",
+            o.phi, o.k
+        )
+    } else if widened {
+        format!(
+            "Overdispersion phi = {:.3} over {} {between}: they vary more than binomial sampling explains, so the flag limit was widened by sqrt(phi) = {:.3}.",
+            o.phi, o.k, o.scale
+        )
+    } else {
+        format!(
+            "Overdispersion phi = {:.3} over {} {between}: they vary more than binomial sampling explains; the flag limit was not widened (ask for overdispersion=widen to widen it by sqrt(phi) = {:.3}).",
+            o.phi, o.k, o.scale
+        )
+    };
+    report.overdispersion = Some(OverdispersionNote {
+        phi: o.phi,
+        present: o.applied,
+        applied: widened,
+        tau_squared: ra.tau_squared,
+        anom_critical: ra.anom.h,
+        anom_method: match ra.anom.method {
+            AnomMethod::Exact => "exact",
+            AnomMethod::SidakBound => "sidak-bound",
+        },
+        flag_limit: ra.limit,
+        note,
+    });
+    if let Some(mc) = a.monte_carlo {
+        cautions.push(format!(
+            "The p-value is a Monte Carlo estimate from {} random tables (standard error {:.4}); the same data always give the same value.",
+            mc.resamples, mc.std_error
+        ));
+    }
+    if a.reject
+        && report.totals.inspected >= LARGE_VOLUME
+        && a.cramers_v < 0.1
+        && report.parameters.min_difference.is_none()
+    {
+        cautions.push(format!(
+            "With {} units inspected, even small differences are statistically significant (Cramer's V = {:.3}); judge the rate differences and their intervals, or give a minimum difference of interest.",
+            report.totals.inspected, a.cramers_v
+        ));
+    }
+}
+
+/// Group x category association, when any category count exists.
+fn categories(used: &[&GroupCounts], opts: &Options, between: &str) -> Option<CategoryReport> {
+    let mut totals: BTreeMap<&str, u64> = BTreeMap::new();
+    for g in used {
+        for (c, n) in &g.defects {
+            *totals.entry(c.as_str()).or_insert(0) += n;
+        }
+    }
+    let all: u64 = totals.values().sum();
+    if all == 0 {
+        return None;
+    }
+    let names: Vec<&str> = totals.keys().copied().collect();
+    let rows: Vec<Vec<u64>> = used
+        .iter()
+        .map(|g| names.iter().map(|c| g.defects.get(*c).copied().unwrap_or(0)).collect())
+        .collect();
+    let row_names: Vec<String> = used.iter().map(|g| g.name.clone()).collect();
+    let col_names: Vec<String> = names.iter().map(|s| (*s).to_owned()).collect();
+    let association = table_analysis(&row_names, &col_names, &rows, opts, between, "defect mixes");
+    let mut cat_totals: Vec<CategoryTotal> = totals
+        .iter()
+        .map(|(c, n)| CategoryTotal {
+            category: (*c).to_owned(),
+            defects: *n,
+            share: ratio(*n, all),
+        })
+        .collect();
+    cat_totals.sort_by(|a, b| b.defects.cmp(&a.defects).then_with(|| a.category.cmp(&b.category)));
+    Some(CategoryReport {
+        totals: cat_totals,
+        association,
+    })
+}
+
+fn table_analysis(
+    row_names: &[String],
+    col_names: &[String],
+    rows: &[Vec<u64>],
+    opts: &Options,
+    between: &str,
+    subject: &str,
+) -> TableAnalysis {
+    let row_totals: Vec<u64> = rows.iter().map(|r| r.iter().sum()).collect();
+    let col_totals: Vec<u64> = (0..col_names.len())
+        .map(|c| rows.iter().map(|r| r.get(c).copied().unwrap_or(0)).sum())
+        .collect();
+    let total: u64 = row_totals.iter().sum();
+    let margin = |names: &[String], totals: &[u64], keep: &[usize]| -> Vec<Margin> {
+        keep.iter()
+            .map(|&i| Margin {
+                name: names[i].clone(),
+                total: totals[i],
+            })
+            .collect()
+    };
+    let mut excluded = Vec::new();
+    for (i, t) in row_totals.iter().enumerate() {
+        if *t == 0 {
+            excluded.push(Excluded {
+                name: row_names[i].clone(),
+                reason: "no counts in this row".to_owned(),
+            });
+        }
+    }
+    for (i, t) in col_totals.iter().enumerate() {
+        if *t == 0 {
+            excluded.push(Excluded {
+                name: col_names[i].clone(),
+                reason: "no counts in this column".to_owned(),
+            });
+        }
+    }
+    let kept_rows: Vec<usize> = (0..rows.len()).filter(|&i| row_totals[i] > 0).collect();
+    let kept_cols: Vec<usize> = (0..col_names.len()).filter(|&i| col_totals[i] > 0).collect();
+    let result = Table::from_rows(rows).and_then(|t| analysis::analyze(&t, opts));
+    match result {
+        Ok(a) => {
+            let ncols = a.kept_cols.len();
+            let cells = a
+                .cells
+                .iter()
+                .enumerate()
+                .map(|(i, c)| {
+                    let (r, k) = (a.kept_rows[i / ncols], a.kept_cols[i % ncols]);
+                    CellRow {
+                        row: row_names[r].clone(),
+                        column: col_names[k].clone(),
+                        observed: rows[r][k],
+                        expected: c.expected,
+                        contribution: c.contribution,
+                        adjusted_residual: c.adjusted_residual,
+                    }
+                })
+                .collect();
+            TableAnalysis {
+                rows: margin(row_names, &row_totals, &a.kept_rows),
+                columns: margin(col_names, &col_totals, &a.kept_cols),
+                total,
+                test: Some(test_of(&a, opts.alpha, between, subject)),
+                validity: Some(validity_of(&a)),
+                cells,
+                excluded,
+                not_testable: None,
+            }
+        }
+        Err(e) => {
+            let reason = match &e {
+                StatsError::NotTestable(NotTestable {
+                    reason: NotTestableReason::TooFewRows { usable },
+                    ..
+                }) => format!("only {usable} row(s) have counts; a test needs at least 2"),
+                StatsError::NotTestable(NotTestable {
+                    reason: NotTestableReason::TooFewColumns { usable },
+                    ..
+                }) => format!("only {usable} column(s) have counts; a test needs at least 2"),
+                StatsError::EmptyTable => "the table is empty".to_owned(),
+                other => format!("the analysis could not be done: {other}"),
+            };
+            TableAnalysis {
+                rows: margin(row_names, &row_totals, &kept_rows),
+                columns: margin(col_names, &col_totals, &kept_cols),
+                total,
+                test: None,
+                validity: None,
+                cells: Vec::new(),
+                excluded,
+                not_testable: Some(NotTestableNote { reason }),
+            }
+        }
+    }
+}
+
+/// `dispar analyze` on a rates file: every row is a group.
+pub fn analyze_rates(params: &Parameters, rows: &[RateRow]) -> Report {
+    let groups: Vec<GroupCounts> = rows
+        .iter()
+        .map(|r| GroupCounts {
+            name: r.name.clone(),
+            label: None,
+            inspected: r.inspected,
+            defective: r.defective,
+            defects: BTreeMap::new(),
+        })
+        .collect();
+    let request = ReportRequest {
+        parameters: params.clone(),
+        ..ReportRequest::default()
+    };
+    build_report(&request, &groups)
+}
+
+/// `dispar analyze --table` on a table of counts.
+pub fn analyze_table(params: &Parameters, table: &CountTable) -> TableReport {
+    let opts = options(params);
+    let t = table_analysis(
+        &table.row_names,
+        &table.col_names,
+        &table.counts,
+        &opts,
+        "groups",
+        "outcome mixes",
+    );
+    let mut cautions: Vec<String> = CAUTIONS.iter().map(|s| (*s).to_owned()).collect();
+    if let Some(se) = t.test.as_ref().and_then(|x| x.p_std_error) {
+        cautions.push(format!(
+            "The p-value is a Monte Carlo estimate (standard error {se:.4}); the same table always gives the same value."
+        ));
+    }
+    TableReport {
+        parameters: echo(params, None),
+        test: t.test.clone(),
+        validity: t.validity.clone(),
+        not_testable: t.not_testable.clone(),
+        table: t,
+        cautions,
+    }
+}

@@ -1,0 +1,24 @@
+//! Reports: parameters in, per-group counts in, a serializable [`Report`] out, and its
+//! plain-text layout.
+//!
+//! - [`params`]: the words callers use (`method=auto|pearson|g|exact`,
+//!   `pairwise=auto|pearson|pearson-yates|fisher`, `adjust=holm|bonferroni|hochberg|bh`,
+//!   `level=site|line|all-lines`, `overdispersion=report|widen`) and [`Parameters`];
+//! - [`build`]: the pure builder ([`build_report`], [`analyze_rates`], [`analyze_table`]);
+//! - [`model`]: the report's fields (what the JSON holds);
+//! - [`text`]: `Report::to_text()` and `TableReport::to_text()`.
+
+pub mod build;
+pub mod model;
+pub mod params;
+pub mod text;
+
+pub use build::{GroupCounts, ReportRequest, analyze_rates, analyze_table, build_report};
+pub use model::{Report, TableReport};
+pub use params::{
+    AdjustChoice, DispersionChoice, Filters, Level, LevelKind, MethodChoice, PairwiseChoice,
+    Parameters, RawParameters,
+};
+
+#[cfg(test)]
+mod tests;

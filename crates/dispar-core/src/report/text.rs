@@ -1,0 +1,353 @@
+//! Plain-ASCII terminal layout of reports, shared by `dispar analyze` and
+//! `dispar report`.
+
+use std::fmt::Write as _;
+
+use super::model::{
+    CategoryReport, Ci, GroupRow, PairRow, ParametersEcho, Report, TableAnalysis, TableReport, Test,
+    ValidityNotes,
+};
+use super::params::LevelKind;
+
+/// Pairs listed in full in text; with more, only those with a significant adjusted
+/// p-value are listed (the JSON always has every pair).
+pub const TEXT_MAX_PAIRS: usize = 30;
+
+/// A p-value for people: 4 decimals, scientific below 0.0001, and the power of ten
+/// when it underflows to 0.
+pub fn fmt_p(p: f64, log10_p: f64) -> String {
+    if p >= 0.0001 {
+        format!("{p:.4}")
+    } else if p > 0.0 {
+        format!("{p:.2e}")
+    } else {
+        format!("10^{log10_p:.1}")
+    }
+}
+
+/// A rate as a percentage with two decimals.
+pub fn fmt_rate(r: f64) -> String {
+    format!("{:.2}%", r * 100.0)
+}
+
+fn fmt_ci(ci: &Ci) -> String {
+    format!("[{}, {}]", fmt_rate(ci.lower), fmt_rate(ci.upper))
+}
+
+fn fmt_diff(d: f64) -> String {
+    format!("{:+.2} pp", d * 100.0)
+}
+
+fn fmt_diff_ci(ci: &Ci) -> String {
+    format!("[{:+.2}, {:+.2}]", ci.lower * 100.0, ci.upper * 100.0)
+}
+
+/// Lays out rows of cells in columns: the first column left-aligned, the others
+/// right-aligned, two spaces apart.
+fn table(out: &mut String, header: &[&str], rows: &[Vec<String>]) {
+    let cols = header.len();
+    let mut width: Vec<usize> = header.iter().map(|h| h.chars().count()).collect();
+    for r in rows {
+        for (i, c) in r.iter().enumerate().take(cols) {
+            width[i] = width[i].max(c.chars().count());
+        }
+    }
+    let line = |out: &mut String, cells: &mut dyn Iterator<Item = &str>| {
+        let mut s = String::new();
+        for (i, c) in cells.enumerate() {
+            let pad = width[i].saturating_sub(c.chars().count());
+            if i == 0 {
+                s.push_str(c);
+                s.push_str(&" ".repeat(pad));
+            } else {
+                s.push_str("  ");
+                s.push_str(&" ".repeat(pad));
+                s.push_str(c);
+            }
+        }
+        out.push_str(s.trim_end());
+        out.push('\n');
+    };
+    line(out, &mut header.iter().copied());
+    let rule: Vec<String> = width.iter().map(|w| "-".repeat(*w)).collect();
+    line(out, &mut rule.iter().map(String::as_str));
+    for r in rows {
+        line(out, &mut r.iter().map(String::as_str));
+    }
+}
+
+fn params_line(out: &mut String, p: &ParametersEcho) {
+    let _ = write!(
+        out,
+        "alpha {}, method {}, pairwise {}, adjust {}",
+        p.alpha, p.method, p.pairwise, p.adjust
+    );
+    if let Some(d) = p.min_difference {
+        let _ = write!(out, ", minimum difference {}", fmt_diff(d));
+    }
+    if let Some(a) = &p.as_of {
+        let _ = write!(out, ", data as of {a}");
+    }
+    out.push('\n');
+}
+
+fn test_lines(out: &mut String, t: &Test, v: Option<&ValidityNotes>, alpha: f64) {
+    let _ = writeln!(out, "Verdict: {}", t.decision);
+    let name = match t.method {
+        "g" => "G^2",
+        _ => "X^2",
+    };
+    let _ = write!(
+        out,
+        "Test: {} ({name} = {:.4}, df {}, p = {}",
+        method_words(t.method),
+        t.statistic,
+        t.df,
+        fmt_p(t.p_value, t.log10_p)
+    );
+    if let Some(se) = t.p_std_error {
+        let _ = write!(out, " +/- {se:.4} over {} resamples", t.resamples.unwrap_or(0));
+    }
+    let _ = writeln!(
+        out,
+        "; critical value {:.4} at alpha {alpha}; Cramer's V {:.4}, corrected {:.4})",
+        t.critical_value, t.cramers_v, t.cramers_v_corrected
+    );
+    if v.is_some() {
+        let _ = writeln!(out, "Method: {}", t.method_reason);
+    }
+}
+
+/// Plain words for a method code.
+pub fn method_words(m: &str) -> &'static str {
+    match m {
+        "pearson" => "Pearson chi-square",
+        "pearson-yates" => "Pearson chi-square with Yates' correction",
+        "g" => "likelihood-ratio G-test",
+        "fisher" => "Fisher's exact test",
+        "monte-carlo" => "Monte Carlo exact conditional test",
+        _ => "test",
+    }
+}
+
+fn group_rows(groups: &[GroupRow]) -> Vec<Vec<String>> {
+    groups
+        .iter()
+        .map(|g| {
+            vec![
+                match &g.label {
+                    Some(l) if *l != g.name => format!("{} ({l})", g.name),
+                    _ => g.name.clone(),
+                },
+                g.inspected.to_string(),
+                g.defective.to_string(),
+                fmt_rate(g.rate),
+                fmt_ci(&g.rate_ci),
+                format!("{:.2}", g.expected),
+                g.adjusted_residual.map_or(String::new(), |r| format!("{r:+.2}")),
+                g.flag.map_or(String::new(), |f| f.as_str().to_owned()),
+                g.share_of_statistic.map_or(String::new(), |x| format!("{:.1}%", x * 100.0)),
+            ]
+        })
+        .collect()
+}
+
+fn pair_rows(pairs: &[&PairRow], with_practical: bool) -> Vec<Vec<String>> {
+    pairs
+        .iter()
+        .map(|p| {
+            let mut row = vec![
+                format!("{} - {}", p.a, p.b),
+                p.method.to_owned(),
+                fmt_diff(p.difference),
+                fmt_diff_ci(&p.difference_ci),
+                fmt_p(p.p_value, p.log10_p),
+                fmt_p(p.p_adjusted, p.p_adjusted.max(f64::MIN_POSITIVE).log10()),
+                if p.reject { "yes" } else { "no" }.to_owned(),
+            ];
+            if with_practical {
+                row.push(match p.practically_different {
+                    Some(true) => "yes".to_owned(),
+                    Some(false) => "no".to_owned(),
+                    None => String::new(),
+                });
+            }
+            row
+        })
+        .collect()
+}
+
+fn analysis_lines(out: &mut String, t: &TableAnalysis, alpha: f64) {
+    match (&t.test, &t.not_testable) {
+        (Some(test), _) => test_lines(out, test, t.validity.as_ref(), alpha),
+        (None, Some(nt)) => {
+            let _ = writeln!(out, "Not testable: {}", nt.reason);
+        }
+        (None, None) => {}
+    }
+    let mut header: Vec<&str> = vec![""];
+    header.extend(t.columns.iter().map(|c| c.name.as_str()));
+    header.push("total");
+    let ncols = t.columns.len();
+    let rows: Vec<Vec<String>> = t
+        .rows
+        .iter()
+        .enumerate()
+        .map(|(r, m)| {
+            let mut row = vec![m.name.clone()];
+            for c in 0..ncols {
+                row.push(t.cells.get(r * ncols + c).map_or(String::new(), |cell| {
+                    format!("{} ({:+.1})", cell.observed, cell.adjusted_residual)
+                }));
+            }
+            row.push(m.total.to_string());
+            row
+        })
+        .collect();
+    out.push_str("Counts (adjusted residual):\n");
+    table(out, &header, &rows);
+    for e in &t.excluded {
+        let _ = writeln!(out, "Excluded: {} ({})", e.name, e.reason);
+    }
+}
+
+fn categories_lines(out: &mut String, c: &CategoryReport, alpha: f64) {
+    out.push_str("\nDefect categories (do the groups differ in their defect mix?)\n");
+    let rows: Vec<Vec<String>> = c
+        .totals
+        .iter()
+        .map(|t| vec![t.category.clone(), t.defects.to_string(), format!("{:.1}%", t.share * 100.0)])
+        .collect();
+    table(out, &["category", "defects", "share"], &rows);
+    analysis_lines(out, &c.association, alpha);
+}
+
+fn cautions_lines(out: &mut String, cautions: &[String]) {
+    out.push_str("\nCautions:\n");
+    for c in cautions {
+        let _ = writeln!(out, "- {c}");
+    }
+}
+
+impl Report {
+    /// The report as a readable plain-ASCII text for a terminal.
+    pub fn to_text(&self) -> String {
+        let mut out = String::new();
+        let what = match self.level {
+            Some(LevelKind::Site) => "site",
+            Some(LevelKind::Line) => "line",
+            Some(LevelKind::AllLines) => "line, all sites",
+            None => "group",
+        };
+        let _ = write!(out, "Defect rates by {what}");
+        if let Some(site) = &self.filters.site {
+            let _ = write!(out, ", site {site}");
+        }
+        if let Some(product) = &self.filters.product {
+            let _ = write!(out, ", product {product}");
+        }
+        if let (Some(p), Some(d)) = (&self.period, &self.dates) {
+            let _ = write!(
+                out,
+                ", {p} ({} .. {})",
+                crate::date::format_date(d.first()),
+                crate::date::format_date(d.last())
+            );
+        }
+        out.push('\n');
+        params_line(&mut out, &self.parameters);
+        out.push('\n');
+        let alpha = self.parameters.alpha;
+        match (&self.test, &self.not_testable) {
+            (Some(t), _) => test_lines(&mut out, t, self.validity.as_ref(), alpha),
+            (None, Some(nt)) => {
+                let _ = writeln!(out, "Not testable: {}", nt.reason);
+            }
+            (None, None) => {}
+        }
+        if !self.groups.is_empty() {
+            out.push('\n');
+            let conf = format!("{:.0}% CI", (1.0 - alpha) * 100.0);
+            let mut rows = group_rows(&self.groups);
+            rows.push(vec![
+                "total".to_owned(),
+                self.totals.inspected.to_string(),
+                self.totals.defective.to_string(),
+                fmt_rate(self.totals.rate),
+            ]);
+            table(
+                &mut out,
+                &["group", "inspected", "defective", "rate", &conf, "expected", "adj.res", "flag", "share X^2"],
+                &rows,
+            );
+        }
+        if let Some(o) = &self.overdispersion {
+            let _ = writeln!(out, "\nFlag limit: |adjusted residual| > {:.3}. {}", o.flag_limit, o.note);
+        }
+        if !self.flagged.is_empty() {
+            out.push_str("Flagged contributors:\n");
+            for f in &self.flagged {
+                let _ = writeln!(
+                    out,
+                    "- {}: {} the pooled rate ({}, adjusted residual {:+.2}, {:.1}% of X^2)",
+                    f.name,
+                    f.flag.as_str(),
+                    fmt_rate(f.rate),
+                    f.adjusted_residual,
+                    f.share_of_statistic * 100.0
+                );
+            }
+        } else if self.test.is_some() {
+            out.push_str("No group is flagged.\n");
+        }
+        if !self.pairwise.is_empty() {
+            let shown: Vec<&PairRow> = if self.pairwise.len() > TEXT_MAX_PAIRS {
+                self.pairwise.iter().filter(|p| p.reject).collect()
+            } else {
+                self.pairwise.iter().collect()
+            };
+            let _ = writeln!(
+                out,
+                "\nPairwise comparisons ({} pairs, p adjusted by {}){}",
+                self.pairwise.len(),
+                self.parameters.adjust,
+                if shown.len() < self.pairwise.len() {
+                    format!("; {} with a significant difference shown (all are in the JSON)", shown.len())
+                } else {
+                    String::new()
+                }
+            );
+            let practical = self.parameters.min_difference.is_some();
+            let mut header = vec!["pair", "method", "difference", "CI (pp)", "p", "p adjusted", "differ"];
+            if practical {
+                header.push("beyond min diff");
+            }
+            if !shown.is_empty() {
+                table(&mut out, &header, &pair_rows(&shown, practical));
+            }
+        }
+        if let Some(c) = &self.categories {
+            categories_lines(&mut out, c, alpha);
+        }
+        if !self.excluded.is_empty() {
+            out.push('\n');
+            for e in &self.excluded {
+                let _ = writeln!(out, "Excluded: {} ({})", e.name, e.reason);
+            }
+        }
+        cautions_lines(&mut out, &self.cautions);
+        out
+    }
+}
+
+impl TableReport {
+    /// The report as a readable plain-ASCII text for a terminal.
+    pub fn to_text(&self) -> String {
+        let mut out = String::from("Association of groups and outcomes (table of counts)\n");
+        params_line(&mut out, &self.parameters);
+        out.push('\n');
+        analysis_lines(&mut out, &self.table, self.parameters.alpha);
+        cautions_lines(&mut out, &self.cautions);
+        out
+    }
+}

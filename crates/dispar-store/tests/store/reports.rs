@@ -1,0 +1,254 @@
+use dispar_store::{AggregateQuery, GroupTotals, Level, StoreError};
+use time::Date;
+
+use crate::helpers::{D1, D2, D3, fresh, key, rec, rec_full, registry, site_code};
+
+fn query(level: Level, from: Date, to: Date) -> AggregateQuery {
+    AggregateQuery {
+        from,
+        to,
+        level,
+        site: None,
+        product: None,
+        as_of: None,
+    }
+}
+
+fn summary(groups: &[GroupTotals]) -> Vec<(String, Option<String>, u64, u64)> {
+    groups
+        .iter()
+        .map(|g| {
+            (
+                g.site.to_string(),
+                g.line.as_ref().map(ToString::to_string),
+                g.inspected,
+                g.defective,
+            )
+        })
+        .collect()
+}
+
+fn s(
+    site: &str,
+    line: Option<&str>,
+    inspected: u64,
+    defective: u64,
+) -> (String, Option<String>, u64, u64) {
+    (
+        site.to_owned(),
+        line.map(str::to_owned),
+        inspected,
+        defective,
+    )
+}
+
+/// S1 {L1, L2}, S2 {L1, L2}, S3 {L1, L2}; S3 has no data.
+async fn seeded() -> crate::helpers::TestDb {
+    let db = fresh().await;
+    registry(db.store.as_ref(), 3, 2).await;
+    let batch = vec![
+        rec_full(
+            "S1",
+            "L1",
+            None,
+            D1,
+            100,
+            10,
+            &[("scratch", 6), ("dent", 5)],
+            None,
+        ),
+        rec_full("S1", "L1", Some("P1"), D1, 50, 1, &[("scratch", 1)], None),
+        rec("S1", "L2", D2, 200, 4),
+        rec("S2", "L1", D1, 300, 3),
+        rec_full("S2", "L2", Some("P1"), D3, 400, 8, &[("dent", 8)], None),
+        // outside the range below
+        rec("S2", "L2", D3 + time::Duration::days(1), 999, 99),
+    ];
+    db.store.put_batch(&batch, None, None).await.expect("seed");
+    db
+}
+
+#[tokio::test]
+async fn sums_by_site_list_every_registered_site_including_empty_ones() {
+    let db = seeded().await;
+    let a = db
+        .store
+        .aggregate(&query(Level::Site, D1, D3))
+        .await
+        .expect("aggregate");
+    assert_eq!(
+        summary(&a.groups),
+        [
+            s("S1", None, 350, 15),
+            s("S2", None, 700, 11),
+            s("S3", None, 0, 0)
+        ]
+    );
+    let cats: Vec<(&str, u64)> = a.groups[0]
+        .defects
+        .iter()
+        .map(|(c, n)| (c.as_str(), *n))
+        .collect();
+    assert_eq!(cats, [("dent", 5), ("scratch", 7)]);
+    assert!(a.groups[2].defects.is_empty());
+    assert_eq!(
+        a.data_version,
+        db.store.data_version().await.expect("version")
+    );
+}
+
+#[tokio::test]
+async fn sums_by_line_of_one_site_and_by_all_lines() {
+    let db = seeded().await;
+    let a = db
+        .store
+        .aggregate(&query(
+            Level::Line {
+                site: site_code("S1"),
+            },
+            D1,
+            D3,
+        ))
+        .await
+        .expect("lines of S1");
+    assert_eq!(
+        summary(&a.groups),
+        [s("S1", Some("L1"), 150, 11), s("S1", Some("L2"), 200, 4)]
+    );
+
+    let a = db
+        .store
+        .aggregate(&query(Level::AllLines, D1, D3))
+        .await
+        .expect("all lines");
+    assert_eq!(
+        summary(&a.groups),
+        [
+            s("S1", Some("L1"), 150, 11),
+            s("S1", Some("L2"), 200, 4),
+            s("S2", Some("L1"), 300, 3),
+            s("S2", Some("L2"), 400, 8),
+            s("S3", Some("L1"), 0, 0),
+            s("S3", Some("L2"), 0, 0),
+        ]
+    );
+    let mut q = query(Level::AllLines, D1, D1);
+    q.site = Some(site_code("S2"));
+    let a = db.store.aggregate(&q).await.expect("all lines of S2 on D1");
+    assert_eq!(
+        summary(&a.groups),
+        [s("S2", Some("L1"), 300, 3), s("S2", Some("L2"), 0, 0)]
+    );
+}
+
+#[tokio::test]
+async fn the_product_filter_keeps_only_that_product() {
+    let db = seeded().await;
+    let mut q = query(Level::Site, D1, D3);
+    q.product = Some(dispar_core::code::ProductCode::parse("P1").expect("product"));
+    let a = db.store.aggregate(&q).await.expect("aggregate");
+    assert_eq!(
+        summary(&a.groups),
+        [
+            s("S1", None, 50, 1),
+            s("S2", None, 400, 8),
+            s("S3", None, 0, 0)
+        ]
+    );
+    assert_eq!(a.groups[1].defects.len(), 1);
+}
+
+#[tokio::test]
+async fn an_unknown_site_in_the_query_is_refused() {
+    let db = seeded().await;
+    let r = db
+        .store
+        .aggregate(&query(
+            Level::Line {
+                site: site_code("S9"),
+            },
+            D1,
+            D3,
+        ))
+        .await;
+    assert!(
+        matches!(r, Err(StoreError::UnknownSite { ref site }) if site == "S9"),
+        "{r:?}"
+    );
+    let mut q = query(Level::Site, D1, D3);
+    q.site = Some(site_code("S9"));
+    assert!(matches!(
+        db.store.aggregate(&q).await,
+        Err(StoreError::UnknownSite { .. })
+    ));
+}
+
+#[tokio::test]
+async fn as_of_before_a_correction_gives_the_old_sums() {
+    let db = seeded().await;
+    let before = db
+        .store
+        .aggregate(&query(Level::AllLines, D1, D3))
+        .await
+        .expect("before");
+    let h = db
+        .store
+        .record_history(&key("S1", "L1", None, D1))
+        .await
+        .expect("history");
+    let published_at = h[0].recorded_at;
+
+    // The correction: fewer defects and another category mix; and a new record.
+    db.store
+        .put_record(
+            &rec_full("S1", "L1", None, D1, 100, 4, &[("scratch", 4)], None),
+            None,
+        )
+        .await
+        .expect("correction");
+    db.store
+        .put_record(&rec("S3", "L1", D2, 80, 8), None)
+        .await
+        .expect("new");
+    let after = db
+        .store
+        .aggregate(&query(Level::AllLines, D1, D3))
+        .await
+        .expect("after");
+    assert_eq!(after.groups[0].defective, 5);
+    assert!(
+        after.data_version > before.data_version,
+        "writes move the data version"
+    );
+
+    let mut q = query(Level::AllLines, D1, D3);
+    q.as_of = Some(published_at);
+    let then = db.store.aggregate(&q).await.expect("as of");
+    assert_eq!(summary(&then.groups), summary(&before.groups));
+    assert_eq!(then.groups[0].defects, before.groups[0].defects);
+
+    // At every level, as_of now equals the current data.
+    for level in [
+        Level::Site,
+        Level::AllLines,
+        Level::Line {
+            site: site_code("S2"),
+        },
+    ] {
+        let mut q = query(level, D1, D3);
+        let current = db.store.aggregate(&q).await.expect("current");
+        q.as_of = Some(time::OffsetDateTime::now_utc());
+        let as_of_now = db.store.aggregate(&q).await.expect("as of now");
+        assert_eq!(current.groups, as_of_now.groups);
+    }
+    // Before anything was written, every group is empty.
+    let mut q = query(Level::Site, D1, D3);
+    q.as_of = Some(published_at - time::Duration::seconds(1));
+    let empty = db.store.aggregate(&q).await.expect("as of the past");
+    assert!(
+        empty
+            .groups
+            .iter()
+            .all(|g| g.inspected == 0 && g.defects.is_empty())
+    );
+}

@@ -1,0 +1,157 @@
+//! SQLite specifics: pragmas, plans, busy mapping, persistence, URL handling.
+
+use std::time::Duration;
+
+use dispar_store::{OpenOptions, SqliteStore, Store, StoreError};
+use sqlx::Connection;
+
+use crate::helpers::{D1, fresh, rec, registry};
+
+#[tokio::test]
+async fn connections_use_wal_full_sync_and_foreign_keys() {
+    let db = fresh().await;
+    let pool = db.sqlite.read_pool();
+    let mode: String = sqlx::query_scalar("PRAGMA journal_mode")
+        .fetch_one(pool)
+        .await
+        .expect("journal");
+    let sync: i64 = sqlx::query_scalar("PRAGMA synchronous")
+        .fetch_one(pool)
+        .await
+        .expect("sync");
+    let fk: i64 = sqlx::query_scalar("PRAGMA foreign_keys")
+        .fetch_one(pool)
+        .await
+        .expect("fk");
+    let ro: i64 = sqlx::query_scalar("PRAGMA query_only")
+        .fetch_one(pool)
+        .await
+        .expect("query_only");
+    assert_eq!((mode.as_str(), sync, fk, ro), ("wal", 2, 1, 1));
+}
+
+async fn plan(db: &crate::helpers::TestDb, sql: &str) -> String {
+    let rows: Vec<(i64, i64, i64, String)> =
+        sqlx::query_as(sqlx::AssertSqlSafe(format!("EXPLAIN QUERY PLAN {sql}")))
+            .fetch_all(db.sqlite.read_pool())
+            .await
+            .expect("plan");
+    rows.into_iter()
+        .map(|r| r.3)
+        .collect::<Vec<_>>()
+        .join(" | ")
+}
+
+#[tokio::test]
+async fn report_sums_read_a_covering_index_range() {
+    let db = fresh().await;
+    let by_site = plan(
+        &db,
+        "SELECT site, NULL, SUM(inspected), SUM(defective) FROM counts_current \
+         WHERE date BETWEEN '2026-03-01' AND '2026-03-31' GROUP BY site",
+    )
+    .await;
+    assert!(
+        by_site.contains("USING COVERING INDEX counts_current_by_date (date>? AND date<?)"),
+        "{by_site}"
+    );
+    let defects = plan(
+        &db,
+        "SELECT site, line, category, SUM(count) FROM current_defects \
+         WHERE date BETWEEN '2026-03-01' AND '2026-03-31' GROUP BY site, line, category",
+    )
+    .await;
+    assert!(
+        defects.contains("USING PRIMARY KEY (date>? AND date<?)"),
+        "{defects}"
+    );
+    let history = plan(
+        &db,
+        "SELECT id FROM count_revisions WHERE date = '2026-03-01' AND site = 'S1' AND line = 'L1' AND product = '' ORDER BY id",
+    )
+    .await;
+    assert!(
+        history
+            .contains("count_revisions_by_date_key (date=? AND site=? AND line=? AND product=?)"),
+        "{history}"
+    );
+    let as_of = plan(
+        &db,
+        "SELECT site, line, MAX(id) FROM count_revisions WHERE date BETWEEN '2026-03-01' AND '2026-03-31' \
+         AND recorded_at <= 'x' GROUP BY date, site, line, product",
+    )
+    .await;
+    assert!(
+        as_of.contains("count_revisions_by_date_key (date>? AND date<?)"),
+        "{as_of}"
+    );
+    assert!(
+        !as_of.contains("TEMP B-TREE"),
+        "grouping follows the index: {as_of}"
+    );
+}
+
+#[tokio::test]
+async fn a_write_blocked_by_another_writer_is_busy_and_retryable() {
+    let dir = tempfile::tempdir().expect("dir");
+    let path = dir.path().join("busy.db");
+    let mut options = OpenOptions::new(path.to_string_lossy());
+    options.busy_timeout = Duration::from_millis(100);
+    let store = SqliteStore::open(&options).await.expect("open");
+
+    let mut other = sqlx::sqlite::SqliteConnection::connect(&format!("sqlite:{}", path.display()))
+        .await
+        .expect("second connection");
+    sqlx::raw_sql("BEGIN IMMEDIATE")
+        .execute(&mut other)
+        .await
+        .expect("lock");
+    let err = store
+        .upsert_site(&crate::helpers::site("S1", "x"))
+        .await
+        .expect_err("must be busy");
+    assert!(matches!(err, StoreError::Busy), "{err:?}");
+    assert!(err.is_retryable());
+    sqlx::raw_sql("ROLLBACK")
+        .execute(&mut other)
+        .await
+        .expect("unlock");
+    store
+        .upsert_site(&crate::helpers::site("S1", "x"))
+        .await
+        .expect("free again");
+}
+
+#[tokio::test]
+async fn data_survive_closing_and_reopening_and_migrations_run_once() {
+    let db = fresh().await;
+    registry(db.store.as_ref(), 1, 1).await;
+    db.store
+        .put_record(&rec("S1", "L1", D1, 10, 1), None)
+        .await
+        .expect("write");
+    db.store.close().await;
+    let url = format!("sqlite:{}", db.path.display());
+    let again = dispar_store::open(&url).await.expect("reopen");
+    let stats = again.stats().await.expect("stats");
+    assert_eq!((stats.sites, stats.lines, stats.records), (1, 1, 1));
+    let migrations: i64 = sqlx::query_scalar("SELECT COUNT(*) FROM _sqlx_migrations")
+        .fetch_one(&sqlx::SqlitePool::connect(&url).await.expect("pool"))
+        .await
+        .expect("count");
+    assert_eq!(migrations, 1);
+}
+
+#[tokio::test]
+async fn postgres_and_memory_urls_are_refused_with_a_clear_message() {
+    for url in [
+        "postgres://dispar@localhost/dispar",
+        "sqlite::memory:",
+        "mysql://x/y",
+    ] {
+        match dispar_store::open(url).await {
+            Err(StoreError::Unsupported(msg)) => assert!(!msg.is_empty()),
+            other => panic!("{url}: expected Unsupported, got {other:?}"),
+        }
+    }
+}

@@ -1,0 +1,178 @@
+//! The dispar HTTP service: an axum [`app`] over a [`dispar_store::Store`], and
+//! [`serve`] with graceful shutdown.
+//!
+//! Modules follow the resources: [`sites`] (registry), [`counts`] (daily records and
+//! batches), [`auth`] (API keys), [`ops`] (probes, metrics, problem pages); [`error`]
+//! holds the one error type and [`extract`] the extractors that keep every refusal in
+//! the problem-details shape. The binary (`main.rs`) adds the command line.
+
+#![cfg_attr(test, allow(clippy::unwrap_used))]
+
+pub mod auth;
+pub mod counts;
+pub mod error;
+pub mod extract;
+pub mod ops;
+pub mod sites;
+pub mod state;
+pub mod telemetry;
+
+use std::future::Future;
+
+use axum::extract::{DefaultBodyLimit, MatchedPath};
+use axum::http::Request;
+use axum::middleware::{from_fn, from_fn_with_state};
+use axum::Router;
+use dispar_store::StoreError;
+use tokio::net::TcpListener;
+use tower::limit::GlobalConcurrencyLimitLayer;
+use tower_http::catch_panic::CatchPanicLayer;
+use tower_http::request_id::{MakeRequestUuid, PropagateRequestIdLayer, SetRequestIdLayer};
+use tower_http::trace::{DefaultOnResponse, TraceLayer};
+use tower_http::LatencyUnit;
+
+pub use crate::error::{ApiError, Result};
+pub use crate::state::{AppState, Limits};
+
+/// The whole HTTP application: `/v1` resources behind the concurrency limit, the
+/// operations routes, and the layers every request passes (outermost first):
+/// problem bodies for any error, request id, tracing, metrics, panic catching,
+/// timeout, body size limit.
+pub fn app(state: AppState) -> Router {
+    let limits = state.limits();
+    let v1 = Router::new()
+        .merge(sites::router())
+        .merge(counts::router())
+        .layer(GlobalConcurrencyLimitLayer::new(limits.max_concurrency));
+    let trace = TraceLayer::new_for_http()
+        .make_span_with(|request: &Request<_>| {
+            let request_id = request
+                .headers()
+                .get("x-request-id")
+                .and_then(|v| v.to_str().ok())
+                .unwrap_or("");
+            let route = request
+                .extensions()
+                .get::<MatchedPath>()
+                .map_or("unmatched", MatchedPath::as_str);
+            tracing::info_span!(
+                "request",
+                method = %request.method(),
+                path = %request.uri().path(),
+                route,
+                request_id,
+                key_id = tracing::field::Empty,
+            )
+        })
+        .on_response(
+            DefaultOnResponse::new()
+                .level(tracing::Level::INFO)
+                .latency_unit(LatencyUnit::Micros),
+        );
+    Router::new()
+        .merge(ops::router())
+        .merge(v1)
+        .fallback(ops::not_found)
+        .layer(DefaultBodyLimit::max(limits.max_body_bytes))
+        .layer(from_fn_with_state(state.clone(), ops::timeout))
+        .layer(CatchPanicLayer::new())
+        .layer(from_fn(ops::track_metrics))
+        .layer(PropagateRequestIdLayer::x_request_id())
+        .layer(trace)
+        .layer(SetRequestIdLayer::x_request_id(MakeRequestUuid))
+        .layer(from_fn(ops::problem_bodies))
+        .with_state(state)
+}
+
+/// Serves [`app`] on `listener` until `shutdown` completes, then stops accepting,
+/// lets in-flight requests finish (each bounded by the request timeout), marks the
+/// server not ready, and closes the store.
+pub async fn serve<F>(listener: TcpListener, state: AppState, shutdown: F) -> std::io::Result<()>
+where
+    F: Future<Output = ()> + Send + 'static,
+{
+    let router = app(state.clone());
+    let metrics = state.metrics().clone();
+    let upkeep = tokio::spawn(async move {
+        let mut tick = tokio::time::interval(std::time::Duration::from_secs(5));
+        loop {
+            tick.tick().await;
+            metrics.run_upkeep();
+        }
+    });
+    let flag = state.clone();
+    let result = axum::serve(listener, router)
+        .with_graceful_shutdown(async move {
+            shutdown.await;
+            flag.begin_shutdown();
+            tracing::info!("shutdown requested; finishing in-flight requests");
+        })
+        .await;
+    upkeep.abort();
+    state.store().close().await;
+    tracing::info!("server stopped");
+    result
+}
+
+/// Completes on SIGTERM or Ctrl-C (SIGINT).
+pub async fn shutdown_signal() {
+    let ctrl_c = async {
+        if let Err(e) = tokio::signal::ctrl_c().await {
+            tracing::error!(error = %e, "cannot listen for Ctrl-C");
+            std::future::pending::<()>().await;
+        }
+    };
+    #[cfg(unix)]
+    let terminate = async {
+        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
+            Ok(mut s) => {
+                s.recv().await;
+            }
+            Err(e) => {
+                tracing::error!(error = %e, "cannot listen for SIGTERM");
+                std::future::pending::<()>().await;
+            }
+        }
+    };
+    #[cfg(not(unix))]
+    let terminate = std::future::pending::<()>();
+    tokio::select! {
+        () = ctrl_c => tracing::info!("received Ctrl-C"),
+        () = terminate => tracing::info!("received SIGTERM"),
+    }
+}
+
+/// Maps a store error to an API error where no endpoint-specific mapping applies.
+pub fn store_error(e: StoreError) -> ApiError {
+    use crate::error::{ErrorItem, ProblemKind};
+    match e {
+        StoreError::NotFound { what, key } => ApiError::not_found(format!("There is no {what} {key}.")),
+        StoreError::UnknownSite { site } => ApiError::validation(
+            format!("Site {site} is not registered."),
+            vec![ErrorItem::parameter("site", "unknown_site", format!("site {site} is not registered"))],
+        ),
+        StoreError::Rejected(_) => counts::record_errors(e, &counts::Place::Url),
+        StoreError::IdempotencyMismatch => ApiError::new(
+            ProblemKind::IdempotencyMismatch,
+            "This Idempotency-Key was already used by this API key with a different body; nothing was written.",
+        )
+        .with_error(ErrorItem::header(
+            "idempotency-key",
+            "reused",
+            "use a new key for a new request",
+        )),
+        StoreError::BadCursor => ApiError::validation(
+            "The cursor is not one this server gave out.",
+            vec![ErrorItem::parameter("cursor", "invalid_cursor", "use next_cursor unchanged")],
+        ),
+        StoreError::Constraint { name } => {
+            tracing::warn!(constraint = %name, "a database constraint refused a value the domain accepted");
+            ApiError::validation(
+                "A value was refused by the database.",
+                vec![ErrorItem::general("constraint", format!("constraint {name} refused the value"))],
+            )
+        }
+        StoreError::Busy => ApiError::unavailable("The database is busy; retry shortly.", 1),
+        e @ (StoreError::Unsupported(_) | StoreError::Internal(_)) => ApiError::internal(e),
+    }
+}
