@@ -25,10 +25,10 @@
 use std::io::{BufRead, BufReader};
 use std::path::{Path, PathBuf};
 use std::process::{Child, Command, ExitStatus, Output, Stdio};
-use std::sync::{mpsc, OnceLock};
+use std::sync::{OnceLock, mpsc};
 use std::time::{Duration, Instant};
 
-pub use serde_json::{json, Value};
+pub use serde_json::{Value, json};
 
 /// The `dispar` binary, built on first use (see the crate docs).
 pub fn dispar_bin() -> &'static Path {
@@ -38,7 +38,9 @@ pub fn dispar_bin() -> &'static Path {
             return PathBuf::from(path);
         }
         let exe = std::env::current_exe().expect("the test binary knows its path");
-        let deps = exe.parent().expect("test binary in <target>/<profile>/deps");
+        let deps = exe
+            .parent()
+            .expect("test binary in <target>/<profile>/deps");
         let profile_dir = deps.parent().expect("<target>/<profile>");
         let target_dir = profile_dir.parent().expect("<target>");
         let profile = profile_dir
@@ -63,7 +65,10 @@ pub fn dispar_bin() -> &'static Path {
             }
         }
         let status = cmd.status().expect("cargo runs");
-        assert!(status.success(), "building the dispar binary failed: {status}");
+        assert!(
+            status.success(),
+            "building the dispar binary failed: {status}"
+        );
         let bin = profile_dir.join(format!("dispar{}", std::env::consts::EXE_SUFFIX));
         assert!(bin.exists(), "no binary at {}", bin.display());
         bin
@@ -192,7 +197,10 @@ impl Server {
         );
         let token = String::from_utf8(out.stdout).expect("utf-8 token");
         let token = token.trim().to_owned();
-        assert!(token.starts_with("dsp_") && !token.contains('\n'), "token: {token:?}");
+        assert!(
+            token.starts_with("dsp_") && !token.contains('\n'),
+            "token: {token:?}"
+        );
         token
     }
 
@@ -226,7 +234,10 @@ impl Server {
                 .header("content-type", "application/json")
                 .body(serde_json::to_vec(&v).unwrap()),
             Body::Csv(text) => req.header("content-type", "text/csv").body(text),
-            Body::Raw { content_type, bytes } => {
+            Body::Raw {
+                content_type,
+                bytes,
+            } => {
                 let req = match content_type {
                     Some(ct) => req.header("content-type", ct),
                     None => req,
@@ -270,8 +281,15 @@ impl Server {
             for r in v["records"].as_array().expect("records") {
                 out.push(format!(
                     "{}/{}/{}/{} rev {} = {} {} {} {}",
-                    r["site"], r["line"], r["date"], r["product"], r["revision_id"], r["inspected"],
-                    r["defective"], r["defects"], r["revision"]
+                    r["site"],
+                    r["line"],
+                    r["date"],
+                    r["product"],
+                    r["revision_id"],
+                    r["inspected"],
+                    r["defective"],
+                    r["defects"],
+                    r["revision"]
                 ));
             }
             match v["next_cursor"].as_str() {
@@ -339,7 +357,11 @@ impl Drop for Server {
             let _ = child.wait();
         }
         if std::thread::panicking() {
-            eprintln!("---- dispar server log ({}) ----\n{}", self.base, self.log());
+            eprintln!(
+                "---- dispar server log ({}) ----\n{}",
+                self.base,
+                self.log()
+            );
         }
     }
 }
@@ -375,8 +397,7 @@ pub struct Reply {
 impl Reply {
     /// The body as JSON (panics with the body if it is not).
     pub fn json(&self) -> Value {
-        serde_json::from_str(&self.text)
-            .unwrap_or_else(|e| panic!("not JSON ({e}): {}", self.text))
+        serde_json::from_str(&self.text).unwrap_or_else(|e| panic!("not JSON ({e}): {}", self.text))
     }
 
     /// A header as text.

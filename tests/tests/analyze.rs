@@ -14,7 +14,8 @@ use std::process::{Command, Output, Stdio};
 
 use dispar_system_tests::{Value, dispar_bin};
 
-const NIST_LOTS: &str = "group,inspected,defective\nlot1,300,36\nlot2,300,46\nlot3,300,42\nlot4,300,63\nlot5,300,38\n";
+const NIST_LOTS: &str =
+    "group,inspected,defective\nlot1,300,36\nlot2,300,46\nlot3,300,42\nlot4,300,63\nlot5,300,38\n";
 
 /// Runs `dispar analyze ARGS` with `stdin` as standard input.
 fn analyze(args: &[&str], stdin: &str) -> Output {
@@ -53,7 +54,9 @@ fn json_of(out: &Output) -> Value {
 }
 
 fn close(actual: &Value, expected: f64, tolerance: f64, what: &str) {
-    let a = actual.as_f64().unwrap_or_else(|| panic!("{what} is not a number: {actual}"));
+    let a = actual
+        .as_f64()
+        .unwrap_or_else(|| panic!("{what} is not a number: {actual}"));
     assert!(
         (a - expected).abs() <= tolerance,
         "{what}: got {a}, expected {expected} +/- {tolerance}"
@@ -68,8 +71,18 @@ fn the_nist_five_lot_example_is_rejected_with_lot_4_flagged_above() {
     close(&t["statistic"], 12.130_718_954_248_366, 1e-9, "X^2");
     assert_eq!(t["df"], 4);
     close(&t["p_value"], 0.016_405_221_988_903_654, 1e-12, "p");
-    close(&t["log10_p"], 0.016_405_221_988_903_654_f64.log10(), 1e-10, "log10 p");
-    close(&t["critical_value"], 9.488, 5e-4, "critical value (NIST table 1.3.6.7.4)");
+    close(
+        &t["log10_p"],
+        0.016_405_221_988_903_654_f64.log10(),
+        1e-10,
+        "log10 p",
+    );
+    close(
+        &t["critical_value"],
+        9.488,
+        5e-4,
+        "critical value (NIST table 1.3.6.7.4)",
+    );
     assert_eq!(t["reject"], true);
     assert!(t["cramers_v"].is_number());
     assert!(v["validity"]["min_expected"].is_number());
@@ -85,12 +98,25 @@ fn the_nist_five_lot_example_is_rejected_with_lot_4_flagged_above() {
     close(&lot4["rate"], 0.21, 1e-15, "rate of lot 4");
     close(&lot4["expected"], 45.0, 1e-12, "expected defective");
     // 324/45 + 324/255: both cells of the lot.
-    close(&lot4["contribution"], 324.0 / 45.0 + 324.0 / 255.0, 1e-12, "contribution");
+    close(
+        &lot4["contribution"],
+        324.0 / 45.0 + 324.0 / 255.0,
+        1e-12,
+        "contribution",
+    );
     // Haberman: 18 / sqrt(45 (1 - 300/1500) (1 - 225/1500)).
-    close(&lot4["adjusted_residual"], 18.0 / (45.0_f64 * 0.8 * 0.85).sqrt(), 1e-12, "adjusted residual");
+    close(
+        &lot4["adjusted_residual"],
+        18.0 / (45.0_f64 * 0.8 * 0.85).sqrt(),
+        1e-12,
+        "adjusted residual",
+    );
     assert_eq!(lot4["flag"], "above");
     let ci = &lot4["rate_ci"];
-    assert!(ci["lower"].as_f64().unwrap() < 0.21 && ci["upper"].as_f64().unwrap() > 0.21, "{ci}");
+    assert!(
+        ci["lower"].as_f64().unwrap() < 0.21 && ci["upper"].as_f64().unwrap() > 0.21,
+        "{ci}"
+    );
     for g in &groups[..3] {
         assert_eq!(g["flag"], Value::Null, "{g}");
     }
@@ -98,10 +124,22 @@ fn the_nist_five_lot_example_is_rejected_with_lot_4_flagged_above() {
     let pairs = v["pairwise"].as_array().expect("pairwise");
     assert_eq!(pairs.len(), 10, "5 lots give 10 pairs");
     for p in pairs {
-        for field in ["a", "b", "method", "difference", "difference_ci", "p_value", "p_adjusted", "reject"] {
+        for field in [
+            "a",
+            "b",
+            "method",
+            "difference",
+            "difference_ci",
+            "p_value",
+            "p_adjusted",
+            "reject",
+        ] {
             assert!(!p[field].is_null(), "pair lacks {field}: {p}");
         }
-        assert!(p["p_adjusted"].as_f64().unwrap() >= p["p_value"].as_f64().unwrap(), "{p}");
+        assert!(
+            p["p_adjusted"].as_f64().unwrap() >= p["p_value"].as_f64().unwrap(),
+            "{p}"
+        );
     }
     assert_eq!(v["flagged"][0]["name"], "lot4");
     assert!(v["cautions"].as_array().is_some_and(|c| !c.is_empty()));
@@ -110,7 +148,11 @@ fn the_nist_five_lot_example_is_rejected_with_lot_4_flagged_above() {
 #[test]
 fn a_file_argument_and_the_text_format_work() {
     let out = analyze_file(NIST_LOTS.as_bytes(), &[]);
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let text = String::from_utf8(out.stdout).expect("utf-8 text");
     assert!(text.contains("Verdict:"), "{text}");
     assert!(text.contains("lot4"), "{text}");
@@ -121,17 +163,28 @@ fn a_file_argument_and_the_text_format_work() {
 fn a_table_of_raw_counts_is_tested_for_association() {
     // Fisher's tea-tasting table [[3,1],[1,3]]: Cochran's rule fails (expected 2), so
     // the exact test runs; two-sided p = 0.4857 (Fisher 1935, The Design of Experiments).
-    let out = analyze(&["--table", "--format", "json"], "guess,milk first,tea first\nmilk first,3,1\ntea first,1,3\n");
+    let out = analyze(
+        &["--table", "--format", "json"],
+        "guess,milk first,tea first\nmilk first,3,1\ntea first,1,3\n",
+    );
     let v = json_of(&out);
     assert_eq!(v["test"]["method"], "fisher", "{v}");
-    close(&v["test"]["p_value"], 17.0 / 35.0, 1e-12, "Fisher two-sided p");
+    close(
+        &v["test"]["p_value"],
+        17.0 / 35.0,
+        1e-12,
+        "Fisher two-sided p",
+    );
     assert_eq!(v["test"]["reject"], false);
     assert_eq!(v["table"]["cells"].as_array().map(Vec::len), Some(4));
 }
 
 #[test]
 fn a_single_group_is_not_testable_and_a_group_without_units_is_excluded() {
-    let v = json_of(&analyze(&["--format", "json"], "group,inspected,defective\nA,100,3\nB,0,0\n"));
+    let v = json_of(&analyze(
+        &["--format", "json"],
+        "group,inspected,defective\nA,100,3\nB,0,0\n",
+    ));
     assert_eq!(v["test"], Value::Null);
     assert!(v["not_testable"]["reason"].is_string(), "{v}");
     assert_eq!(v["excluded"][0]["name"], "B");
@@ -142,25 +195,82 @@ fn a_single_group_is_not_testable_and_a_group_without_units_is_excluded() {
 #[test]
 fn bad_input_exits_2_naming_the_line_and_field() {
     let cases: [(&str, &[&str], &str, &[&str]); 11] = [
-        ("negative number", &[], "group,inspected,defective\nA,100,-1\n", &["line 2", "defective", "negative"]),
-        ("defective > inspected", &[], "group,inspected,defective\nA,10,11\n", &["line 2", "defective", "exceeds inspected"]),
-        ("ragged row", &[], "group,inspected,defective\nA,10,1\nB,10\n", &["line 3", "2 fields", "header has 3"]),
-        ("not a number", &[], "group,inspected,defective\nA,ten,1\n", &["line 2", "inspected", "not a number"]),
-        ("fraction", &[], "group,inspected,defective\nA,10.5,1\n", &["line 2", "inspected", "whole number"]),
-        ("duplicate group", &[], "group,inspected,defective\nA,10,1\nB,10,1\nA,5,1\n", &["line 4", "group", "line 2"]),
+        (
+            "negative number",
+            &[],
+            "group,inspected,defective\nA,100,-1\n",
+            &["line 2", "defective", "negative"],
+        ),
+        (
+            "defective > inspected",
+            &[],
+            "group,inspected,defective\nA,10,11\n",
+            &["line 2", "defective", "exceeds inspected"],
+        ),
+        (
+            "ragged row",
+            &[],
+            "group,inspected,defective\nA,10,1\nB,10\n",
+            &["line 3", "2 fields", "header has 3"],
+        ),
+        (
+            "not a number",
+            &[],
+            "group,inspected,defective\nA,ten,1\n",
+            &["line 2", "inspected", "not a number"],
+        ),
+        (
+            "fraction",
+            &[],
+            "group,inspected,defective\nA,10.5,1\n",
+            &["line 2", "inspected", "whole number"],
+        ),
+        (
+            "duplicate group",
+            &[],
+            "group,inspected,defective\nA,10,1\nB,10,1\nA,5,1\n",
+            &["line 4", "group", "line 2"],
+        ),
         ("empty file", &[], "", &["line 1", "empty"]),
-        ("header only", &[], "group,inspected,defective\n", &["line 2", "no group rows"]),
-        ("missing column", &[], "group,inspected\nA,10\n", &["line 1", "defective"]),
-        ("table with a negative", &["--table"], "group,a,b\nA,1,-2\n", &["line 2", "\"b\"", "negative"]),
-        ("table with a duplicate outcome", &["--table"], "group,a,a\nA,1,2\n", &["line 1", "\"a\"", "twice"]),
+        (
+            "header only",
+            &[],
+            "group,inspected,defective\n",
+            &["line 2", "no group rows"],
+        ),
+        (
+            "missing column",
+            &[],
+            "group,inspected\nA,10\n",
+            &["line 1", "defective"],
+        ),
+        (
+            "table with a negative",
+            &["--table"],
+            "group,a,b\nA,1,-2\n",
+            &["line 2", "\"b\"", "negative"],
+        ),
+        (
+            "table with a duplicate outcome",
+            &["--table"],
+            "group,a,a\nA,1,2\n",
+            &["line 1", "\"a\"", "twice"],
+        ),
     ];
     for (what, args, input, needles) in cases {
         let out = analyze(args, input);
         let stderr = String::from_utf8_lossy(&out.stderr);
-        assert_eq!(out.status.code(), Some(2), "{what}: exit code; stderr: {stderr}");
+        assert_eq!(
+            out.status.code(),
+            Some(2),
+            "{what}: exit code; stderr: {stderr}"
+        );
         assert!(out.stdout.is_empty(), "{what}: nothing on stdout");
         for n in needles {
-            assert!(stderr.contains(n), "{what}: stderr should mention {n:?}: {stderr}");
+            assert!(
+                stderr.contains(n),
+                "{what}: stderr should mention {n:?}: {stderr}"
+            );
         }
     }
 }
@@ -175,8 +285,18 @@ fn invalid_utf8_a_missing_file_and_bad_options_exit_2() {
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("cannot read"));
 
-    for args in [&["--alpha", "1.5"][..], &["--method", "chi"], &["--resamples", "5"], &["--min-difference", "-1"]] {
+    for args in [
+        &["--alpha", "1.5"][..],
+        &["--method", "chi"],
+        &["--resamples", "5"],
+        &["--min-difference", "-1"],
+    ] {
         let out = analyze(args, NIST_LOTS);
-        assert_eq!(out.status.code(), Some(2), "{args:?}: {}", String::from_utf8_lossy(&out.stderr));
+        assert_eq!(
+            out.status.code(),
+            Some(2),
+            "{args:?}: {}",
+            String::from_utf8_lossy(&out.stderr)
+        );
     }
 }

@@ -1,7 +1,9 @@
 //! API keys: the command line, 401 with `WWW-Authenticate`, roles, and the
 //! cross-plant write attempt.
 
-use dispar_system_tests::{json, run_cli, Body, Server};
+#![allow(clippy::unwrap_used)] // tests: a panic is the failure report
+
+use dispar_system_tests::{Body, Server, json, run_cli};
 
 #[test]
 fn a_request_without_a_valid_key_is_401_with_a_bearer_challenge() {
@@ -25,19 +27,35 @@ fn a_request_without_a_valid_key_is_401_with_a_bearer_challenge() {
         ("wrong secret", Some(flipped), None),
     ];
     for (name, token, raw_header) in cases {
-        let headers: Vec<(&str, &str)> = raw_header.map(|h| ("authorization", h)).into_iter().collect();
+        let headers: Vec<(&str, &str)> = raw_header
+            .map(|h| ("authorization", h))
+            .into_iter()
+            .collect();
         let r = s.request_with("GET", "/v1/sites", token.as_deref(), Body::None, &headers);
         r.problem(401, "unauthorized");
-        let challenge = r.header("www-authenticate").unwrap_or_else(|| panic!("{name}: no challenge"));
-        assert!(challenge.starts_with("Bearer realm=\"dispar\""), "{name}: {challenge}");
+        let challenge = r
+            .header("www-authenticate")
+            .unwrap_or_else(|| panic!("{name}: no challenge"));
+        assert!(
+            challenge.starts_with("Bearer realm=\"dispar\""),
+            "{name}: {challenge}"
+        );
         if name == "no header" {
             assert!(!challenge.contains("error="), "{name}: {challenge}");
         } else {
-            assert!(challenge.contains("error=\"invalid_token\""), "{name}: {challenge}");
+            assert!(
+                challenge.contains("error=\"invalid_token\""),
+                "{name}: {challenge}"
+            );
         }
     }
     // Writes without a key are refused before the body is looked at.
-    let r = s.request("PUT", "/v1/sites/S1/lines/L1/days/2026-03-02", None, Body::Json(json!({"inspected": 1, "defective": 0})));
+    let r = s.request(
+        "PUT",
+        "/v1/sites/S1/lines/L1/days/2026-03-02",
+        None,
+        Body::Json(json!({"inspected": 1, "defective": 0})),
+    );
     r.problem(401, "unauthorized");
     assert!(s.snapshot().is_empty());
 }
@@ -47,25 +65,41 @@ fn keys_are_listed_without_secrets_and_revoked_keys_are_refused() {
     let s = Server::start();
     let read = s.key("read", &[]);
     let ingest = s.key("ingest", &["S1", "S2"]);
-    assert_eq!(s.request("GET", "/v1/sites", Some(&read), Body::None).status, 200);
+    assert_eq!(
+        s.request("GET", "/v1/sites", Some(&read), Body::None)
+            .status,
+        200
+    );
 
     let list = s.cli(&["keys", "list"]);
     assert!(list.status.success());
     let text = String::from_utf8(list.stdout).unwrap();
-    assert!(text.contains("ingest") && text.contains("S1,S2") && text.contains("read"), "{text}");
+    assert!(
+        text.contains("ingest") && text.contains("S1,S2") && text.contains("read"),
+        "{text}"
+    );
     let secret = read.rsplit('_').next().unwrap();
     assert!(!text.contains(secret), "keys list never shows a secret");
     assert!(!text.contains("revoked"), "{text}");
 
     let id = read.split('_').nth(1).unwrap();
     let revoke = s.cli(&["keys", "revoke", id]);
-    assert!(revoke.status.success(), "{}", String::from_utf8_lossy(&revoke.stderr));
+    assert!(
+        revoke.status.success(),
+        "{}",
+        String::from_utf8_lossy(&revoke.stderr)
+    );
     let r = s.request("GET", "/v1/sites", Some(&read), Body::None);
     let p = r.problem(401, "unauthorized");
     assert!(p["detail"].as_str().unwrap().contains("revoked"), "{p}");
     let text = String::from_utf8(s.cli(&["keys", "list"]).stdout).unwrap();
     assert!(text.contains("revoked"), "{text}");
-    assert_eq!(s.request("GET", "/v1/sites/S1", Some(&ingest), Body::None).status, 404, "other keys still work");
+    assert_eq!(
+        s.request("GET", "/v1/sites/S1", Some(&ingest), Body::None)
+            .status,
+        404,
+        "other keys still work"
+    );
 
     let missing = s.cli(&["keys", "revoke", "999"]);
     assert!(!missing.status.success());
@@ -76,14 +110,37 @@ fn keys_are_listed_without_secrets_and_revoked_keys_are_refused() {
 fn keys_create_prints_only_the_token_on_stdout_and_checks_its_arguments() {
     let dir = tempfile::tempdir().unwrap();
     let db = format!("sqlite:{}", dir.path().join("k.db").display());
-    let out = run_cli(&["keys", "create", "--role", "ingest", "--site", "S1", "--site", "S2", "--label", "line PLC", "--database", &db]);
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let out = run_cli(&[
+        "keys",
+        "create",
+        "--role",
+        "ingest",
+        "--site",
+        "S1",
+        "--site",
+        "S2",
+        "--label",
+        "line PLC",
+        "--database",
+        &db,
+    ]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let stdout = String::from_utf8(out.stdout).unwrap();
     let lines: Vec<&str> = stdout.lines().collect();
     assert_eq!(lines.len(), 1, "{stdout:?}");
-    assert!(lines[0].starts_with("dsp_1_") && lines[0].len() == "dsp_1_".len() + 64, "{stdout:?}");
+    assert!(
+        lines[0].starts_with("dsp_1_") && lines[0].len() == "dsp_1_".len() + 64,
+        "{stdout:?}"
+    );
     let stderr = String::from_utf8(out.stderr).unwrap();
-    assert!(stderr.contains("ingest") && stderr.contains("S1, S2") && stderr.contains("line PLC"), "{stderr}");
+    assert!(
+        stderr.contains("ingest") && stderr.contains("S1, S2") && stderr.contains("line PLC"),
+        "{stderr}"
+    );
 
     for (args, needle) in [
         (vec!["--role", "ingest"], "at least one --site"),
@@ -107,8 +164,16 @@ fn each_role_may_do_what_its_table_says() {
     let s = Server::start();
     s.site("S1", &["L1"]);
     s.site("S2", &["L1"]);
-    s.as_admin("PUT", "/v1/sites/S1/lines/L1/days/2026-03-01", Body::Json(json!({"inspected": 1, "defective": 0})));
-    s.as_admin("PUT", "/v1/sites/S2/lines/L1/days/2026-03-01", Body::Json(json!({"inspected": 1, "defective": 0})));
+    s.as_admin(
+        "PUT",
+        "/v1/sites/S1/lines/L1/days/2026-03-01",
+        Body::Json(json!({"inspected": 1, "defective": 0})),
+    );
+    s.as_admin(
+        "PUT",
+        "/v1/sites/S2/lines/L1/days/2026-03-01",
+        Body::Json(json!({"inspected": 1, "defective": 0})),
+    );
     let admin = s.admin().to_owned();
     let read = s.key("read", &[]);
     let ingest = s.key("ingest", &["S1"]);
@@ -119,24 +184,68 @@ fn each_role_may_do_what_its_table_says() {
         ("GET", "/v1/sites", None, [200, 200, 403]),
         ("GET", "/v1/sites/S1", None, [200, 200, 200]),
         ("GET", "/v1/sites/S2", None, [200, 200, 403]),
-        ("PUT", "/v1/sites/S3", Some(json!({"name": "Three"})), [201, 403, 403]),
-        ("PUT", "/v1/sites/S1/lines/L5", Some(json!({})), [201, 403, 403]),
-        ("PUT", "/v1/sites/S1/lines/L1/days/2026-03-02", Some(day.clone()), [201, 403, 200]),
-        ("PUT", "/v1/sites/S2/lines/L1/days/2026-03-02", Some(day.clone()), [201, 403, 403]),
+        (
+            "PUT",
+            "/v1/sites/S3",
+            Some(json!({"name": "Three"})),
+            [201, 403, 403],
+        ),
+        (
+            "PUT",
+            "/v1/sites/S1/lines/L5",
+            Some(json!({})),
+            [201, 403, 403],
+        ),
+        (
+            "PUT",
+            "/v1/sites/S1/lines/L1/days/2026-03-02",
+            Some(day.clone()),
+            [201, 403, 200],
+        ),
+        (
+            "PUT",
+            "/v1/sites/S2/lines/L1/days/2026-03-02",
+            Some(day.clone()),
+            [201, 403, 403],
+        ),
         ("POST", "/v1/counts", Some(batch("S1")), [201, 403, 200]),
         ("POST", "/v1/counts", Some(batch("S2")), [201, 403, 403]),
         ("GET", "/v1/counts", None, [200, 200, 403]),
         ("GET", "/v1/counts?site=S1", None, [200, 200, 200]),
         ("GET", "/v1/counts?site=S2", None, [200, 200, 403]),
-        ("GET", "/v1/sites/S1/lines/L1/days/2026-03-01", None, [200, 200, 200]),
-        ("GET", "/v1/sites/S2/lines/L1/days/2026-03-01", None, [200, 200, 403]),
-        ("GET", "/v1/sites/S1/lines/L1/days/2026-03-01/revisions", None, [200, 200, 200]),
-        ("GET", "/v1/sites/S2/lines/L1/days/2026-03-01/revisions", None, [200, 200, 403]),
+        (
+            "GET",
+            "/v1/sites/S1/lines/L1/days/2026-03-01",
+            None,
+            [200, 200, 200],
+        ),
+        (
+            "GET",
+            "/v1/sites/S2/lines/L1/days/2026-03-01",
+            None,
+            [200, 200, 403],
+        ),
+        (
+            "GET",
+            "/v1/sites/S1/lines/L1/days/2026-03-01/revisions",
+            None,
+            [200, 200, 200],
+        ),
+        (
+            "GET",
+            "/v1/sites/S2/lines/L1/days/2026-03-01/revisions",
+            None,
+            [200, 200, 403],
+        ),
     ];
     for (method, path, body, expected) in cases {
         // Admin goes first so that later roles find the same state (writes by admin
         // create; an ingest write of the same record is then a correction).
-        for (who, token, want) in [("admin", &admin, expected[0]), ("read", &read, expected[1]), ("ingest", &ingest, expected[2])] {
+        for (who, token, want) in [
+            ("admin", &admin, expected[0]),
+            ("read", &read, expected[1]),
+            ("ingest", &ingest, expected[2]),
+        ] {
             let b = match &body {
                 Some(v) => Body::Json(v.clone()),
                 None => Body::None,
@@ -158,11 +267,21 @@ fn a_plant_key_writing_another_plant_gets_403_and_nothing_is_written() {
     s.site("BRNO", &["L1"]);
     s.site("LYON", &["L1"]);
     let brno = s.key("ingest", &["BRNO"]);
-    s.request("PUT", "/v1/sites/BRNO/lines/L1/days/2026-03-02", Some(&brno), Body::Json(json!({"inspected": 10, "defective": 1})));
+    s.request(
+        "PUT",
+        "/v1/sites/BRNO/lines/L1/days/2026-03-02",
+        Some(&brno),
+        Body::Json(json!({"inspected": 10, "defective": 1})),
+    );
     let before = s.snapshot();
     assert_eq!(before.len(), 1);
 
-    let r = s.request("PUT", "/v1/sites/LYON/lines/L1/days/2026-03-02", Some(&brno), Body::Json(json!({"inspected": 10, "defective": 1})));
+    let r = s.request(
+        "PUT",
+        "/v1/sites/LYON/lines/L1/days/2026-03-02",
+        Some(&brno),
+        Body::Json(json!({"inspected": 10, "defective": 1})),
+    );
     let p = r.problem(403, "forbidden");
     assert!(p["detail"].as_str().unwrap().contains("LYON"), "{p}");
     assert_eq!(s.snapshot(), before);
@@ -172,15 +291,24 @@ fn a_plant_key_writing_another_plant_gets_403_and_nothing_is_written() {
         {"site": "BRNO", "line": "L1", "date": "2026-03-03", "inspected": 10, "defective": 1},
         {"site": "LYON", "line": "L1", "date": "2026-03-03", "inspected": 10, "defective": 1},
     ]});
-    let p = s.request("POST", "/v1/counts", Some(&brno), Body::Json(mixed)).problem(403, "forbidden");
+    let p = s
+        .request("POST", "/v1/counts", Some(&brno), Body::Json(mixed))
+        .problem(403, "forbidden");
     assert_eq!(p["refused_sites"], json!(["LYON"]), "{p}");
     assert_eq!(s.snapshot(), before);
 
-    let csv = "site,line,date,inspected,defective\nBRNO,L1,2026-03-04,1,0\nLYON,L1,2026-03-04,1,0\n";
-    s.request("POST", "/v1/counts", Some(&brno), Body::Csv(csv.to_owned())).problem(403, "forbidden");
+    let csv =
+        "site,line,date,inspected,defective\nBRNO,L1,2026-03-04,1,0\nLYON,L1,2026-03-04,1,0\n";
+    s.request("POST", "/v1/counts", Some(&brno), Body::Csv(csv.to_owned()))
+        .problem(403, "forbidden");
     assert_eq!(s.snapshot(), before);
     // Even for a site that does not exist yet.
-    let r = s.request("PUT", "/v1/sites/OSLO/lines/L1/days/2026-03-02", Some(&brno), Body::Json(json!({"inspected": 1, "defective": 0})));
+    let r = s.request(
+        "PUT",
+        "/v1/sites/OSLO/lines/L1/days/2026-03-02",
+        Some(&brno),
+        Body::Json(json!({"inspected": 1, "defective": 0})),
+    );
     r.problem(403, "forbidden");
     assert_eq!(s.snapshot(), before);
 }

@@ -1,14 +1,20 @@
 //! Each kind of bad input: its status, its problem type and fields, and that nothing
 //! was written.
 
-use dispar_system_tests::{json, Body, Server};
+#![allow(clippy::unwrap_used)] // tests: a panic is the failure report
+
+use dispar_system_tests::{Body, Server, json};
 
 const DAY: &str = "/v1/sites/S1/lines/L1/days/2026-03-02";
 
 fn plant(extra: &[&str]) -> Server {
     let s = Server::start_with(extra);
     s.site("S1", &["L1"]);
-    s.as_admin("PUT", DAY, Body::Json(json!({"inspected": 100, "defective": 1})));
+    s.as_admin(
+        "PUT",
+        DAY,
+        Body::Json(json!({"inspected": 100, "defective": 1})),
+    );
     s
 }
 
@@ -16,7 +22,11 @@ fn plant(extra: &[&str]) -> Server {
 fn malformed_json_is_400_with_the_position() {
     let s = plant(&[]);
     let before = s.snapshot();
-    for (path, method) in [(DAY, "PUT"), ("/v1/counts", "POST"), ("/v1/sites/S2", "PUT")] {
+    for (path, method) in [
+        (DAY, "PUT"),
+        ("/v1/counts", "POST"),
+        ("/v1/sites/S2", "PUT"),
+    ] {
         let r = s.as_admin(
             method,
             path,
@@ -27,9 +37,22 @@ fn malformed_json_is_400_with_the_position() {
         );
         let p = r.problem(400, "malformed-body");
         assert_eq!(p["errors"][0]["reason"], "invalid_json", "{p}");
-        assert!(p["errors"][0]["message"].as_str().unwrap().contains("line 2"), "{p}");
+        assert!(
+            p["errors"][0]["message"]
+                .as_str()
+                .unwrap()
+                .contains("line 2"),
+            "{p}"
+        );
     }
-    let empty = s.as_admin("PUT", DAY, Body::Raw { content_type: Some("application/json"), bytes: Vec::new() });
+    let empty = s.as_admin(
+        "PUT",
+        DAY,
+        Body::Raw {
+            content_type: Some("application/json"),
+            bytes: Vec::new(),
+        },
+    );
     empty.problem(400, "malformed-body");
     assert_eq!(s.snapshot(), before);
 }
@@ -45,12 +68,26 @@ fn a_body_in_another_media_type_is_415() {
         ("POST", "/v1/counts", Some("application/xml")),
         ("POST", "/v1/counts", None),
         ("POST", "/v1/counts", Some("text/csv; charset=latin1")),
-        ("PUT", "/v1/sites/S2", Some("application/x-www-form-urlencoded")),
+        (
+            "PUT",
+            "/v1/sites/S2",
+            Some("application/x-www-form-urlencoded"),
+        ),
     ];
     for (method, path, content_type) in cases {
-        let r = s.as_admin(method, path, Body::Raw { content_type, bytes: b"{}".to_vec() });
+        let r = s.as_admin(
+            method,
+            path,
+            Body::Raw {
+                content_type,
+                bytes: b"{}".to_vec(),
+            },
+        );
         let p = r.problem(415, "unsupported-media-type");
-        assert_eq!(p["errors"][0]["header"], "content-type", "{method} {path} {content_type:?}: {p}");
+        assert_eq!(
+            p["errors"][0]["header"], "content-type",
+            "{method} {path} {content_type:?}: {p}"
+        );
     }
     let ok = s.as_admin(
         "PUT",
@@ -60,7 +97,11 @@ fn a_body_in_another_media_type_is_415() {
             bytes: br#"{"inspected": 100, "defective": 1}"#.to_vec(),
         },
     );
-    assert_eq!(ok.status, 200, "parameters of a JSON media type are fine: {}", ok.text);
+    assert_eq!(
+        ok.status, 200,
+        "parameters of a JSON media type are fine: {}",
+        ok.text
+    );
     assert_eq!(s.snapshot(), before);
 }
 
@@ -72,12 +113,19 @@ fn a_body_above_the_limit_is_413() {
     while csv.len() <= 4096 {
         csv.push_str("S1,L1,2026-03-03,100,1\n");
     }
-    let p = s.as_admin("POST", "/v1/counts", Body::Csv(csv)).problem(413, "payload-too-large");
+    let p = s
+        .as_admin("POST", "/v1/counts", Body::Csv(csv))
+        .problem(413, "payload-too-large");
     assert_eq!(p["errors"][0]["reason"], "too_large", "{p}");
     let big_json = json!({"inspected": 1, "defective": 0, "defects": {"x": "9".repeat(3000)}});
-    s.as_admin("PUT", DAY, Body::Json(big_json)).problem(413, "payload-too-large");
+    s.as_admin("PUT", DAY, Body::Json(big_json))
+        .problem(413, "payload-too-large");
     assert_eq!(s.snapshot(), before);
-    let small = s.as_admin("POST", "/v1/counts", Body::Csv("site,line,date,inspected,defective\nS1,L1,2026-03-03,100,1\n".into()));
+    let small = s.as_admin(
+        "POST",
+        "/v1/counts",
+        Body::Csv("site,line,date,inspected,defective\nS1,L1,2026-03-03,100,1\n".into()),
+    );
     assert_eq!(small.status, 201, "{}", small.text);
 }
 
@@ -86,9 +134,24 @@ fn unknown_fields_are_refused_naming_the_field() {
     let s = plant(&[]);
     let before = s.snapshot();
     let cases = [
-        ("PUT", DAY, json!({"inspected": 1, "defective": 0, "operator": "ana"}), "/operator"),
-        ("PUT", "/v1/sites/S1", json!({"name": "x", "country": "CZ"}), "/country"),
-        ("PUT", "/v1/sites/S1/lines/L1", json!({"speed": 3}), "/speed"),
+        (
+            "PUT",
+            DAY,
+            json!({"inspected": 1, "defective": 0, "operator": "ana"}),
+            "/operator",
+        ),
+        (
+            "PUT",
+            "/v1/sites/S1",
+            json!({"name": "x", "country": "CZ"}),
+            "/country",
+        ),
+        (
+            "PUT",
+            "/v1/sites/S1/lines/L1",
+            json!({"speed": 3}),
+            "/speed",
+        ),
         (
             "POST",
             "/v1/counts",
@@ -97,9 +160,14 @@ fn unknown_fields_are_refused_naming_the_field() {
         ),
     ];
     for (method, path, body, pointer) in cases {
-        let p = s.as_admin(method, path, Body::Json(body)).problem(422, "validation");
+        let p = s
+            .as_admin(method, path, Body::Json(body))
+            .problem(422, "validation");
         assert_eq!(p["errors"][0]["pointer"], pointer, "{method} {path}: {p}");
-        assert_eq!(p["errors"][0]["reason"], "unknown_field", "{method} {path}: {p}");
+        assert_eq!(
+            p["errors"][0]["reason"], "unknown_field",
+            "{method} {path}: {p}"
+        );
     }
     assert_eq!(s.snapshot(), before);
     let site = s.as_admin("GET", "/v1/sites/S1", Body::None).json();
@@ -109,8 +177,13 @@ fn unknown_fields_are_refused_naming_the_field() {
 #[test]
 fn unknown_paths_and_methods_are_problems_too() {
     let s = plant(&[]);
-    let p = s.as_admin("GET", "/v1/nothing-here", Body::None).problem(404, "not-found");
-    assert!(p["detail"].as_str().unwrap().contains("/v1/nothing-here"), "{p}");
+    let p = s
+        .as_admin("GET", "/v1/nothing-here", Body::None)
+        .problem(404, "not-found");
+    assert!(
+        p["detail"].as_str().unwrap().contains("/v1/nothing-here"),
+        "{p}"
+    );
     let r = s.as_admin("DELETE", DAY, Body::None);
     r.problem(405, "method-not-allowed");
     let allow = r.header("allow").expect("Allow header");
@@ -138,8 +211,16 @@ fn every_problem_type_has_a_page() {
     ] {
         let r = s.request("GET", &format!("/problems/{slug}"), None, Body::None);
         assert_eq!(r.status, 200, "{slug}");
-        assert!(r.header("content-type").unwrap().starts_with("text/html"), "{slug}");
-        assert!(r.text.contains(&format!("/problems/{slug}")), "{slug}: {}", r.text);
+        assert!(
+            r.header("content-type").unwrap().starts_with("text/html"),
+            "{slug}"
+        );
+        assert!(
+            r.text.contains(&format!("/problems/{slug}")),
+            "{slug}: {}",
+            r.text
+        );
     }
-    s.request("GET", "/problems/nope", None, Body::None).problem(404, "not-found");
+    s.request("GET", "/problems/nope", None, Body::None)
+        .problem(404, "not-found");
 }

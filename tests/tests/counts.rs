@@ -1,7 +1,9 @@
 //! One day's counts at its natural key, plant revisions in and out of order, the
 //! history, and the paginated listing.
 
-use dispar_system_tests::{json, Body, Server, Value};
+#![allow(clippy::unwrap_used)] // tests: a panic is the failure report
+
+use dispar_system_tests::{Body, Server, Value, json};
 
 fn plant() -> Server {
     let s = Server::start();
@@ -16,7 +18,8 @@ const DAY: &str = "/v1/sites/S1/lines/L1/days/2026-03-02";
 fn a_put_creates_a_record_then_reports_unchanged_and_corrected() {
     let s = plant();
     let ingest = s.key("ingest", &["S1"]);
-    let body = json!({"inspected": 1200, "defective": 31, "defects": {"scratch": 20, "short-shot": 15}});
+    let body =
+        json!({"inspected": 1200, "defective": 31, "defects": {"scratch": 20, "short-shot": 15}});
     let created = s.request("PUT", DAY, Some(&ingest), Body::Json(body.clone()));
     assert_eq!(created.status, 201, "{}", created.text);
     assert_eq!(created.header("location"), Some(DAY));
@@ -29,9 +32,18 @@ fn a_put_creates_a_record_then_reports_unchanged_and_corrected() {
     let same = s.request("PUT", DAY, Some(&ingest), Body::Json(body));
     assert_eq!(same.status, 200, "{}", same.text);
     assert_eq!(same.json()["outcome"], "unchanged");
-    assert_eq!(same.json()["revision_id"], v["revision_id"], "no new revision");
+    assert_eq!(
+        same.json()["revision_id"],
+        v["revision_id"],
+        "no new revision"
+    );
 
-    let fixed = s.request("PUT", DAY, Some(&ingest), Body::Json(json!({"inspected": 1200, "defective": 30})));
+    let fixed = s.request(
+        "PUT",
+        DAY,
+        Some(&ingest),
+        Body::Json(json!({"inspected": 1200, "defective": 30})),
+    );
     assert_eq!(fixed.status, 200, "{}", fixed.text);
     assert_eq!(fixed.json()["outcome"], "corrected");
 
@@ -57,16 +69,37 @@ fn a_put_creates_a_record_then_reports_unchanged_and_corrected() {
 #[test]
 fn products_are_part_of_the_natural_key() {
     let s = plant();
-    let a = s.as_admin("PUT", &format!("{DAY}?product=CAP-28"), Body::Json(json!({"inspected": 10, "defective": 1})));
+    let a = s.as_admin(
+        "PUT",
+        &format!("{DAY}?product=CAP-28"),
+        Body::Json(json!({"inspected": 10, "defective": 1})),
+    );
     assert_eq!(a.status, 201, "{}", a.text);
-    assert_eq!(a.header("location"), Some(format!("{DAY}?product=CAP-28").as_str()));
-    let b = s.as_admin("PUT", DAY, Body::Json(json!({"inspected": 20, "defective": 2})));
-    assert_eq!(b.status, 201, "a record without product is another record: {}", b.text);
-    let got = s.as_admin("GET", &format!("{DAY}?product=CAP-28"), Body::None).json();
+    assert_eq!(
+        a.header("location"),
+        Some(format!("{DAY}?product=CAP-28").as_str())
+    );
+    let b = s.as_admin(
+        "PUT",
+        DAY,
+        Body::Json(json!({"inspected": 20, "defective": 2})),
+    );
+    assert_eq!(
+        b.status, 201,
+        "a record without product is another record: {}",
+        b.text
+    );
+    let got = s
+        .as_admin("GET", &format!("{DAY}?product=CAP-28"), Body::None)
+        .json();
     assert_eq!(got["inspected"], 10);
     assert_eq!(got["product"], "CAP-28");
     assert_eq!(s.snapshot().len(), 2);
-    let bad = s.as_admin("PUT", &format!("{DAY}?product=%20x"), Body::Json(json!({"inspected": 1, "defective": 0})));
+    let bad = s.as_admin(
+        "PUT",
+        &format!("{DAY}?product=%20x"),
+        Body::Json(json!({"inspected": 1, "defective": 0})),
+    );
     let p = bad.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "product", "{p}");
 }
@@ -115,30 +148,50 @@ fn plant_revisions_out_of_order_are_refused_with_the_current_revision() {
     assert_eq!(plain.status, 200);
     assert_eq!(plain.json()["outcome"], "corrected");
 
-    let h = s.as_admin("GET", &format!("{DAY}/revisions"), Body::None).json();
+    let h = s
+        .as_admin("GET", &format!("{DAY}/revisions"), Body::None)
+        .json();
     let plant_revisions: Vec<Value> = h["revisions"]
         .as_array()
         .unwrap()
         .iter()
         .map(|r| r["revision"].clone())
         .collect();
-    assert_eq!(plant_revisions, vec![json!(2), json!(3), Value::Null], "{h}");
+    assert_eq!(
+        plant_revisions,
+        vec![json!(2), json!(3), Value::Null],
+        "{h}"
+    );
 }
 
 #[test]
 fn a_record_for_an_unregistered_site_or_line_is_refused_naming_it() {
     let s = plant();
     let before = s.snapshot();
-    let r = s.as_admin("PUT", "/v1/sites/S9/lines/L1/days/2026-03-02", Body::Json(json!({"inspected": 1, "defective": 0})));
+    let r = s.as_admin(
+        "PUT",
+        "/v1/sites/S9/lines/L1/days/2026-03-02",
+        Body::Json(json!({"inspected": 1, "defective": 0})),
+    );
     let p = r.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "site", "{p}");
     assert_eq!(p["errors"][0]["reason"], "unknown_site", "{p}");
-    assert!(p["errors"][0]["message"].as_str().unwrap().contains("S9"), "{p}");
-    let r = s.as_admin("PUT", "/v1/sites/S1/lines/L7/days/2026-03-02", Body::Json(json!({"inspected": 1, "defective": 0})));
+    assert!(
+        p["errors"][0]["message"].as_str().unwrap().contains("S9"),
+        "{p}"
+    );
+    let r = s.as_admin(
+        "PUT",
+        "/v1/sites/S1/lines/L7/days/2026-03-02",
+        Body::Json(json!({"inspected": 1, "defective": 0})),
+    );
     let p = r.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "line", "{p}");
     assert_eq!(p["errors"][0]["reason"], "unknown_line", "{p}");
-    assert!(p["errors"][0]["message"].as_str().unwrap().contains("L7"), "{p}");
+    assert!(
+        p["errors"][0]["message"].as_str().unwrap().contains("L7"),
+        "{p}"
+    );
     assert_eq!(s.snapshot(), before);
 }
 
@@ -146,7 +199,9 @@ fn a_record_for_an_unregistered_site_or_line_is_refused_naming_it() {
 fn bad_counts_are_refused_naming_every_field() {
     let s = plant();
     let before = s.snapshot();
-    let cases: Vec<(&str, Value, Vec<(&str, &str)>)> = vec![
+    // (case, body, expected (pointer, reason) pairs)
+    type Case<'a> = (&'a str, Value, Vec<(&'a str, &'a str)>);
+    let cases: Vec<Case<'_>> = vec![
         (
             "defective above inspected",
             json!({"inspected": 10, "defective": 11}),
@@ -199,7 +254,11 @@ fn bad_counts_are_refused_naming_every_field() {
         assert_eq!(got, expected, "case {name}: {p}");
         assert_eq!(s.snapshot(), before, "case {name} wrote nothing");
     }
-    let bad_date = s.as_admin("PUT", "/v1/sites/S1/lines/L1/days/2026-02-30", Body::Json(json!({"inspected": 1, "defective": 0})));
+    let bad_date = s.as_admin(
+        "PUT",
+        "/v1/sites/S1/lines/L1/days/2026-02-30",
+        Body::Json(json!({"inspected": 1, "defective": 0})),
+    );
     let p = bad_date.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "date", "{p}");
     assert_eq!(p["errors"][0]["reason"], "invalid_date", "{p}");
@@ -229,11 +288,17 @@ fn the_listing_pages_with_a_cursor_and_filters() {
         let v = r.json();
         for rec in v["records"].as_array().unwrap() {
             assert_eq!(rec["site"], "S1");
-            seen.push(format!("{}/{}", rec["line"].as_str().unwrap(), rec["date"].as_str().unwrap()));
+            seen.push(format!(
+                "{}/{}",
+                rec["line"].as_str().unwrap(),
+                rec["date"].as_str().unwrap()
+            ));
         }
         match v["next_cursor"].as_str() {
             Some(_) => {
-                let link = r.header("link").expect("Link header on a page with a next page");
+                let link = r
+                    .header("link")
+                    .expect("Link header on a page with a next page");
                 let next = link.trim_start_matches('<').split('>').next().unwrap();
                 assert!(link.ends_with("rel=\"next\""), "{link}");
                 path = next.to_owned();
@@ -248,9 +313,13 @@ fn the_listing_pages_with_a_cursor_and_filters() {
     assert_eq!(seen, sorted, "ordered by line then date");
     assert_eq!(seen[0], "L1/2026-03-02");
 
-    let one_line = s.request("GET", "/v1/counts?site=S1&line=L2", Some(&read), Body::None).json();
+    let one_line = s
+        .request("GET", "/v1/counts?site=S1&line=L2", Some(&read), Body::None)
+        .json();
     assert_eq!(one_line["records"].as_array().unwrap().len(), 9);
-    let default_limit = s.request("GET", "/v1/counts", Some(&read), Body::None).json();
+    let default_limit = s
+        .request("GET", "/v1/counts", Some(&read), Body::None)
+        .json();
     assert_eq!(default_limit["records"].as_array().unwrap().len(), 27);
     assert_eq!(default_limit["next_cursor"], Value::Null);
 }
@@ -264,9 +333,17 @@ fn listing_parameters_are_checked() {
         ("/v1/counts?limit=1001", "limit", "out_of_range"),
         ("/v1/counts?limit=ten", "limit", "out_of_range"),
         ("/v1/counts?from=2026-13-01", "from", "invalid_date"),
-        ("/v1/counts?from=2026-03-05&to=2026-03-01", "to", "before_from"),
+        (
+            "/v1/counts?from=2026-03-05&to=2026-03-01",
+            "to",
+            "before_from",
+        ),
         ("/v1/counts?cursor=not-a-cursor", "cursor", "invalid_cursor"),
-        ("/v1/counts?site=S1&colour=red", "colour", "unknown_parameter"),
+        (
+            "/v1/counts?site=S1&colour=red",
+            "colour",
+            "unknown_parameter",
+        ),
     ];
     for (path, parameter, reason) in cases {
         let r = s.request("GET", path, Some(&read), Body::None);

@@ -1,11 +1,13 @@
 //! Probes, metrics, request ids, logs, and stopping: SIGTERM finishes in-flight
 //! requests, and a restart on the same file finds everything.
 
+#![allow(clippy::unwrap_used)] // tests: a panic is the failure report
+
 use std::io::Read;
 use std::sync::mpsc;
 use std::time::{Duration, Instant};
 
-use dispar_system_tests::{json, Body, Server};
+use dispar_system_tests::{Body, Server, json};
 
 #[test]
 fn probes_answer_without_a_key() {
@@ -16,8 +18,20 @@ fn probes_answer_without_a_key() {
     let ready = s.request("GET", "/readyz", None, Body::None);
     assert_eq!(ready.status, 200, "{}", ready.text);
     assert_eq!(ready.json()["status"], "ready");
-    assert!(ready.header("x-request-id").is_some_and(|id| id.len() >= 32), "{:?}", ready.headers);
-    let echoed = s.request_with("GET", "/livez", None, Body::None, &[("x-request-id", "trace-me-42")]);
+    assert!(
+        ready
+            .header("x-request-id")
+            .is_some_and(|id| id.len() >= 32),
+        "{:?}",
+        ready.headers
+    );
+    let echoed = s.request_with(
+        "GET",
+        "/livez",
+        None,
+        Body::None,
+        &[("x-request-id", "trace-me-42")],
+    );
     assert_eq!(echoed.header("x-request-id"), Some("trace-me-42"));
 }
 
@@ -26,13 +40,25 @@ fn metrics_count_requests_by_route_template_and_records_written() {
     let s = Server::start();
     s.site("S1", &["L1"]);
     let csv = "site,line,date,inspected,defective\nS1,L1,2026-03-02,10,1\nS1,L1,2026-03-03,10,1\n";
-    assert_eq!(s.as_admin("POST", "/v1/counts", Body::Csv(csv.into())).status, 201);
-    assert_eq!(s.as_admin("POST", "/v1/counts", Body::Csv(csv.into())).status, 200);
+    assert_eq!(
+        s.as_admin("POST", "/v1/counts", Body::Csv(csv.into()))
+            .status,
+        201
+    );
+    assert_eq!(
+        s.as_admin("POST", "/v1/counts", Body::Csv(csv.into()))
+            .status,
+        200
+    );
     s.as_admin("GET", "/v1/sites/S1/lines/L1/days/2026-03-09", Body::None);
     s.request("GET", "/v1/sites", None, Body::None);
     let m = s.request("GET", "/metrics", None, Body::None);
     assert_eq!(m.status, 200);
-    assert!(m.header("content-type").unwrap().starts_with("text/plain"), "{:?}", m.headers);
+    assert!(
+        m.header("content-type").unwrap().starts_with("text/plain"),
+        "{:?}",
+        m.headers
+    );
     let text = m.text;
     for needle in [
         r#"dispar_http_requests_total{method="POST",route="/v1/counts",status="201"} 1"#,
@@ -57,8 +83,12 @@ fn json_logs_are_one_object_per_line() {
     let lines: Vec<&str> = log.lines().filter(|l| !l.trim().is_empty()).collect();
     assert!(!lines.is_empty());
     for line in &lines {
-        let v: serde_json::Value = serde_json::from_str(line).unwrap_or_else(|e| panic!("{e}: {line}"));
-        assert!(v["level"].is_string() && v["timestamp"].is_string(), "{line}");
+        let v: serde_json::Value =
+            serde_json::from_str(line).unwrap_or_else(|e| panic!("{e}: {line}"));
+        assert!(
+            v["level"].is_string() && v["timestamp"].is_string(),
+            "{line}"
+        );
     }
     assert!(log.contains("/livez"), "{log}");
 }
@@ -71,9 +101,19 @@ fn a_restart_on_the_same_file_finds_everything() {
     let ingest = first.key("ingest", &["S1"]);
     let csv = "site,line,date,inspected,defective,defect:flash\n\
                S1,L1,2026-03-02,100,3,2\nS1,L2,2026-03-02,80,1,\n";
-    assert_eq!(first.request("POST", "/v1/counts", Some(&ingest), Body::Csv(csv.into())).status, 201);
+    assert_eq!(
+        first
+            .request("POST", "/v1/counts", Some(&ingest), Body::Csv(csv.into()))
+            .status,
+        201
+    );
     let day = "/v1/sites/S1/lines/L1/days/2026-03-02";
-    let fixed = first.request("PUT", day, Some(&ingest), Body::Json(json!({"inspected": 100, "defective": 2, "revision": 7})));
+    let fixed = first.request(
+        "PUT",
+        day,
+        Some(&ingest),
+        Body::Json(json!({"inspected": 100, "defective": 2, "revision": 7})),
+    );
     assert_eq!(fixed.status, 200);
     let idem = first.request_with(
         "POST",
@@ -84,13 +124,18 @@ fn a_restart_on_the_same_file_finds_everything() {
     );
     assert_eq!(idem.status, 201);
     let before = first.snapshot();
-    let history = first.as_admin("GET", &format!("{day}/revisions"), Body::None).text;
+    let history = first
+        .as_admin("GET", &format!("{day}/revisions"), Body::None)
+        .text;
     let admin = first.admin().to_owned();
 
     let status = first.terminate();
     assert!(status.success(), "SIGTERM gives a clean exit: {status}");
     let log = first.log();
-    assert!(log.contains("received SIGTERM") && log.contains("server stopped"), "{log}");
+    assert!(
+        log.contains("received SIGTERM") && log.contains("server stopped"),
+        "{log}"
+    );
     drop(first);
 
     let second = Server::start_in(dir.path(), &[]);
@@ -179,22 +224,35 @@ fn sigterm_lets_an_in_flight_batch_finish_and_commit() {
         if in_flight >= 2.0 {
             break;
         }
-        assert!(Instant::now() < deadline, "the batch never became in-flight");
+        assert!(
+            Instant::now() < deadline,
+            "the batch never became in-flight"
+        );
         std::thread::sleep(Duration::from_millis(10));
     }
     let pid = s.pid();
-    let kill = std::process::Command::new("kill").args(["-TERM", &pid.to_string()]).status().unwrap();
+    let kill = std::process::Command::new("kill")
+        .args(["-TERM", &pid.to_string()])
+        .status()
+        .unwrap();
     assert!(kill.success());
     // The server has begun shutting down; now let the body finish.
     std::thread::sleep(Duration::from_millis(200));
     release.send(()).unwrap();
     let (status, text) = client.join().unwrap();
     assert_eq!(status, 201, "{text}");
-    assert_eq!(serde_json::from_str::<serde_json::Value>(&text).unwrap()["created"], 28);
+    assert_eq!(
+        serde_json::from_str::<serde_json::Value>(&text).unwrap()["created"],
+        28
+    );
     let exit = s.wait_exit();
     assert!(exit.success(), "{exit}");
     drop(s);
 
     let again = Server::start_in(dir.path(), &[]);
-    assert_eq!(again.snapshot().len(), 28, "the answered batch was committed");
+    assert_eq!(
+        again.snapshot().len(),
+        28,
+        "the answered batch was committed"
+    );
 }

@@ -1,6 +1,8 @@
 //! The site and line registry over HTTP, with every role.
 
-use dispar_system_tests::{json, Body, Server};
+#![allow(clippy::unwrap_used)] // tests: a panic is the failure report
+
+use dispar_system_tests::{Body, Server, json};
 
 #[test]
 fn an_admin_registers_a_site_and_its_lines_and_readers_see_them() {
@@ -25,7 +27,11 @@ fn an_admin_registers_a_site_and_its_lines_and_readers_see_them() {
     assert_eq!(again.status, 200, "{}", again.text);
     assert_eq!(again.json()["outcome"], "unchanged");
 
-    let renamed = s.as_admin("PUT", "/v1/sites/BRNO-2", Body::Json(json!({"name": "Brno 2"})));
+    let renamed = s.as_admin(
+        "PUT",
+        "/v1/sites/BRNO-2",
+        Body::Json(json!({"name": "Brno 2"})),
+    );
     assert_eq!(renamed.status, 200);
     assert_eq!(renamed.json()["outcome"], "updated");
 
@@ -74,19 +80,35 @@ fn only_admin_keys_change_the_registry() {
     let read = s.key("read", &[]);
     let ingest = s.key("ingest", &["S1"]);
     for key in [&read, &ingest] {
-        let r = s.request("PUT", "/v1/sites/S9", Some(key), Body::Json(json!({"name": "x"})));
+        let r = s.request(
+            "PUT",
+            "/v1/sites/S9",
+            Some(key),
+            Body::Json(json!({"name": "x"})),
+        );
         let p = r.problem(403, "forbidden");
         assert!(p["detail"].as_str().unwrap().contains("admin"), "{p}");
         assert!(
-            r.header("www-authenticate").unwrap().contains("insufficient_scope"),
+            r.header("www-authenticate")
+                .unwrap()
+                .contains("insufficient_scope"),
             "{:?}",
             r.headers
         );
-        let r = s.request("PUT", "/v1/sites/S1/lines/L9", Some(key), Body::Json(json!({})));
+        let r = s.request(
+            "PUT",
+            "/v1/sites/S1/lines/L9",
+            Some(key),
+            Body::Json(json!({})),
+        );
         r.problem(403, "forbidden");
     }
     let list = s.as_admin("GET", "/v1/sites", Body::None).json();
-    assert_eq!(list["sites"].as_array().unwrap().len(), 1, "nothing was registered: {list}");
+    assert_eq!(
+        list["sites"].as_array().unwrap().len(),
+        1,
+        "nothing was registered: {list}"
+    );
     let site = s.as_admin("GET", "/v1/sites/S1", Body::None).json();
     assert_eq!(site["lines"].as_array().unwrap().len(), 1, "{site}");
 }
@@ -97,7 +119,11 @@ fn an_ingest_key_reads_its_own_site_but_not_the_list_or_other_sites() {
     s.site("S1", &["L1"]);
     s.site("S2", &["L1"]);
     let ingest = s.key("ingest", &["S1"]);
-    assert_eq!(s.request("GET", "/v1/sites/S1", Some(&ingest), Body::None).status, 200);
+    assert_eq!(
+        s.request("GET", "/v1/sites/S1", Some(&ingest), Body::None)
+            .status,
+        200
+    );
     s.request("GET", "/v1/sites/S2", Some(&ingest), Body::None)
         .problem(403, "forbidden");
     s.request("GET", "/v1/sites", Some(&ingest), Body::None)
@@ -107,7 +133,11 @@ fn an_ingest_key_reads_its_own_site_but_not_the_list_or_other_sites() {
 #[test]
 fn registry_input_errors_name_the_field_or_parameter() {
     let s = Server::start();
-    let missing_name = s.as_admin("PUT", "/v1/sites/S1", Body::Json(json!({"time_zone": "Mars/Base"})));
+    let missing_name = s.as_admin(
+        "PUT",
+        "/v1/sites/S1",
+        Body::Json(json!({"time_zone": "Mars/Base"})),
+    );
     let p = missing_name.problem(422, "validation");
     let pointers: Vec<&str> = p["errors"]
         .as_array()
@@ -127,12 +157,17 @@ fn registry_input_errors_name_the_field_or_parameter() {
     assert_eq!(p["errors"][0]["parameter"], "site", "{p}");
     assert_eq!(p["errors"][0]["reason"], "unknown_site", "{p}");
 
-    let unknown_field = s.as_admin("PUT", "/v1/sites/S1", Body::Json(json!({"name": "x", "city": "Brno"})));
+    let unknown_field = s.as_admin(
+        "PUT",
+        "/v1/sites/S1",
+        Body::Json(json!({"name": "x", "city": "Brno"})),
+    );
     let p = unknown_field.problem(422, "validation");
     assert_eq!(p["errors"][0]["pointer"], "/city", "{p}");
     assert_eq!(p["errors"][0]["reason"], "unknown_field", "{p}");
 
-    s.as_admin("GET", "/v1/sites/NOPE", Body::None).problem(404, "not-found");
+    s.as_admin("GET", "/v1/sites/NOPE", Body::None)
+        .problem(404, "not-found");
     let list = s.as_admin("GET", "/v1/sites", Body::None).json();
     assert_eq!(list["sites"], json!([]), "nothing was registered");
 }

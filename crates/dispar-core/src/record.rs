@@ -628,7 +628,11 @@ impl CsvLayout {
             let h = h.as_ref();
             let field = format!("header/{}", pointer_segment(h));
             if seen.insert(h, i).is_some() {
-                c.push(FieldError::new(field, reason::DUPLICATE, format!("column {h:?} appears twice")));
+                c.push(FieldError::new(
+                    field,
+                    reason::DUPLICATE,
+                    format!("column {h:?} appears twice"),
+                ));
                 continue;
             }
             match h {
@@ -653,7 +657,10 @@ impl CsvLayout {
             c.push(FieldError::new(
                 "header",
                 reason::TOO_MANY_CATEGORIES,
-                format!("{} defect columns; at most {MAX_CATEGORIES} are allowed", defects.len()),
+                format!(
+                    "{} defect columns; at most {MAX_CATEGORIES} are allowed",
+                    defects.len()
+                ),
             ));
         }
         let mut required = |name: &str| {
@@ -670,7 +677,9 @@ impl CsvLayout {
         let (site, line, date) = (required("site"), required("line"), required("date"));
         let (inspected, defective) = (required("inspected"), required("defective"));
         match (site, line, date, inspected, defective) {
-            (Some(site), Some(line), Some(date), Some(inspected), Some(defective)) if c.is_empty() => {
+            (Some(site), Some(line), Some(date), Some(inspected), Some(defective))
+                if c.is_empty() =>
+            {
                 Ok(Self {
                     width: header.len(),
                     site,
@@ -695,7 +704,11 @@ impl CsvLayout {
             return Err(FieldError::new(
                 "",
                 "ragged_row",
-                format!("the row has {} fields but the header has {}", cells.len(), self.width),
+                format!(
+                    "the row has {} fields but the header has {}",
+                    cells.len(),
+                    self.width
+                ),
             ));
         }
         let cell = |i: usize| cells[i].as_ref();
@@ -713,7 +726,11 @@ impl CsvLayout {
             product: opt(self.product).map(str::to_owned),
             inspected: Some(RawNumber::from(cell(self.inspected))),
             defective: Some(RawNumber::from(cell(self.defective))),
-            defects: if defects.is_empty() { None } else { Some(defects) },
+            defects: if defects.is_empty() {
+                None
+            } else {
+                Some(defects)
+            },
             revision: opt(self.revision).map(RawNumber::from),
         })
     }
@@ -856,7 +873,14 @@ mod tests {
     #[test]
     fn a_csv_header_maps_columns_and_rows_become_raw_records() {
         let layout = CsvLayout::from_header(&[
-            "date", "site", "line", "product", "inspected", "defective", "defect:scratch", "revision",
+            "date",
+            "site",
+            "line",
+            "product",
+            "inspected",
+            "defective",
+            "defect:scratch",
+            "revision",
         ])
         .unwrap();
         let raw = layout
@@ -866,13 +890,16 @@ mod tests {
         assert_eq!(r.product(), None);
         assert_eq!(r.revision, None);
         assert_eq!(r.defects().get("scratch"), Some(&3));
-        let raw = layout.record(&["2026-03-14", "S1", "L1", "P", "100", "2", "", "4"]).unwrap();
+        let raw = layout
+            .record(&["2026-03-14", "S1", "L1", "P", "100", "2", "", "4"])
+            .unwrap();
         let r = CountRecord::try_from(raw).unwrap();
         assert!(r.defects().is_empty());
         assert_eq!(r.revision, Some(4));
         assert_eq!(layout.record(&["x"]).unwrap_err().reason, "ragged_row");
 
-        let e = CsvLayout::from_header(&["site", "site", "date", "defect:a b", "colour"]).unwrap_err();
+        let e =
+            CsvLayout::from_header(&["site", "site", "date", "defect:a b", "colour"]).unwrap_err();
         assert_eq!(
             reasons(&e),
             [

@@ -43,7 +43,12 @@ pub struct InputError {
 }
 
 impl InputError {
-    fn new(line: u64, field: Option<&str>, reason: &'static str, message: impl Into<String>) -> Self {
+    fn new(
+        line: u64,
+        field: Option<&str>,
+        reason: &'static str,
+        message: impl Into<String>,
+    ) -> Self {
         Self {
             line,
             field: field.map(str::to_owned),
@@ -149,14 +154,25 @@ pub type Row = (u64, Vec<String>);
 
 fn header(rows: &[Row]) -> Result<&Row, InputErrors> {
     rows.first().ok_or_else(|| {
-        InputError::new(1, None, "no_header", "the input is empty; the first line must be a header").into()
+        InputError::new(
+            1,
+            None,
+            "no_header",
+            "the input is empty; the first line must be a header",
+        )
+        .into()
     })
 }
 
 fn check_shape(rows: &[Row], width: usize, errors: &mut Errors) {
     if rows.len() <= 1 {
         let line = rows.first().map_or(1, |r| r.0 + 1);
-        errors.push(InputError::new(line, None, "no_rows", "there are no group rows after the header"));
+        errors.push(InputError::new(
+            line,
+            None,
+            "no_rows",
+            "there are no group rows after the header",
+        ));
     }
     if rows.len() - usize::from(!rows.is_empty()) > MAX_GROUPS {
         errors.push(InputError::new(
@@ -172,16 +188,30 @@ fn check_shape(rows: &[Row], width: usize, errors: &mut Errors) {
                 *line,
                 None,
                 "ragged_row",
-                format!("has {} fields but the header has {width}", cells.len()),
+                format!(
+                    "the row has {} fields but the header has {width}",
+                    cells.len()
+                ),
             ));
         }
     }
 }
 
-fn check_name(line: u64, field: &str, name: &str, seen: &mut HashMap<String, u64>, errors: &mut Errors) {
+fn check_name(
+    line: u64,
+    field: &str,
+    name: &str,
+    seen: &mut HashMap<String, u64>,
+    errors: &mut Errors,
+) {
     let name = name.trim();
     if name.is_empty() {
-        errors.push(InputError::new(line, Some(field), reason::EMPTY, "the group name is empty"));
+        errors.push(InputError::new(
+            line,
+            Some(field),
+            reason::EMPTY,
+            "the group name is empty",
+        ));
     } else if name.chars().count() > MAX_GROUP_NAME_LEN {
         errors.push(InputError::new(
             line,
@@ -206,7 +236,9 @@ fn count(line: u64, field: &str, cell: &str, errors: &mut Errors) -> Option<u64>
         Err(e) => {
             let message = match e.reason {
                 reason::REQUIRED => "the count is missing".to_owned(),
-                reason::NEGATIVE => format!("{:?} is negative; counts must be 0 or more", cell.trim()),
+                reason::NEGATIVE => {
+                    format!("{:?} is negative; counts must be 0 or more", cell.trim())
+                }
                 _ => e.message,
             };
             errors.push(InputError::new(line, Some(field), e.reason, message));
@@ -244,7 +276,12 @@ pub fn parse_rates(rows: &[Row]) -> Result<Vec<RateRow>, InputErrors> {
                 "unexpected column; a rates file has exactly group,inspected,defective (use --table for a table of raw counts)",
             ));
         } else if seen_cols.insert(h.clone(), pos).is_some() {
-            errors.push(InputError::new(*hline, Some(&head[pos]), reason::DUPLICATE, "the column appears twice"));
+            errors.push(InputError::new(
+                *hline,
+                Some(&head[pos]),
+                reason::DUPLICATE,
+                "the column appears twice",
+            ));
         }
     }
     let (Some(g), Some(i), Some(d)) = (g, i, d) else {
@@ -304,7 +341,12 @@ pub fn parse_table(rows: &[Row]) -> Result<CountTable, InputErrors> {
                 format!("column {} has no name", pos + 2),
             ));
         } else if seen_cols.insert(name.clone(), pos).is_some() {
-            errors.push(InputError::new(*hline, Some(name), reason::DUPLICATE, "the column appears twice"));
+            errors.push(InputError::new(
+                *hline,
+                Some(name),
+                reason::DUPLICATE,
+                "the column appears twice",
+            ));
         }
     }
     check_shape(rows, head.len(), &mut errors);
@@ -323,7 +365,9 @@ pub fn parse_table(rows: &[Row]) -> Result<CountTable, InputErrors> {
             .map(|(cell, col)| count(*line, col, cell, &mut errors))
             .collect();
         table.row_names.push(cells[0].trim().to_owned());
-        table.counts.push(counts.into_iter().map(|c| c.unwrap_or(0)).collect());
+        table
+            .counts
+            .push(counts.into_iter().map(|c| c.unwrap_or(0)).collect());
     }
     errors.finish(table)
 }
@@ -348,7 +392,9 @@ mod tests {
             .collect()
     }
 
-    fn problems(r: Result<impl fmt::Debug, InputErrors>) -> Vec<(u64, Option<String>, &'static str)> {
+    fn problems(
+        r: Result<impl fmt::Debug, InputErrors>,
+    ) -> Vec<(u64, Option<String>, &'static str)> {
         r.expect_err("should fail")
             .errors
             .into_iter()
@@ -359,7 +405,14 @@ mod tests {
     #[test]
     fn a_good_rates_file_parses_in_any_column_order() {
         let r = parse_rates(&rows("Defective,group,inspected\n36,A,300\n46,B,300\n")).unwrap();
-        assert_eq!(r[1], RateRow { name: "B".into(), inspected: 300, defective: 46 });
+        assert_eq!(
+            r[1],
+            RateRow {
+                name: "B".into(),
+                inspected: 300,
+                defective: 46
+            }
+        );
     }
 
     #[test]
@@ -386,7 +439,10 @@ mod tests {
         assert_eq!(p[0], (1, None, "missing_column"));
         assert!(p.iter().any(|e| e.2 == "unknown_column"));
         assert_eq!(problems(parse_rates(&[])), [(1, None, "no_header")]);
-        assert_eq!(problems(parse_rates(&rows("group,inspected,defective\n"))), [(2, None, "no_rows")]);
+        assert_eq!(
+            problems(parse_rates(&rows("group,inspected,defective\n"))),
+            [(2, None, "no_rows")]
+        );
     }
 
     #[test]
@@ -399,8 +455,15 @@ mod tests {
         let f = |s: &str| Some(s.to_owned());
         assert_eq!(
             p,
-            [(1, f("a"), "duplicate"), (2, f("a"), "not_an_integer"), (3, f("site"), "duplicate")]
+            [
+                (1, f("a"), "duplicate"),
+                (2, f("a"), "not_an_integer"),
+                (3, f("site"), "duplicate")
+            ]
         );
-        assert_eq!(problems(parse_table(&rows("group\nA\n")))[0].2, "missing_column");
+        assert_eq!(
+            problems(parse_table(&rows("group\nA\n")))[0].2,
+            "missing_column"
+        );
     }
 }

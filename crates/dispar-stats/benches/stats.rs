@@ -2,6 +2,9 @@
 //!
 //! Run: `cargo bench -p dispar-stats -- --warm-up-time 1 --measurement-time 3`
 
+// criterion_group! generates an undocumented public function.
+#![allow(missing_docs)]
+
 use std::hint::black_box;
 
 use criterion::{Criterion, criterion_group, criterion_main};

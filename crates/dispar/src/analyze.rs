@@ -46,10 +46,18 @@ pub struct AnalyzeArgs {
     pub method: MethodChoice,
     /// Pairwise test: auto (Pearson when valid for the pair, else Fisher), pearson,
     /// pearson-yates, fisher.
-    #[arg(long, default_value = "auto", value_name = "auto|pearson|pearson-yates|fisher")]
+    #[arg(
+        long,
+        default_value = "auto",
+        value_name = "auto|pearson|pearson-yates|fisher"
+    )]
     pub pairwise: PairwiseChoice,
     /// Adjustment of pairwise p-values: holm, bonferroni, hochberg, bh (Benjamini-Hochberg).
-    #[arg(long, default_value = "holm", value_name = "holm|bonferroni|hochberg|bh")]
+    #[arg(
+        long,
+        default_value = "holm",
+        value_name = "holm|bonferroni|hochberg|bh"
+    )]
     pub adjust: AdjustChoice,
     /// Monte Carlo resamples for exact conditional p-values (100 to 1000000).
     #[arg(long, value_name = "N", default_value_t = DEFAULT_RESAMPLES)]
@@ -76,7 +84,10 @@ pub fn run(args: &AnalyzeArgs) -> ExitCode {
     match analyze(args) {
         Ok(out) => {
             let mut stdout = std::io::stdout().lock();
-            match stdout.write_all(out.as_bytes()).and_then(|()| stdout.flush()) {
+            match stdout
+                .write_all(out.as_bytes())
+                .and_then(|()| stdout.flush())
+            {
                 Ok(()) => ExitCode::SUCCESS,
                 Err(e) => {
                     eprintln!("dispar analyze: cannot write the output: {e}");
@@ -104,22 +115,41 @@ pub fn analyze(args: &AnalyzeArgs) -> Result<String, String> {
     .map_err(|e| {
         e.errors()
             .iter()
-            .map(|f| format!("dispar analyze: --{}: {}", f.field.replace('_', "-"), f.message))
+            .map(|f| {
+                format!(
+                    "dispar analyze: --{}: {}",
+                    f.field.replace('_', "-"),
+                    f.message
+                )
+            })
             .collect::<Vec<_>>()
             .join("\n")
     })?;
-    let name = if args.file == "-" { "<stdin>" } else { args.file.as_str() };
-    let bytes = read_input(&args.file).map_err(|e| format!("dispar analyze: cannot read {name}: {e}"))?;
+    let name = if args.file == "-" {
+        "<stdin>"
+    } else {
+        args.file.as_str()
+    };
+    let bytes =
+        read_input(&args.file).map_err(|e| format!("dispar analyze: cannot read {name}: {e}"))?;
     let rows = read_rows(&bytes).map_err(|e| prefix_errors(name, &e))?;
     let json = args.format == Format::Json;
     if args.table {
         let table = tabular::parse_table(&rows).map_err(|e| prefix_errors(name, &e))?;
         let report = analyze_table(&params, &table);
-        Ok(if json { to_json(&report)? } else { report.to_text() })
+        Ok(if json {
+            to_json(&report)?
+        } else {
+            report.to_text()
+        })
     } else {
         let groups = tabular::parse_rates(&rows).map_err(|e| prefix_errors(name, &e))?;
         let report = analyze_rates(&params, &groups);
-        Ok(if json { to_json(&report)? } else { report.to_text() })
+        Ok(if json {
+            to_json(&report)?
+        } else {
+            report.to_text()
+        })
     }
 }
 

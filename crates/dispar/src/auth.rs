@@ -208,7 +208,8 @@ fn unauthorized(detail: &str, key_sent: bool) -> ApiError {
     } else {
         "Bearer realm=\"dispar\""
     };
-    ApiError::new(ProblemKind::Unauthorized, detail).with_header(header::WWW_AUTHENTICATE, challenge)
+    ApiError::new(ProblemKind::Unauthorized, detail)
+        .with_header(header::WWW_AUTHENTICATE, challenge)
 }
 
 /// The bearer token of a request, if it has an `Authorization: Bearer` header.
@@ -244,7 +245,11 @@ impl FromRequestParts<AppState> for Caller {
         let Some(parsed) = parse_token(token) else {
             return Err(unauthorized("The API key is malformed.", true));
         };
-        let key = state.store().find_key(parsed.id).await.map_err(crate::store_error)?;
+        let key = state
+            .store()
+            .find_key(parsed.id)
+            .await
+            .map_err(crate::store_error)?;
         let Some(key) = key else {
             return Err(unauthorized("The API key is not valid.", true));
         };

@@ -17,8 +17,8 @@
 pub mod csv_batch;
 
 use axum::extract::{Path, State};
-use axum::http::header::{self, HeaderMap, HeaderName, HeaderValue};
 use axum::http::StatusCode;
+use axum::http::header::{self, HeaderMap, HeaderName, HeaderValue};
 use axum::response::{IntoResponse, Response};
 use axum::routing::{get, post, put};
 use axum::{Json, Router};
@@ -27,15 +27,15 @@ use dispar_core::date::{format_date, parse_date_field};
 use dispar_core::error::{FieldError, ValidationError};
 use dispar_core::record::{CountRecord, CountRecordInput, CountsInput, RecordKey};
 use dispar_store::{
-    BatchOutcome, BatchResult, CountFilter, Idempotency, RecordError, RecordProblem, StoreError,
-    StoredAnswer, StoredRecord, WriteOutcome, WriteStatus, MAX_PAGE,
+    BatchOutcome, BatchResult, CountFilter, Idempotency, MAX_PAGE, RecordError, RecordProblem,
+    StoreError, StoredAnswer, StoredRecord, WriteOutcome, WriteStatus,
 };
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
 use crate::auth::Caller;
-use crate::error::{validation_with_params, ApiError, ErrorItem, ProblemKind, Result};
-use crate::extract::{from_value, parse_json, unsupported, ApiQuery, Body, MediaType};
+use crate::error::{ApiError, ErrorItem, ProblemKind, Result, validation_with_params};
+use crate::extract::{ApiQuery, Body, MediaType, from_value, parse_json, unsupported};
 use crate::state::AppState;
 
 /// The header that makes a batch idempotent.
@@ -206,11 +206,20 @@ fn day_path(key: &RecordKey) -> String {
 /// The natural key from path parameters and `product`; errors name the parameter.
 fn key_from_params(site: &str, line: &str, date: &str, product: Option<&str>) -> Result<RecordKey> {
     let mut errors = Vec::new();
-    let site = SiteCode::parse_field(site, "site").map_err(|e| errors.push(e)).ok();
-    let line = LineCode::parse_field(line, "line").map_err(|e| errors.push(e)).ok();
-    let date = parse_date_field(date, "date").map_err(|e| errors.push(e)).ok();
+    let site = SiteCode::parse_field(site, "site")
+        .map_err(|e| errors.push(e))
+        .ok();
+    let line = LineCode::parse_field(line, "line")
+        .map_err(|e| errors.push(e))
+        .ok();
+    let date = parse_date_field(date, "date")
+        .map_err(|e| errors.push(e))
+        .ok();
     let product = match product {
-        Some(p) => ProductCode::parse_field(p, "product").map(Some).map_err(|e| errors.push(e)).ok(),
+        Some(p) => ProductCode::parse_field(p, "product")
+            .map(Some)
+            .map_err(|e| errors.push(e))
+            .ok(),
         None => Some(None),
     };
     match (site, line, date, product) {
@@ -239,7 +248,12 @@ async fn get_day(
 ) -> Result<Json<StoredView>> {
     caller.require_read_site(&site)?;
     let key = key_from_params(&site, &line, &date, query.product.as_deref())?;
-    match state.store().get_record(&key).await.map_err(crate::store_error)? {
+    match state
+        .store()
+        .get_record(&key)
+        .await
+        .map_err(crate::store_error)?
+    {
         Some(stored) => Ok(Json(StoredView::from(&stored))),
         None => Err(ApiError::not_found(format!("There is no record at {key}."))),
     }
@@ -270,7 +284,11 @@ async fn revisions(
 ) -> Result<Json<History>> {
     caller.require_read_site(&site)?;
     let key = key_from_params(&site, &line, &date, query.product.as_deref())?;
-    let history = state.store().record_history(&key).await.map_err(crate::store_error)?;
+    let history = state
+        .store()
+        .record_history(&key)
+        .await
+        .map_err(crate::store_error)?;
     if history.is_empty() {
         return Err(ApiError::not_found(format!("There is no record at {key}.")));
     }
@@ -326,14 +344,25 @@ async fn list_counts(
         r.map_err(|e| errors.push(e)).ok()
     }
     let e = &mut errors;
-    let site = q.site.as_deref().and_then(|s| take(e, SiteCode::parse_field(s, "site")));
-    let line = q.line.as_deref().and_then(|s| take(e, LineCode::parse_field(s, "line")));
+    let site = q
+        .site
+        .as_deref()
+        .and_then(|s| take(e, SiteCode::parse_field(s, "site")));
+    let line = q
+        .line
+        .as_deref()
+        .and_then(|s| take(e, LineCode::parse_field(s, "line")));
     let product = q
         .product
         .as_deref()
         .and_then(|s| take(e, ProductCode::parse_field(s, "product")));
-    let from = q.from.as_deref().and_then(|s| take(e, parse_date_field(s, "from")));
-    let to = q.to.as_deref().and_then(|s| take(e, parse_date_field(s, "to")));
+    let from = q
+        .from
+        .as_deref()
+        .and_then(|s| take(e, parse_date_field(s, "from")));
+    let to =
+        q.to.as_deref()
+            .and_then(|s| take(e, parse_date_field(s, "to")));
     let limit = match q.limit.as_deref() {
         None => Some(DEFAULT_PAGE),
         Some(s) => take(e, parse_limit(s)),
@@ -344,7 +373,11 @@ async fn list_counts(
         errors.push(FieldError::new(
             "to",
             "before_from",
-            format!("to ({}) is before from ({})", format_date(t), format_date(f)),
+            format!(
+                "to ({}) is before from ({})",
+                format_date(t),
+                format_date(f)
+            ),
         ));
     }
     if !errors.is_empty() {
@@ -379,7 +412,8 @@ async fn list_counts(
     })
     .into_response();
     if let Some(cursor) = &page.next_cursor
-        && let Ok(v) = HeaderValue::from_str(&format!("<{}>; rel=\"next\"", next_link(&q, cursor, limit)))
+        && let Ok(v) =
+            HeaderValue::from_str(&format!("<{}>; rel=\"next\"", next_link(&q, cursor, limit)))
     {
         response.headers_mut().insert(header::LINK, v);
     }
@@ -460,7 +494,9 @@ pub fn record_errors(e: StoreError, place: &Place) -> ApiError {
         .iter()
         .all(|r| matches!(r.problem, RecordProblem::Conflict { .. }));
     let first_conflict = list.iter().find_map(|r| match r.problem {
-        RecordProblem::Conflict { current_revision, .. } => Some(current_revision),
+        RecordProblem::Conflict {
+            current_revision, ..
+        } => Some(current_revision),
         _ => None,
     });
     let items: Vec<ErrorItem> = list
@@ -546,13 +582,15 @@ struct RawBatch {
 /// Reads a JSON batch into raw records, reporting every record's shape errors.
 fn json_records(bytes: &[u8], max: usize) -> Result<Vec<CountRecordInput>> {
     let raw: RawBatch = parse_json(bytes)?;
-    check_batch_size(raw.records.len(), max, || ErrorItem::pointer("/records", "", ""))?;
+    check_batch_size(raw.records.len(), max, || {
+        ErrorItem::pointer("/records", "", "")
+    })?;
     let mut out = Vec::with_capacity(raw.records.len());
     let mut errors = Vec::new();
     for (i, value) in raw.records.into_iter().enumerate() {
         match from_value::<CountRecordInput>(value, &format!("/records/{i}")) {
             Ok(r) => out.push(r),
-            Err(item) => errors.push(item),
+            Err(item) => errors.push(*item),
         }
     }
     if errors.is_empty() {
@@ -572,14 +610,20 @@ fn check_batch_size(n: usize, max: usize, at: impl Fn() -> ErrorItem) -> Result<
     let (reason, message) = if n == 0 {
         ("empty", "the batch holds no records".to_owned())
     } else if n > max {
-        ("too_many", format!("the batch holds {n} records; at most {max} are accepted per request"))
+        (
+            "too_many",
+            format!("the batch holds {n} records; at most {max} are accepted per request"),
+        )
     } else {
         return Ok(());
     };
     let mut item = at();
     item.reason = reason.into();
     item.message = message.clone();
-    Err(ApiError::validation(format!("{}.", capitalise(&message)), vec![item]))
+    Err(ApiError::validation(
+        format!("{}.", capitalise(&message)),
+        vec![item],
+    ))
 }
 
 fn capitalise(s: &str) -> String {
@@ -598,7 +642,11 @@ fn idempotency_key(headers: &HeaderMap) -> Result<Option<String>> {
     let bad = |message: &str| {
         ApiError::validation(
             "The Idempotency-Key header is invalid.",
-            vec![ErrorItem::header("idempotency-key", "invalid_value", message)],
+            vec![ErrorItem::header(
+                "idempotency-key",
+                "invalid_value",
+                message,
+            )],
         )
     };
     let text = value
@@ -651,7 +699,10 @@ fn answer_response(answer: StoredAnswer, replayed: bool) -> Response {
     let status = StatusCode::from_u16(answer.status).unwrap_or(StatusCode::OK);
     let mut response = (status, answer.body).into_response();
     let headers = response.headers_mut();
-    headers.insert(header::CONTENT_TYPE, HeaderValue::from_static("application/json"));
+    headers.insert(
+        header::CONTENT_TYPE,
+        HeaderValue::from_static("application/json"),
+    );
     if replayed {
         headers.insert(IDEMPOTENT_REPLAYED, HeaderValue::from_static("true"));
     }
@@ -702,14 +753,19 @@ async fn post_batch(
         MediaType::Json => (json_records(&body.bytes, max)?, Place::Json),
         MediaType::Csv => {
             let parsed = csv_batch::parse(&body.bytes, max)?;
-            (parsed.records, Place::Csv { lines: parsed.lines })
+            (
+                parsed.records,
+                Place::Csv {
+                    lines: parsed.lines,
+                },
+            )
         }
     };
     authorize_sites(&caller, &inputs)?;
     let records = match &place {
-        Place::Csv { lines } => {
-            dispar_core::record::check_rows(inputs, |i| lines.get(i).copied().unwrap_or(0).to_string())
-        }
+        Place::Csv { lines } => dispar_core::record::check_rows(inputs, |i| {
+            lines.get(i).copied().unwrap_or(0).to_string()
+        }),
         _ => dispar_core::record::check_batch(inputs),
     }
     .map_err(|e| batch_validation(e, &place))?;

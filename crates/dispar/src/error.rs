@@ -16,8 +16,8 @@
 use std::borrow::Cow;
 use std::fmt;
 
-use axum::http::header::{self, HeaderName, HeaderValue};
 use axum::http::StatusCode;
+use axum::http::header::{self, HeaderName, HeaderValue};
 use axum::response::{IntoResponse, Response};
 use serde::Serialize;
 
@@ -155,9 +155,7 @@ impl ProblemKind {
             ProblemKind::MalformedBody => {
                 "The request body could not be read as the declared media type (for example a JSON syntax error or a CSV file whose rows have the wrong number of fields). Nothing was written. Fix the body and send it again."
             }
-            ProblemKind::BadRequest => {
-                "The request could not be understood. Nothing was written."
-            }
+            ProblemKind::BadRequest => "The request could not be understood. Nothing was written.",
             ProblemKind::Unauthorized => {
                 "The request has no `Authorization: Bearer <key>` header, or the key is unknown, malformed or revoked. Keys are created with `dispar keys create`."
             }
@@ -341,7 +339,13 @@ impl fmt::Debug for ApiError {
 
 impl fmt::Display for ApiError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(f, "{} ({}): {}", self.kind.title(), self.kind.status(), self.detail)
+        write!(
+            f,
+            "{} ({}): {}",
+            self.kind.title(),
+            self.kind.status(),
+            self.detail
+        )
     }
 }
 
@@ -370,8 +374,10 @@ impl ApiError {
 
     /// 403 with the reason.
     pub fn forbidden(detail: impl Into<String>) -> Self {
-        Self::new(ProblemKind::Forbidden, detail)
-            .with_header(header::WWW_AUTHENTICATE, "Bearer realm=\"dispar\", error=\"insufficient_scope\"")
+        Self::new(ProblemKind::Forbidden, detail).with_header(
+            header::WWW_AUTHENTICATE,
+            "Bearer realm=\"dispar\", error=\"insufficient_scope\"",
+        )
     }
 
     /// 500; `cause` is logged, never shown.
@@ -423,7 +429,10 @@ impl ApiError {
 
     /// Records the underlying cause (logged for 5xx, otherwise at debug level).
     #[must_use]
-    pub fn with_cause(mut self, cause: impl Into<Box<dyn std::error::Error + Send + Sync>>) -> Self {
+    pub fn with_cause(
+        mut self,
+        cause: impl Into<Box<dyn std::error::Error + Send + Sync>>,
+    ) -> Self {
         self.cause = Some(cause.into());
         self
     }
@@ -478,8 +487,12 @@ impl IntoResponse for ApiError {
         let status = self.kind.status();
         if status.is_server_error() {
             match &self.cause {
-                Some(cause) => tracing::error!(problem = self.kind.slug(), error = %cause, "request failed"),
-                None => tracing::warn!(problem = self.kind.slug(), detail = %self.detail, "request failed"),
+                Some(cause) => {
+                    tracing::error!(problem = self.kind.slug(), error = %cause, "request failed")
+                }
+                None => {
+                    tracing::warn!(problem = self.kind.slug(), detail = %self.detail, "request failed")
+                }
             }
         } else if let Some(cause) = &self.cause {
             tracing::debug!(problem = self.kind.slug(), error = %cause, "request refused");
@@ -498,7 +511,11 @@ impl IntoResponse for ApiError {
 impl From<dispar_core::error::ValidationError> for ApiError {
     /// Field errors of a JSON body; the core's field paths become JSON pointers.
     fn from(e: dispar_core::error::ValidationError) -> Self {
-        let errors = e.into_errors().into_iter().map(field_error_to_pointer).collect();
+        let errors = e
+            .into_errors()
+            .into_iter()
+            .map(field_error_to_pointer)
+            .collect();
         ApiError::validation("The request body has invalid fields.", errors)
     }
 }
@@ -550,7 +567,13 @@ mod tests {
     fn every_kind_has_a_distinct_slug_and_round_trips() {
         for k in ProblemKind::ALL {
             assert_eq!(ProblemKind::from_slug(k.slug()), Some(k), "{k:?}");
-            assert_eq!(ProblemKind::ALL.iter().filter(|o| o.slug() == k.slug()).count(), 1);
+            assert_eq!(
+                ProblemKind::ALL
+                    .iter()
+                    .filter(|o| o.slug() == k.slug())
+                    .count(),
+                1
+            );
         }
     }
 
@@ -558,7 +581,11 @@ mod tests {
     fn a_problem_body_has_the_rfc_9457_members_and_an_errors_array() {
         let e = ApiError::validation(
             "bad",
-            vec![ErrorItem::pointer("/records/3/defective", "exceeds_inspected", "too many")],
+            vec![ErrorItem::pointer(
+                "/records/3/defective",
+                "exceeds_inspected",
+                "too many",
+            )],
         )
         .with_extension("current_revision", 4);
         let b = e.body();

@@ -79,8 +79,11 @@ impl<S: Send + Sync> FromRequest<S> for Body {
             if rejection.status() == axum::http::StatusCode::PAYLOAD_TOO_LARGE {
                 too_large()
             } else {
-                ApiError::new(ProblemKind::BadRequest, "The request body could not be read.")
-                    .with_cause(rejection.body_text())
+                ApiError::new(
+                    ProblemKind::BadRequest,
+                    "The request body could not be read.",
+                )
+                .with_cause(rejection.body_text())
             }
         })?;
         Ok(Body {
@@ -95,7 +98,10 @@ impl Body {
     /// The body as JSON of type `T` (415 if it is not declared JSON).
     pub fn json<T: DeserializeOwned>(&self) -> Result<T, ApiError> {
         if self.media_type != Some(MediaType::Json) {
-            return Err(unsupported(self.content_type.as_deref(), "application/json"));
+            return Err(unsupported(
+                self.content_type.as_deref(),
+                "application/json",
+            ));
         }
         parse_json(&self.bytes)
     }
@@ -107,7 +113,10 @@ pub fn too_large() -> ApiError {
         ProblemKind::PayloadTooLarge,
         "The request body is larger than this server accepts; send smaller batches.",
     )
-    .with_error(ErrorItem::general("too_large", "the body exceeds the size limit"))
+    .with_error(ErrorItem::general(
+        "too_large",
+        "the body exceeds the size limit",
+    ))
 }
 
 /// The 415 problem for an endpoint taking the given media types.
@@ -142,7 +151,15 @@ pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
     let mut de = serde_json::Deserializer::from_slice(bytes);
     let value = serde_path_to_error::deserialize(&mut de).map_err(|e| {
         let pointer = pointer_of(e.path());
-        json_error(pointer, e.into_inner())
+        let inner = e.into_inner();
+        // serde stops at the first problem, which may be a field error early in a body
+        // that is not JSON at all further on; a body that is not JSON is 400 first.
+        if inner.classify() == serde_json::error::Category::Data
+            && let Err(syntax) = serde_json::from_slice::<serde::de::IgnoredAny>(bytes)
+        {
+            return json_error(String::new(), syntax);
+        }
+        json_error(pointer, inner)
     })?;
     de.end().map_err(|e| json_error(String::new(), e))?;
     Ok(value)
@@ -152,10 +169,10 @@ pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
 pub fn from_value<T: DeserializeOwned>(
     value: serde_json::Value,
     prefix: &str,
-) -> Result<T, ErrorItem> {
+) -> Result<T, Box<ErrorItem>> {
     serde_path_to_error::deserialize(value).map_err(|e| {
         let pointer = format!("{prefix}{}", pointer_of(e.path()));
-        data_error_item(pointer, &e.into_inner())
+        Box::new(data_error_item(pointer, &e.into_inner()))
     })
 }
 
@@ -189,8 +206,11 @@ fn json_error(pointer: String, e: serde_json::Error) -> ApiError {
                 e.column(),
                 strip_position(&e.to_string())
             );
-            ApiError::new(ProblemKind::MalformedBody, "The request body is not valid JSON.")
-                .with_error(ErrorItem::pointer(pointer, "invalid_json", message))
+            ApiError::new(
+                ProblemKind::MalformedBody,
+                "The request body is not valid JSON.",
+            )
+            .with_error(ErrorItem::pointer(pointer, "invalid_json", message))
         }
         Category::Data => {
             let item = data_error_item(pointer, &e);
@@ -214,7 +234,11 @@ fn data_error_item(pointer: String, e: &serde_json::Error) -> ErrorItem {
     let message = strip_position(&text).to_owned();
     if let Some(field) = backticked_after(&message, "unknown field ") {
         let pointer = append_field(&pointer, &field);
-        return ErrorItem::pointer(pointer, "unknown_field", format!("{field:?} is not a field here ({message})"));
+        return ErrorItem::pointer(
+            pointer,
+            "unknown_field",
+            format!("{field:?} is not a field here ({message})"),
+        );
     }
     if let Some(field) = backticked_after(&message, "missing field ") {
         let pointer = append_field(&pointer, &field);
@@ -261,19 +285,21 @@ impl<S: Send + Sync, T: DeserializeOwned> FromRequestParts<S> for ApiQuery<T> {
         let query = parts.uri.query().unwrap_or("");
         // Query types in this crate hold strings and parse values themselves, so the
         // only errors here are unknown, repeated or undecodable parameters.
-        serde_urlencoded::from_str(query).map(ApiQuery).map_err(|e| {
-            let message = e.to_string();
-            let item = if let Some(field) = backticked_after(&message, "unknown field ") {
-                ErrorItem::parameter(field, "unknown_parameter", message)
-            } else if let Some(field) = backticked_after(&message, "duplicate field ") {
-                ErrorItem::parameter(field, "duplicate", message)
-            } else if let Some(field) = backticked_after(&message, "missing field ") {
-                ErrorItem::parameter(field, "required", message)
-            } else {
-                ErrorItem::general("invalid_query", message)
-            };
-            ApiError::validation("The query string has invalid parameters.", vec![item])
-        })
+        serde_urlencoded::from_str(query)
+            .map(ApiQuery)
+            .map_err(|e| {
+                let message = e.to_string();
+                let item = if let Some(field) = backticked_after(&message, "unknown field ") {
+                    ErrorItem::parameter(field, "unknown_parameter", message)
+                } else if let Some(field) = backticked_after(&message, "duplicate field ") {
+                    ErrorItem::parameter(field, "duplicate", message)
+                } else if let Some(field) = backticked_after(&message, "missing field ") {
+                    ErrorItem::parameter(field, "required", message)
+                } else {
+                    ErrorItem::general("invalid_query", message)
+                };
+                ApiError::validation("The query string has invalid parameters.", vec![item])
+            })
     }
 }
 
@@ -306,7 +332,9 @@ mod tests {
 
     #[test]
     fn unknown_fields_are_named_by_pointer() {
-        let e = err::<Batch>(r#"{"records":[{"inspected":1,"defective":0},{"inspected":1,"defective":0,"colour":"red"}]}"#);
+        let e = err::<Batch>(
+            r#"{"records":[{"inspected":1,"defective":0},{"inspected":1,"defective":0,"colour":"red"}]}"#,
+        );
         assert_eq!(e.status().as_u16(), 422);
         assert_eq!(e.errors()[0].pointer.as_deref(), Some("/records/1/colour"));
         assert_eq!(e.errors()[0].reason, "unknown_field");
@@ -315,10 +343,16 @@ mod tests {
     #[test]
     fn missing_fields_and_wrong_types_are_named_by_pointer() {
         let e = err::<Batch>(r#"{"records":[{"inspected":1}]}"#);
-        assert_eq!(e.errors()[0].pointer.as_deref(), Some("/records/0/defective"));
+        assert_eq!(
+            e.errors()[0].pointer.as_deref(),
+            Some("/records/0/defective")
+        );
         assert_eq!(e.errors()[0].reason, "required");
         let e = err::<Batch>(r#"{"records":[{"inspected":"many","defective":0}]}"#);
-        assert_eq!(e.errors()[0].pointer.as_deref(), Some("/records/0/inspected"));
+        assert_eq!(
+            e.errors()[0].pointer.as_deref(),
+            Some("/records/0/inspected")
+        );
         assert_eq!(e.errors()[0].reason, "invalid_type");
     }
 
@@ -335,9 +369,18 @@ mod tests {
     #[test]
     fn media_types_are_read_with_parameters() {
         assert_eq!(media_type("application/json"), Some(MediaType::Json));
-        assert_eq!(media_type("application/json; charset=utf-8"), Some(MediaType::Json));
-        assert_eq!(media_type("Application/Merge-Patch+JSON"), Some(MediaType::Json));
-        assert_eq!(media_type("text/csv; charset=UTF-8; header=present"), Some(MediaType::Csv));
+        assert_eq!(
+            media_type("application/json; charset=utf-8"),
+            Some(MediaType::Json)
+        );
+        assert_eq!(
+            media_type("Application/Merge-Patch+JSON"),
+            Some(MediaType::Json)
+        );
+        assert_eq!(
+            media_type("text/csv; charset=UTF-8; header=present"),
+            Some(MediaType::Csv)
+        );
         assert_eq!(media_type("text/csv; charset=latin1"), None);
         assert_eq!(media_type("text/plain"), None);
     }

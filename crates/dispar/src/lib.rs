@@ -19,17 +19,17 @@ pub mod telemetry;
 
 use std::future::Future;
 
+use axum::Router;
 use axum::extract::{DefaultBodyLimit, MatchedPath};
 use axum::http::Request;
 use axum::middleware::{from_fn, from_fn_with_state};
-use axum::Router;
 use dispar_store::StoreError;
 use tokio::net::TcpListener;
 use tower::limit::GlobalConcurrencyLimitLayer;
+use tower_http::LatencyUnit;
 use tower_http::catch_panic::CatchPanicLayer;
 use tower_http::request_id::{MakeRequestUuid, PropagateRequestIdLayer, SetRequestIdLayer};
 use tower_http::trace::{DefaultOnResponse, TraceLayer};
-use tower_http::LatencyUnit;
 
 pub use crate::error::{ApiError, Result};
 pub use crate::state::{AppState, Limits};

@@ -61,7 +61,11 @@ enum DemoCommand {
 #[derive(Clone, Args)]
 struct DatabaseArgs {
     /// Database URL: `sqlite:PATH` (or a plain path). Created and migrated if missing.
-    #[arg(long = "database", env = "DATABASE_URL", default_value = "sqlite:dispar.db")]
+    #[arg(
+        long = "database",
+        env = "DATABASE_URL",
+        default_value = "sqlite:dispar.db"
+    )]
     url: String,
 }
 
@@ -84,7 +88,11 @@ fn redact_url(url: &str) -> String {
     match authority.rsplit_once('@') {
         Some((userinfo, host)) => {
             let user = userinfo.split_once(':').map_or(userinfo, |(u, _)| u);
-            let masked = if userinfo.contains(':') { format!("{user}:***") } else { user.to_owned() };
+            let masked = if userinfo.contains(':') {
+                format!("{user}:***")
+            } else {
+                user.to_owned()
+            };
             format!("{scheme}://{masked}@{host}{}", &rest[authority_end..])
         }
         None => url.to_owned(),
@@ -273,11 +281,14 @@ async fn keys(cmd: KeysCommand) -> CliResult {
                     return Err("an ingest key needs at least one --site".to_owned());
                 }
                 (KeyRole::Read | KeyRole::Admin, false) => {
-                    return Err(format!("--site applies to ingest keys only; a {role} key covers every site"));
+                    return Err(format!(
+                        "--site applies to ingest keys only; a {role} key covers every site"
+                    ));
                 }
                 _ => {}
             }
-            let secret = dispar::auth::new_secret().map_err(|e| format!("no randomness available: {e}"))?;
+            let secret =
+                dispar::auth::new_secret().map_err(|e| format!("no randomness available: {e}"))?;
             let store = open(&database).await?;
             let id = store
                 .create_key(role, &sites, label.as_deref(), &secret.hash)
@@ -289,7 +300,11 @@ async fn keys(cmd: KeysCommand) -> CliResult {
             let sites_text = if sites.is_empty() {
                 "all sites".to_owned()
             } else {
-                sites.iter().map(SiteCode::as_str).collect::<Vec<_>>().join(", ")
+                sites
+                    .iter()
+                    .map(SiteCode::as_str)
+                    .collect::<Vec<_>>()
+                    .join(", ")
             };
             eprintln!(
                 "created key {id}: role {role}, {sites_text}{}. The token above is shown only now; keep it secret.",
@@ -299,19 +314,29 @@ async fn keys(cmd: KeysCommand) -> CliResult {
         }
         KeysCommand::List { database } => {
             let store = open(&database).await?;
-            let keys = store.list_keys().await.map_err(|e| format!("cannot list keys: {e}"));
+            let keys = store
+                .list_keys()
+                .await
+                .map_err(|e| format!("cannot list keys: {e}"));
             store.close().await;
             let keys = keys?;
             let fmt = |t: time::OffsetDateTime| {
                 t.format(&time::format_description::well_known::Rfc3339)
                     .unwrap_or_default()
             };
-            println!("{:>5}  {:<6}  {:<8}  {:<25}  {:<20}  label", "id", "role", "status", "created", "sites");
+            println!(
+                "{:>5}  {:<6}  {:<8}  {:<25}  {:<20}  label",
+                "id", "role", "status", "created", "sites"
+            );
             for k in keys {
                 let sites = if k.sites.is_empty() {
                     "*".to_owned()
                 } else {
-                    k.sites.iter().map(SiteCode::as_str).collect::<Vec<_>>().join(",")
+                    k.sites
+                        .iter()
+                        .map(SiteCode::as_str)
+                        .collect::<Vec<_>>()
+                        .join(",")
                 };
                 let status = match k.revoked_at {
                     Some(_) => "revoked",
@@ -338,7 +363,9 @@ async fn keys(cmd: KeysCommand) -> CliResult {
                     eprintln!("revoked key {id}");
                     Ok(())
                 }
-                Err(dispar_store::StoreError::NotFound { .. }) => Err(format!("there is no key {id}")),
+                Err(dispar_store::StoreError::NotFound { .. }) => {
+                    Err(format!("there is no key {id}"))
+                }
                 Err(e) => Err(format!("cannot revoke key {id}: {e}")),
             }
         }

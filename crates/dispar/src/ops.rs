@@ -13,16 +13,16 @@
 use std::sync::OnceLock;
 use std::time::{Duration, Instant};
 
+use axum::Router;
 use axum::extract::{MatchedPath, Path, Request, State};
 use axum::http::header::{self, HeaderValue};
 use axum::http::{Method, StatusCode};
 use axum::middleware::Next;
 use axum::response::{Html, IntoResponse, Response};
 use axum::routing::get;
-use axum::Router;
 use metrics_exporter_prometheus::{Matcher, PrometheusBuilder, PrometheusHandle};
 
-use crate::error::{ApiError, ProblemKind, PROBLEM_JSON};
+use crate::error::{ApiError, PROBLEM_JSON, ProblemKind};
 use crate::state::AppState;
 
 /// Counter of requests.
@@ -76,7 +76,11 @@ pub fn metrics_handle() -> PrometheusHandle {
 
 /// Counts records of a committed write.
 pub fn count_records(created: usize, corrected: usize, unchanged: usize) {
-    for (outcome, n) in [("created", created), ("corrected", corrected), ("unchanged", unchanged)] {
+    for (outcome, n) in [
+        ("created", created),
+        ("corrected", corrected),
+        ("unchanged", unchanged),
+    ] {
         if n > 0 {
             metrics::counter!(RECORDS_WRITTEN, "outcome" => outcome).increment(n as u64);
         }
@@ -110,14 +114,20 @@ async fn readyz(State(state): State<AppState>) -> Result<impl IntoResponse, ApiE
         }
         Err(_) => {
             tracing::warn!("readiness check: database ping timed out");
-            Err(ApiError::unavailable("The database does not answer in time.", 5))
+            Err(ApiError::unavailable(
+                "The database does not answer in time.",
+                5,
+            ))
         }
     }
 }
 
 async fn render_metrics(State(state): State<AppState>) -> impl IntoResponse {
     (
-        [(header::CONTENT_TYPE, HeaderValue::from_static("text/plain; version=0.0.4; charset=utf-8"))],
+        [(
+            header::CONTENT_TYPE,
+            HeaderValue::from_static("text/plain; version=0.0.4; charset=utf-8"),
+        )],
         state.metrics().render(),
     )
 }
@@ -125,7 +135,9 @@ async fn render_metrics(State(state): State<AppState>) -> impl IntoResponse {
 /// A short HTML page describing a problem type.
 async fn problem_page(Path(slug): Path<String>) -> Result<Html<String>, ApiError> {
     let Some(kind) = ProblemKind::from_slug(&slug) else {
-        return Err(ApiError::not_found(format!("There is no problem type {slug:?}.")));
+        return Err(ApiError::not_found(format!(
+            "There is no problem type {slug:?}."
+        )));
     };
     Ok(Html(format!(
         "<!doctype html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{title}</title></head>\n<body><h1>{title}</h1><p>HTTP status {status}. Problem type <code>{uri}</code>.</p><p>{text}</p></body></html>\n",
@@ -137,7 +149,9 @@ async fn problem_page(Path(slug): Path<String>) -> Result<Html<String>, ApiError
 }
 
 fn escape_html(s: &str) -> String {
-    s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;")
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
 }
 
 /// Fallback for unknown paths: 404 problem.
@@ -200,8 +214,12 @@ pub async fn problem_bodies(request: Request, next: Next) -> Response {
     }
     let kind = ProblemKind::for_status(status);
     let detail = match status {
-        StatusCode::METHOD_NOT_ALLOWED => "This path does not take this method; see the Allow header.".to_owned(),
-        s if s.is_server_error() => "The server failed to handle the request; the cause is in the server log.".to_owned(),
+        StatusCode::METHOD_NOT_ALLOWED => {
+            "This path does not take this method; see the Allow header.".to_owned()
+        }
+        s if s.is_server_error() => {
+            "The server failed to handle the request; the cause is in the server log.".to_owned()
+        }
         s => s.canonical_reason().unwrap_or("Request refused").to_owned(),
     };
     let mut body = ApiError::new(kind, detail).body();
@@ -212,5 +230,8 @@ pub async fn problem_bodies(request: Request, next: Next) -> Response {
     parts
         .headers
         .insert(header::CONTENT_TYPE, HeaderValue::from_static(PROBLEM_JSON));
-    Response::from_parts(parts, axum::body::Body::from(serde_json::to_vec(&body).unwrap_or_default()))
+    Response::from_parts(
+        parts,
+        axum::body::Body::from(serde_json::to_vec(&body).unwrap_or_default()),
+    )
 }

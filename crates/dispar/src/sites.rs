@@ -7,8 +7,8 @@
 //! `updated`, `unchanged`).
 
 use axum::extract::{Path, State};
-use axum::http::header::{self, HeaderValue};
 use axum::http::StatusCode;
+use axum::http::header::{self, HeaderValue};
 use axum::response::{IntoResponse, Response};
 use axum::routing::{get, put};
 use axum::{Json, Router};
@@ -18,7 +18,7 @@ use dispar_store::{StoreError, Upserted};
 use serde::Serialize;
 
 use crate::auth::Caller;
-use crate::error::{validation_with_params, ApiError, ErrorItem, Result};
+use crate::error::{ApiError, ErrorItem, Result, validation_with_params};
 use crate::extract::Body;
 use crate::state::AppState;
 
@@ -116,7 +116,11 @@ async fn put_site(
     caller.require_admin()?;
     let input: SiteInput = body.json()?;
     let site = Site::from_input(&code, input).map_err(|e| validation_with_params(e, &["site"]))?;
-    let outcome = state.store().upsert_site(&site).await.map_err(crate::store_error)?;
+    let outcome = state
+        .store()
+        .upsert_site(&site)
+        .await
+        .map_err(crate::store_error)?;
     tracing::info!(site = %site.code, outcome = outcome_word(outcome), "site written");
     Ok(upsert_response(
         outcome,
@@ -135,13 +139,23 @@ async fn put_line(
     let input: LineInput = body.json()?;
     let line = Line::from_input(&site, &line, input)
         .map_err(|e| validation_with_params(e, &["site", "line"]))?;
-    let outcome = state.store().upsert_line(&line).await.map_err(|e| match e {
-        StoreError::UnknownSite { site } => ApiError::validation(
-            format!("Site {site} is not registered; register it with PUT /v1/sites/{site} first."),
-            vec![ErrorItem::parameter("site", "unknown_site", format!("site {site} is not registered"))],
-        ),
-        other => crate::store_error(other),
-    })?;
+    let outcome = state
+        .store()
+        .upsert_line(&line)
+        .await
+        .map_err(|e| match e {
+            StoreError::UnknownSite { site } => ApiError::validation(
+                format!(
+                    "Site {site} is not registered; register it with PUT /v1/sites/{site} first."
+                ),
+                vec![ErrorItem::parameter(
+                    "site",
+                    "unknown_site",
+                    format!("site {site} is not registered"),
+                )],
+            ),
+            other => crate::store_error(other),
+        })?;
     tracing::info!(site = %line.site, line = %line.code, outcome = outcome_word(outcome), "line written");
     Ok(upsert_response(
         outcome,
@@ -157,7 +171,11 @@ struct SiteList {
 
 async fn list_sites(State(state): State<AppState>, caller: Caller) -> Result<Json<SiteList>> {
     caller.require_read_all()?;
-    let sites = state.store().list_sites().await.map_err(crate::store_error)?;
+    let sites = state
+        .store()
+        .list_sites()
+        .await
+        .map_err(crate::store_error)?;
     Ok(Json(SiteList {
         sites: sites.iter().map(SiteView::from).collect(),
     }))
@@ -177,7 +195,11 @@ async fn get_site(
 ) -> Result<Json<SiteDetail>> {
     caller.require_read_site(&code)?;
     let code = parse_site_param(&code)?;
-    let found = state.store().get_site(&code).await.map_err(crate::store_error)?;
+    let found = state
+        .store()
+        .get_site(&code)
+        .await
+        .map_err(crate::store_error)?;
     Ok(Json(SiteDetail {
         site: SiteView::from(&found.site),
         lines: found.lines.iter().map(LineView::from).collect(),

@@ -21,7 +21,9 @@ impl FromStr for LogFormat {
         match s {
             "text" => Ok(LogFormat::Text),
             "json" => Ok(LogFormat::Json),
-            other => Err(format!("unknown log format {other:?}; expected text or json")),
+            other => Err(format!(
+                "unknown log format {other:?}; expected text or json"
+            )),
         }
     }
 }

@@ -68,8 +68,8 @@ pub struct ReportRequest {
 
 /// The fixed cautions every report carries.
 pub const CAUTIONS: [&str; 4] = [
-    "A statistically significant difference is evidence that defect rates differ, not a root cause; find the cause before acting.",
-    "No significant difference is not proof that the rates are equal: small samples can hide real differences.",
+    "A statistically significant difference is evidence that the groups differ, not a root cause; find the cause before acting.",
+    "No significant difference is not proof that the groups are equal: small samples can hide real differences.",
     "Every rate is shown with the units behind it and its interval; a rate from few units is uncertain.",
     "Containment and release decisions follow the plant's quality procedures and the regulations that apply (for example for safety-critical products), not this report alone.",
 ];
@@ -119,7 +119,11 @@ fn echo(p: &Parameters, as_of: Option<String>) -> ParametersEcho {
 }
 
 fn ratio(num: u64, den: u64) -> f64 {
-    if den == 0 { 0.0 } else { num as f64 / den as f64 }
+    if den == 0 {
+        0.0
+    } else {
+        num as f64 / den as f64
+    }
 }
 
 fn ci(i: Interval) -> Ci {
@@ -131,7 +135,13 @@ fn ci(i: Interval) -> Ci {
 
 /// Wilson interval, or the whole [0, 1] if it cannot be computed (n = 0, never here).
 fn wilson_ci(x: u64, n: u64, alpha: f64) -> Ci {
-    wilson(x, n, 1.0 - alpha).map_or(Ci { lower: 0.0, upper: 1.0 }, ci)
+    wilson(x, n, 1.0 - alpha).map_or(
+        Ci {
+            lower: 0.0,
+            upper: 1.0,
+        },
+        ci,
+    )
 }
 
 /// Formats a p-value for sentences.
@@ -201,9 +211,13 @@ fn not_testable_words(e: &StatsError, between: &str, defective: u64, inspected: 
             ..
         }) => {
             if defective == 0 {
-                format!("no defective units in any of the {between}: there is no difference to test")
+                format!(
+                    "no defective units in any of the {between}: there is no difference to test"
+                )
             } else if defective == inspected {
-                format!("every inspected unit is defective in all the {between}: there is no difference to test")
+                format!(
+                    "every inspected unit is defective in all the {between}: there is no difference to test"
+                )
             } else {
                 "only one outcome occurs: there is no difference to test".to_owned()
             }
@@ -238,7 +252,10 @@ pub fn build_report(request: &ReportRequest, groups: &[GroupCounts]) -> Report {
         } else if g.defective > g.inspected {
             excluded.push(Excluded {
                 name: g.name.clone(),
-                reason: format!("defective ({}) exceeds inspected ({})", g.defective, g.inspected),
+                reason: format!(
+                    "defective ({}) exceeds inspected ({})",
+                    g.defective, g.inspected
+                ),
             });
         } else {
             used.push(g);
@@ -449,7 +466,12 @@ fn categories(used: &[&GroupCounts], opts: &Options, between: &str) -> Option<Ca
     let names: Vec<&str> = totals.keys().copied().collect();
     let rows: Vec<Vec<u64>> = used
         .iter()
-        .map(|g| names.iter().map(|c| g.defects.get(*c).copied().unwrap_or(0)).collect())
+        .map(|g| {
+            names
+                .iter()
+                .map(|c| g.defects.get(*c).copied().unwrap_or(0))
+                .collect()
+        })
         .collect();
     let row_names: Vec<String> = used.iter().map(|g| g.name.clone()).collect();
     let col_names: Vec<String> = names.iter().map(|s| (*s).to_owned()).collect();
@@ -462,7 +484,11 @@ fn categories(used: &[&GroupCounts], opts: &Options, between: &str) -> Option<Ca
             share: ratio(*n, all),
         })
         .collect();
-    cat_totals.sort_by(|a, b| b.defects.cmp(&a.defects).then_with(|| a.category.cmp(&b.category)));
+    cat_totals.sort_by(|a, b| {
+        b.defects
+            .cmp(&a.defects)
+            .then_with(|| a.category.cmp(&b.category))
+    });
     Some(CategoryReport {
         totals: cat_totals,
         association,
@@ -508,7 +534,9 @@ fn table_analysis(
         }
     }
     let kept_rows: Vec<usize> = (0..rows.len()).filter(|&i| row_totals[i] > 0).collect();
-    let kept_cols: Vec<usize> = (0..col_names.len()).filter(|&i| col_totals[i] > 0).collect();
+    let kept_cols: Vec<usize> = (0..col_names.len())
+        .filter(|&i| col_totals[i] > 0)
+        .collect();
     let result = Table::from_rows(rows).and_then(|t| analysis::analyze(&t, opts));
     match result {
         Ok(a) => {
@@ -597,7 +625,13 @@ pub fn analyze_table(params: &Parameters, table: &CountTable) -> TableReport {
         "groups",
         "outcome mixes",
     );
-    let mut cautions: Vec<String> = CAUTIONS.iter().map(|s| (*s).to_owned()).collect();
+    // The caution about rates and sample sizes (the third) is for rate reports.
+    let mut cautions: Vec<String> = CAUTIONS
+        .iter()
+        .enumerate()
+        .filter(|(i, _)| *i != 2)
+        .map(|(_, s)| (*s).to_owned())
+        .collect();
     if let Some(se) = t.test.as_ref().and_then(|x| x.p_std_error) {
         cautions.push(format!(
             "The p-value is a Monte Carlo estimate (standard error {se:.4}); the same table always gives the same value."

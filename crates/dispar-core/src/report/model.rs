@@ -10,7 +10,9 @@ use serde::{Serialize, Serializer};
 
 use crate::period::{DateRange, Period};
 
-use super::params::{AdjustChoice, DispersionChoice, Filters, LevelKind, MethodChoice, PairwiseChoice};
+use super::params::{
+    AdjustChoice, DispersionChoice, Filters, LevelKind, MethodChoice, PairwiseChoice,
+};
 
 /// Serializes a finite `f64`; a non-finite value is a bug (debug builds panic).
 pub fn num<S: Serializer>(x: &f64, s: S) -> Result<S::Ok, S::Error> {

@@ -339,15 +339,15 @@ impl Parameters {
                 d.resamples
             }
         };
-        let method = raw
-            .method
-            .map_or(Some(d.method), |s| c.take(MethodChoice::parse_field(s, "method")));
-        let pairwise = raw
-            .pairwise
-            .map_or(Some(d.pairwise), |s| c.take(PairwiseChoice::parse_field(s, "pairwise")));
-        let adjust = raw
-            .adjust
-            .map_or(Some(d.adjust), |s| c.take(AdjustChoice::parse_field(s, "adjust")));
+        let method = raw.method.map_or(Some(d.method), |s| {
+            c.take(MethodChoice::parse_field(s, "method"))
+        });
+        let pairwise = raw.pairwise.map_or(Some(d.pairwise), |s| {
+            c.take(PairwiseChoice::parse_field(s, "pairwise"))
+        });
+        let adjust = raw.adjust.map_or(Some(d.adjust), |s| {
+            c.take(AdjustChoice::parse_field(s, "adjust"))
+        });
         let dispersion = raw.overdispersion.map_or(Some(d.overdispersion), |s| {
             c.take(DispersionChoice::parse_field(s, "overdispersion"))
         });
@@ -366,7 +366,14 @@ impl Parameters {
                 }
             }
             _ => {
-                if let Err(e) = Parameters::new(alpha, d.method, d.pairwise, d.adjust, resamples, min_difference) {
+                if let Err(e) = Parameters::new(
+                    alpha,
+                    d.method,
+                    d.pairwise,
+                    d.adjust,
+                    resamples,
+                    min_difference,
+                ) {
                     c.extend(e);
                 }
                 Err(c.fail())
@@ -402,10 +409,16 @@ mod tests {
         for w in MethodChoice::WORDS {
             assert_eq!(w.parse::<MethodChoice>().unwrap().as_str(), *w);
         }
-        assert_eq!("pearson-yates".parse::<PairwiseChoice>(), Ok(PairwiseChoice::PearsonYates));
+        assert_eq!(
+            "pearson-yates".parse::<PairwiseChoice>(),
+            Ok(PairwiseChoice::PearsonYates)
+        );
         assert_eq!("bh".parse::<AdjustChoice>(), Ok(AdjustChoice::Bh));
         let e = "holms".parse::<AdjustChoice>().unwrap_err().to_string();
-        assert_eq!(e, "\"holms\" is not a p-value adjustment; use one of: holm, bonferroni, hochberg, bh");
+        assert_eq!(
+            e,
+            "\"holms\" is not a p-value adjustment; use one of: holm, bonferroni, hochberg, bh"
+        );
     }
 
     #[test]
@@ -428,9 +441,18 @@ mod tests {
     #[test]
     fn level_line_needs_a_site() {
         assert_eq!(Level::from_query(None, None), Ok(Level::Site));
-        assert_eq!(Level::from_query(Some("line"), None).unwrap_err().field, "site");
+        assert_eq!(
+            Level::from_query(Some("line"), None).unwrap_err().field,
+            "site"
+        );
         let s = SiteCode::parse("S1").unwrap();
-        assert_eq!(Level::from_query(Some("line"), Some(&s)), Ok(Level::Line { site: s }));
-        assert_eq!(Level::from_query(Some("lines"), None).unwrap_err().reason, "unknown_value");
+        assert_eq!(
+            Level::from_query(Some("line"), Some(&s)),
+            Ok(Level::Line { site: s })
+        );
+        assert_eq!(
+            Level::from_query(Some("lines"), None).unwrap_err().reason,
+            "unknown_value"
+        );
     }
 }

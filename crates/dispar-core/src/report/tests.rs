@@ -28,7 +28,10 @@ fn nist_lots() -> Vec<GroupCounts> {
 }
 
 fn close(a: f64, b: f64, tol: f64, what: &str) {
-    assert!((a - b).abs() <= tol * b.abs().max(1.0), "{what}: {a} vs {b}");
+    assert!(
+        (a - b).abs() <= tol * b.abs().max(1.0),
+        "{what}: {a} vs {b}"
+    );
 }
 
 /// NIST/SEMATECH e-Handbook of Statistical Methods, 7.4.6 "Comparing multiple
@@ -44,36 +47,75 @@ fn the_nist_five_lot_example_gives_the_published_verdict() {
     let r = build_report(&ReportRequest::default(), &nist_lots());
     let t = r.test.as_ref().expect("testable");
     assert_eq!(t.method, "pearson");
-    close(t.statistic, 464.0 * (1.0 / 45.0 + 1.0 / 255.0), 1e-12, "X^2");
+    close(
+        t.statistic,
+        464.0 * (1.0 / 45.0 + 1.0 / 255.0),
+        1e-12,
+        "X^2",
+    );
     assert_eq!(t.df, 4);
     close(t.p_value, 0.016_405_221_988_903_653, 1e-12, "p");
     close(t.log10_p, -1.785_017_888_538_913_9, 1e-12, "log10 p");
     close(t.critical_value, 9.488, 5e-5, "critical value");
     assert!(t.reject);
-    assert!(t.decision.starts_with("The defect rates differ between the groups"), "{}", t.decision);
+    assert!(
+        t.decision
+            .starts_with("The defect rates differ between the groups"),
+        "{}",
+        t.decision
+    );
 
     let lot4 = &r.groups[3];
-    assert_eq!((lot4.name.as_str(), lot4.inspected, lot4.defective), ("lot4", 300, 63));
+    assert_eq!(
+        (lot4.name.as_str(), lot4.inspected, lot4.defective),
+        ("lot4", 300, 63)
+    );
     close(lot4.rate, 0.21, 1e-15, "rate");
     close(lot4.expected, 45.0, 1e-12, "expected");
-    close(lot4.contribution.unwrap(), 324.0 / 45.0 + 324.0 / 255.0, 1e-12, "contribution");
+    close(
+        lot4.contribution.unwrap(),
+        324.0 / 45.0 + 324.0 / 255.0,
+        1e-12,
+        "contribution",
+    );
     // Haberman's adjusted residual: 18 / sqrt(45 (1 - 300/1500)(1 - 225/1500)) = 3.2540.
-    close(lot4.adjusted_residual.unwrap(), 18.0 / (45.0f64 * 0.8 * 0.85).sqrt(), 1e-12, "adj");
+    close(
+        lot4.adjusted_residual.unwrap(),
+        18.0 / (45.0f64 * 0.8 * 0.85).sqrt(),
+        1e-12,
+        "adj",
+    );
     assert_eq!(lot4.flag, Some(Flag::Above));
     let shares: f64 = r.groups.iter().filter_map(|g| g.share_of_statistic).sum();
     close(shares, 1.0, 1e-12, "shares of X^2 add up to 1");
     assert_eq!(r.flagged.len(), 1);
     assert_eq!(r.flagged[0].name, "lot4");
-    close(r.flagged[0].share_of_statistic, (324.0 / 45.0 + 324.0 / 255.0) / t.statistic, 1e-12, "share");
+    close(
+        r.flagged[0].share_of_statistic,
+        (324.0 / 45.0 + 324.0 / 255.0) / t.statistic,
+        1e-12,
+        "share",
+    );
 
     assert_eq!(r.pairwise.len(), 10, "5 groups, 10 pairs");
-    assert_eq!((r.pairwise[0].a.as_str(), r.pairwise[0].b.as_str()), ("lot1", "lot2"));
-    close(r.pairwise[0].difference, (36.0 - 46.0) / 300.0, 1e-15, "difference lot1 - lot2");
+    assert_eq!(
+        (r.pairwise[0].a.as_str(), r.pairwise[0].b.as_str()),
+        ("lot1", "lot2")
+    );
+    close(
+        r.pairwise[0].difference,
+        (36.0 - 46.0) / 300.0,
+        1e-15,
+        "difference lot1 - lot2",
+    );
     assert!(r.pairwise.iter().all(|p| p.p_adjusted >= p.p_value));
     assert_eq!(r.totals.inspected, 1500);
     assert_eq!(r.totals.defective, 225);
     assert!(r.not_testable.is_none());
-    assert!(r.categories.is_none(), "no category counts, no category test");
+    assert!(
+        r.categories.is_none(),
+        "no category counts, no category test"
+    );
     for c in CAUTIONS {
         assert!(r.cautions.iter().any(|x| x == c), "missing caution {c}");
     }
@@ -84,36 +126,73 @@ fn the_nist_five_lot_example_gives_the_published_verdict() {
 fn the_json_has_the_shared_field_names_and_no_nulls_in_numbers() {
     let r = build_report(&ReportRequest::default(), &nist_lots());
     let v: Value = serde_json::to_value(&r).unwrap();
-    for f in ["method", "statistic", "df", "p_value", "log10_p", "critical_value", "reject", "cramers_v"] {
-        assert!(v["test"][f].is_number() || v["test"][f].is_string() || v["test"][f].is_boolean(), "test.{f}: {v}");
+    for f in [
+        "method",
+        "statistic",
+        "df",
+        "p_value",
+        "log10_p",
+        "critical_value",
+        "reject",
+        "cramers_v",
+    ] {
+        assert!(
+            v["test"][f].is_number() || v["test"][f].is_string() || v["test"][f].is_boolean(),
+            "test.{f}: {v}"
+        );
     }
     for f in ["min_expected", "share_below_5", "reason"] {
         assert!(!v["validity"][f].is_null(), "validity.{f}");
     }
     let g = &v["groups"][3];
-    for f in ["name", "inspected", "defective", "rate", "expected", "contribution", "adjusted_residual"] {
+    for f in [
+        "name",
+        "inspected",
+        "defective",
+        "rate",
+        "expected",
+        "contribution",
+        "adjusted_residual",
+    ] {
         assert!(!g[f].is_null(), "groups[].{f}");
     }
     assert!(g["rate_ci"]["lower"].is_number() && g["rate_ci"]["upper"].is_number());
     assert_eq!(g["flag"], "above");
     assert_eq!(v["groups"][0]["flag"], Value::Null);
     let p = &v["pairwise"][0];
-    for f in ["a", "b", "method", "difference", "p_value", "p_adjusted", "reject"] {
+    for f in [
+        "a",
+        "b",
+        "method",
+        "difference",
+        "p_value",
+        "p_adjusted",
+        "reject",
+    ] {
         assert!(!p[f].is_null(), "pairwise[].{f}");
     }
     assert!(p["difference_ci"]["lower"].is_number());
-    assert!(v.get("period").is_none(), "no period for an offline analysis");
+    assert!(
+        v.get("period").is_none(),
+        "no period for an offline analysis"
+    );
 }
 
 #[test]
 fn groups_without_units_are_excluded_and_one_group_is_not_testable() {
-    let r = build_report(&ReportRequest::default(), &[group("A", 100, 3), group("B", 0, 0)]);
+    let r = build_report(
+        &ReportRequest::default(),
+        &[group("A", 100, 3), group("B", 0, 0)],
+    );
     assert!(r.test.is_none());
     assert!(r.pairwise.is_empty());
     let reason = &r.not_testable.as_ref().expect("not testable").reason;
     assert!(reason.contains("only 1 of the groups"), "{reason}");
     assert_eq!(r.excluded.len(), 1);
-    assert_eq!((r.excluded[0].name.as_str(), r.excluded[0].reason.as_str()), ("B", NO_UNITS));
+    assert_eq!(
+        (r.excluded[0].name.as_str(), r.excluded[0].reason.as_str()),
+        ("B", NO_UNITS)
+    );
     assert_eq!(r.groups.len(), 1, "the usable group is still shown");
     assert_eq!(r.groups[0].adjusted_residual, None);
     let json = serde_json::to_value(&r).unwrap();
@@ -125,12 +204,25 @@ fn groups_without_units_are_excluded_and_one_group_is_not_testable() {
 
 #[test]
 fn no_defective_units_anywhere_is_not_testable_with_a_reason() {
-    let r = build_report(&ReportRequest::default(), &[group("A", 100, 0), group("B", 200, 0)]);
+    let r = build_report(
+        &ReportRequest::default(),
+        &[group("A", 100, 0), group("B", 200, 0)],
+    );
     assert!(r.test.is_none());
-    assert!(r.not_testable.unwrap().reason.contains("no defective units"));
+    assert!(
+        r.not_testable
+            .unwrap()
+            .reason
+            .contains("no defective units")
+    );
     // Wilson interval of 0/100 at 95%: upper = z^2 / (n + z^2) = 3.8415 / 103.8415.
     let z2 = 1.959_963_984_540_054_f64.powi(2);
-    close(r.groups[0].rate_ci.upper, z2 / (100.0 + z2), 1e-9, "Wilson upper bound for 0/100");
+    close(
+        r.groups[0].rate_ci.upper,
+        z2 / (100.0 + z2),
+        1e-9,
+        "Wilson upper bound for 0/100",
+    );
     assert_eq!(r.groups[0].rate_ci.lower, 0.0);
 }
 
@@ -163,13 +255,28 @@ fn category_counts_get_an_association_test_and_totals() {
 fn sparse_category_tables_fall_back_to_monte_carlo_reproducibly() {
     let mk = |name: &str, d: [u64; 3]| {
         let mut g = group(name, 500, 10);
-        g.defects = ["a", "b", "c"].iter().zip(d).map(|(k, n)| ((*k).to_owned(), n)).collect();
+        g.defects = ["a", "b", "c"]
+            .iter()
+            .zip(d)
+            .map(|(k, n)| ((*k).to_owned(), n))
+            .collect();
         g
     };
-    let groups = [mk("S1", [3, 0, 1]), mk("S2", [0, 4, 1]), mk("S3", [1, 1, 2])];
+    let groups = [
+        mk("S1", [3, 0, 1]),
+        mk("S2", [0, 4, 1]),
+        mk("S3", [1, 1, 2]),
+    ];
     let r1 = build_report(&ReportRequest::default(), &groups);
     let r2 = build_report(&ReportRequest::default(), &groups);
-    let t = r1.categories.as_ref().unwrap().association.test.clone().unwrap();
+    let t = r1
+        .categories
+        .as_ref()
+        .unwrap()
+        .association
+        .test
+        .clone()
+        .unwrap();
     assert_eq!(t.method, "monte-carlo");
     assert!(t.p_std_error.is_some() && t.resamples == Some(10_000));
     assert_eq!(r1, r2, "same data, same report");
@@ -197,8 +304,9 @@ fn period_level_and_as_of_are_echoed() {
 fn overdispersion_widens_the_flag_limit_only_when_asked() {
     // Twenty lines of 10,000 units with 100, 107, ..., 233 defective: far more spread
     // than binomial sampling gives, so phi > 1.
-    let groups: Vec<GroupCounts> =
-        (0..20u64).map(|i| group(&format!("L{i:02}"), 10_000, 100 + 7 * i)).collect();
+    let groups: Vec<GroupCounts> = (0..20u64)
+        .map(|i| group(&format!("L{i:02}"), 10_000, 100 + 7 * i))
+        .collect();
     let plain = build_report(&ReportRequest::default(), &groups);
     let o = plain.overdispersion.as_ref().unwrap();
     assert!(o.present && !o.applied);
@@ -208,8 +316,18 @@ fn overdispersion_widens_the_flag_limit_only_when_asked() {
     let wide = build_report(&req, &groups);
     let w = wide.overdispersion.as_ref().unwrap();
     assert!(w.applied);
-    close(w.flag_limit, w.anom_critical * w.phi.sqrt(), 1e-12, "widened limit");
-    assert!(wide.flagged.len() < plain.flagged.len(), "{} vs {}", wide.flagged.len(), plain.flagged.len());
+    close(
+        w.flag_limit,
+        w.anom_critical * w.phi.sqrt(),
+        1e-12,
+        "widened limit",
+    );
+    assert!(
+        wide.flagged.len() < plain.flagged.len(),
+        "{} vs {}",
+        wide.flagged.len(),
+        plain.flagged.len()
+    );
     // Flagged contributors come largest share of X^2 first.
     let shares: Vec<f64> = plain.flagged.iter().map(|f| f.share_of_statistic).collect();
     assert!(shares.windows(2).all(|w| w[0] >= w[1]), "{shares:?}");
@@ -220,7 +338,13 @@ fn large_volumes_with_a_tiny_effect_get_a_caution() {
     let groups = [group("A", 2_000_000, 20_000), group("B", 2_000_000, 20_600)];
     let r = build_report(&ReportRequest::default(), &groups);
     assert!(r.test.as_ref().unwrap().reject);
-    assert!(r.cautions.iter().any(|c| c.contains("even small differences")), "{:?}", r.cautions);
+    assert!(
+        r.cautions
+            .iter()
+            .any(|c| c.contains("even small differences")),
+        "{:?}",
+        r.cautions
+    );
     let mut req = ReportRequest::default();
     req.parameters.min_difference = Some(0.005);
     let r = build_report(&req, &groups);
@@ -266,7 +390,13 @@ fn the_text_layout_is_plain_ascii_with_every_group() {
     let r = build_report(&ReportRequest::default(), &nist_lots());
     let text = r.to_text();
     assert!(text.is_ascii());
-    for needle in ["Verdict: The defect rates differ", "lot4", "above", "Pairwise comparisons (10 pairs", "Cautions:"] {
+    for needle in [
+        "Verdict: The defect rates differ",
+        "lot4",
+        "above",
+        "Pairwise comparisons (10 pairs",
+        "Cautions:",
+    ] {
         assert!(text.contains(needle), "missing {needle:?} in\n{text}");
     }
 }
@@ -277,16 +407,25 @@ mod properties {
 
     fn groups() -> impl Strategy<Value = Vec<GroupCounts>> {
         prop::collection::vec(
-            (0u64..2000, 0.0f64..1.0, prop::collection::vec(0u64..20, 0..4)).prop_map(|(n, f, cats)| {
-                let d = (n as f64 * f * f) as u64;
-                GroupCounts {
-                    name: String::new(),
-                    label: None,
-                    inspected: n,
-                    defective: d.min(n),
-                    defects: cats.into_iter().enumerate().map(|(i, c)| (format!("c{i}"), c)).collect(),
-                }
-            }),
+            (
+                0u64..2000,
+                0.0f64..1.0,
+                prop::collection::vec(0u64..20, 0..4),
+            )
+                .prop_map(|(n, f, cats)| {
+                    let d = (n as f64 * f * f) as u64;
+                    GroupCounts {
+                        name: String::new(),
+                        label: None,
+                        inspected: n,
+                        defective: d.min(n),
+                        defects: cats
+                            .into_iter()
+                            .enumerate()
+                            .map(|(i, c)| (format!("c{i}"), c))
+                            .collect(),
+                    }
+                }),
             0..8,
         )
         .prop_map(|mut gs| {

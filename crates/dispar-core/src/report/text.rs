@@ -4,8 +4,8 @@
 use std::fmt::Write as _;
 
 use super::model::{
-    CategoryReport, Ci, GroupRow, PairRow, ParametersEcho, Report, TableAnalysis, TableReport, Test,
-    ValidityNotes,
+    CategoryReport, Ci, GroupRow, PairRow, ParametersEcho, Report, TableAnalysis, TableReport,
+    Test, ValidityNotes,
 };
 use super::params::LevelKind;
 
@@ -106,7 +106,11 @@ fn test_lines(out: &mut String, t: &Test, v: Option<&ValidityNotes>, alpha: f64)
         fmt_p(t.p_value, t.log10_p)
     );
     if let Some(se) = t.p_std_error {
-        let _ = write!(out, " +/- {se:.4} over {} resamples", t.resamples.unwrap_or(0));
+        let _ = write!(
+            out,
+            " +/- {se:.4} over {} resamples",
+            t.resamples.unwrap_or(0)
+        );
     }
     let _ = writeln!(
         out,
@@ -144,9 +148,11 @@ fn group_rows(groups: &[GroupRow]) -> Vec<Vec<String>> {
                 fmt_rate(g.rate),
                 fmt_ci(&g.rate_ci),
                 format!("{:.2}", g.expected),
-                g.adjusted_residual.map_or(String::new(), |r| format!("{r:+.2}")),
+                g.adjusted_residual
+                    .map_or(String::new(), |r| format!("{r:+.2}")),
                 g.flag.map_or(String::new(), |f| f.as_str().to_owned()),
-                g.share_of_statistic.map_or(String::new(), |x| format!("{:.1}%", x * 100.0)),
+                g.share_of_statistic
+                    .map_or(String::new(), |x| format!("{:.1}%", x * 100.0)),
             ]
         })
         .collect()
@@ -216,7 +222,13 @@ fn categories_lines(out: &mut String, c: &CategoryReport, alpha: f64) {
     let rows: Vec<Vec<String>> = c
         .totals
         .iter()
-        .map(|t| vec![t.category.clone(), t.defects.to_string(), format!("{:.1}%", t.share * 100.0)])
+        .map(|t| {
+            vec![
+                t.category.clone(),
+                t.defects.to_string(),
+                format!("{:.1}%", t.share * 100.0),
+            ]
+        })
         .collect();
     table(out, &["category", "defects", "share"], &rows);
     analysis_lines(out, &c.association, alpha);
@@ -277,12 +289,26 @@ impl Report {
             ]);
             table(
                 &mut out,
-                &["group", "inspected", "defective", "rate", &conf, "expected", "adj.res", "flag", "share X^2"],
+                &[
+                    "group",
+                    "inspected",
+                    "defective",
+                    "rate",
+                    &conf,
+                    "expected",
+                    "adj.res",
+                    "flag",
+                    "share X^2",
+                ],
                 &rows,
             );
         }
         if let Some(o) = &self.overdispersion {
-            let _ = writeln!(out, "\nFlag limit: |adjusted residual| > {:.3}. {}", o.flag_limit, o.note);
+            let _ = writeln!(
+                out,
+                "\nFlag limit: |adjusted residual| > {:.3}. {}",
+                o.flag_limit, o.note
+            );
         }
         if !self.flagged.is_empty() {
             out.push_str("Flagged contributors:\n");
@@ -312,13 +338,24 @@ impl Report {
                 self.pairwise.len(),
                 self.parameters.adjust,
                 if shown.len() < self.pairwise.len() {
-                    format!("; {} with a significant difference shown (all are in the JSON)", shown.len())
+                    format!(
+                        "; {} with a significant difference shown (all are in the JSON)",
+                        shown.len()
+                    )
                 } else {
                     String::new()
                 }
             );
             let practical = self.parameters.min_difference.is_some();
-            let mut header = vec!["pair", "method", "difference", "CI (pp)", "p", "p adjusted", "differ"];
+            let mut header = vec![
+                "pair",
+                "method",
+                "difference",
+                "CI (pp)",
+                "p",
+                "p adjusted",
+                "differ",
+            ];
             if practical {
                 header.push("beyond min diff");
             }

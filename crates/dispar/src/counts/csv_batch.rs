@@ -67,20 +67,72 @@ pub fn item_from_field_error(e: FieldError) -> ErrorItem {
 }
 
 fn malformed(line: u64, reason: &'static str, message: String) -> ApiError {
-    ApiError::new(ProblemKind::MalformedBody, "The request body is not a valid CSV file.")
-        .with_error(ErrorItem::csv(line, None, reason, message))
+    ApiError::new(
+        ProblemKind::MalformedBody,
+        "The request body is not a valid CSV file.",
+    )
+    .with_error(ErrorItem::csv(line, None, reason, message))
 }
 
-fn read_error(e: &csv::Error) -> ApiError {
-    let line = e.position().map_or(0, csv::Position::line);
+/// File line numbers from byte offsets. The csv crate's own line counter is one
+/// short for records after a CRLF (it records the position before the LF), so lines
+/// are counted here: 1 + the number of LFs before the record's first byte.
+struct LineCounter<'a> {
+    bytes: &'a [u8],
+    at: usize,
+    line: u64,
+}
+
+impl<'a> LineCounter<'a> {
+    fn new(bytes: &'a [u8]) -> Self {
+        Self {
+            bytes,
+            at: 0,
+            line: 1,
+        }
+    }
+
+    /// The line of the byte at `offset`; offsets must not decrease between calls.
+    fn line_of(&mut self, offset: u64) -> u64 {
+        let mut offset = usize::try_from(offset)
+            .unwrap_or(usize::MAX)
+            .min(self.bytes.len());
+        // A record position may point at the LF of the CRLF that ended the last record.
+        if self.bytes.get(offset) == Some(&b'\n') {
+            offset += 1;
+        }
+        if offset > self.at {
+            let lfs = self.bytes[self.at..offset]
+                .iter()
+                .filter(|&&b| b == b'\n')
+                .count();
+            self.line += lfs as u64;
+            self.at = offset;
+        }
+        self.line
+    }
+}
+
+fn read_error(e: &csv::Error, lines: &mut LineCounter<'_>) -> ApiError {
+    let line = e.position().map_or(0, |p| lines.line_of(p.byte()));
     match e.kind() {
-        csv::ErrorKind::Utf8 { .. } => malformed(line, "invalid_utf8", "the line is not valid UTF-8".to_owned()),
-        csv::ErrorKind::UnequalLengths { expected_len, len, .. } => malformed(
+        csv::ErrorKind::Utf8 { .. } => malformed(
+            line,
+            "invalid_utf8",
+            "the line is not valid UTF-8".to_owned(),
+        ),
+        csv::ErrorKind::UnequalLengths {
+            expected_len, len, ..
+        } => malformed(
             line,
             "wrong_field_count",
             format!("the line has {len} fields; the header has {expected_len}"),
         ),
-        _ => malformed(line, "unreadable", format!("the CSV could not be read: {e}")),
+        _ => malformed(
+            line,
+            "unreadable",
+            format!("the CSV could not be read: {e}"),
+        ),
     }
 }
 
@@ -137,7 +189,10 @@ fn columns(header: &csv::StringRecord) -> Result<Vec<Column>, ApiError> {
     if errors.is_empty() {
         Ok(out)
     } else {
-        Err(ApiError::validation("The CSV header is invalid; nothing was written.", errors))
+        Err(ApiError::validation(
+            "The CSV header is invalid; nothing was written.",
+            errors,
+        ))
     }
 }
 
@@ -148,12 +203,20 @@ pub fn parse(bytes: &[u8], max: usize) -> Result<Parsed, ApiError> {
         .has_headers(false)
         .flexible(false)
         .from_reader(bytes);
+    let mut counter = LineCounter::new(bytes);
     let mut record = csv::StringRecord::new();
-    let has_header = reader.read_record(&mut record).map_err(|e| read_error(&e))?;
+    let has_header = reader
+        .read_record(&mut record)
+        .map_err(|e| read_error(&e, &mut counter))?;
     if !has_header {
         return Err(ApiError::validation(
             "The CSV body is empty; send a header line and at least one record.",
-            vec![ErrorItem::csv(1, None, "empty", "the file has no header line")],
+            vec![ErrorItem::csv(
+                1,
+                None,
+                "empty",
+                "the file has no header line",
+            )],
         ));
     }
     let columns = columns(&record)?;
@@ -163,13 +226,20 @@ pub fn parse(bytes: &[u8], max: usize) -> Result<Parsed, ApiError> {
         match reader.read_record(&mut record) {
             Ok(false) => break,
             Ok(true) => {}
-            Err(e) => return Err(read_error(&e)),
+            Err(e) => return Err(read_error(&e, &mut counter)),
         }
-        let line = record.position().map_or(0, csv::Position::line);
+        let line = record.position().map_or(0, |p| counter.line_of(p.byte()));
         if records.len() == max {
             return Err(ApiError::validation(
-                format!("The batch holds more than {max} records; at most {max} are accepted per request."),
-                vec![ErrorItem::csv(line, None, "too_many", format!("record on line {line} is beyond the limit of {max}"))],
+                format!(
+                    "The batch holds more than {max} records; at most {max} are accepted per request."
+                ),
+                vec![ErrorItem::csv(
+                    line,
+                    None,
+                    "too_many",
+                    format!("record on line {line} is beyond the limit of {max}"),
+                )],
             ));
         }
         records.push(row(&columns, &record));
@@ -178,7 +248,12 @@ pub fn parse(bytes: &[u8], max: usize) -> Result<Parsed, ApiError> {
     if records.is_empty() {
         return Err(ApiError::validation(
             "The CSV body has a header but no records.",
-            vec![ErrorItem::csv(2, None, "empty", "the batch holds no records")],
+            vec![ErrorItem::csv(
+                2,
+                None,
+                "empty",
+                "the batch holds no records",
+            )],
         ));
     }
     Ok(Parsed { records, lines })
@@ -222,14 +297,19 @@ mod tests {
 
     #[test]
     fn quoted_fields_crlf_and_line_numbers_are_read() {
-        let p = ok("\u{feff}site,line,date,inspected,defective,product,defect:scratch\r\n\
+        let p = ok(
+            "\u{feff}site,line,date,inspected,defective,product,defect:scratch\r\n\
              S1,L1,2026-03-02,100,3,\"P,1\",2\r\n\
              \"S1\",\"L\"\"2\",2026-03-02,\"1\r\n0\",1,,\r\n\
-             S1,L3,2026-03-02,5,0,,0\r\n");
+             S1,L3,2026-03-02,5,0,,0\r\n",
+        );
         assert_eq!(p.lines, vec![2, 3, 5]);
         assert_eq!(p.records[0].product.as_deref(), Some("P,1"));
         assert_eq!(p.records[1].line.as_deref(), Some("L\"2"));
-        assert_eq!(p.records[1].inspected, Some(RawNumber::Text("1\r\n0".into())));
+        assert_eq!(
+            p.records[1].inspected,
+            Some(RawNumber::Text("1\r\n0".into()))
+        );
         assert!(p.records[1].product.is_none());
         assert!(p.records[1].defects.is_none());
         assert_eq!(
@@ -240,8 +320,11 @@ mod tests {
 
     #[test]
     fn header_problems_are_named_by_column() {
-        let e = parse(b"site,line,date,inspected,colour,site\nS1,L1,2026-01-01,1,x,S1\n", 10)
-            .expect_err("bad header");
+        let e = parse(
+            b"site,line,date,inspected,colour,site\nS1,L1,2026-01-01,1,x,S1\n",
+            10,
+        )
+        .expect_err("bad header");
         assert_eq!(e.status().as_u16(), 422);
         let reasons: Vec<(&str, Option<&str>)> = e
             .errors()
@@ -260,8 +343,11 @@ mod tests {
 
     #[test]
     fn a_row_with_the_wrong_number_of_fields_is_400_naming_its_line() {
-        let e = parse(b"site,line,date,inspected,defective\nS1,L1,2026-01-01,1,0\nS1,L1\n", 10)
-            .expect_err("ragged");
+        let e = parse(
+            b"site,line,date,inspected,defective\nS1,L1,2026-01-01,1,0\nS1,L1\n",
+            10,
+        )
+        .expect_err("ragged");
         assert_eq!(e.status().as_u16(), 400);
         assert_eq!(e.errors()[0].line, Some(3));
         assert_eq!(e.errors()[0].reason, "wrong_field_count");
@@ -269,8 +355,11 @@ mod tests {
 
     #[test]
     fn too_many_records_and_empty_files_are_refused() {
-        let e = parse(b"site,line,date,inspected,defective\nS,L,2026-01-01,1,0\nS,L,2026-01-02,1,0\n", 1)
-            .expect_err("too many");
+        let e = parse(
+            b"site,line,date,inspected,defective\nS,L,2026-01-01,1,0\nS,L,2026-01-02,1,0\n",
+            1,
+        )
+        .expect_err("too many");
         assert_eq!(e.errors()[0].line, Some(3));
         assert!(parse(b"", 1).is_err());
         assert!(parse(b"site,line,date,inspected,defective\r\n", 1).is_err());
