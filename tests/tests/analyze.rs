@@ -9,6 +9,8 @@
 //! defective and 255 conforming per lot), and for 4 degrees of freedom the upper tail is
 //! exactly exp(-x/2) (1 + x/2) (Abramowitz & Stegun 26.4.21, even df), 0.0164052.
 
+#![allow(clippy::unwrap_used)] // tests: a panic is the failure report
+
 use std::io::Write;
 use std::process::{Command, Output, Stdio};
 

@@ -56,9 +56,10 @@ fn all_pairs(c: &mut Criterion) {
     let mut group = c.benchmark_group("pairwise");
     group.sample_size(10);
     let dense = groups(1000, 10_000, 0.02, 2);
-    group.bench_function("all 499,500 pairs of 1,000 groups, Holm (chi-square pairs)", |b| {
-        b.iter(|| pairwise(black_box(&dense), &PairwiseOptions::default()))
-    });
+    group.bench_function(
+        "all 499,500 pairs of 1,000 groups, Holm (chi-square pairs)",
+        |b| b.iter(|| pairwise(black_box(&dense), &PairwiseOptions::default())),
+    );
     let sparse = groups(1000, 300, 0.01, 3);
     group.bench_function(
         "all 499,500 pairs of 1,000 groups, Holm (sparse: mostly Fisher pairs)",
@@ -88,5 +89,11 @@ fn monte_carlo(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, omnibus_and_flags, all_pairs, fisher_large, monte_carlo);
+criterion_group!(
+    benches,
+    omnibus_and_flags,
+    all_pairs,
+    fisher_large,
+    monte_carlo
+);
 criterion_main!(benches);

@@ -9,7 +9,7 @@ use crate::chisq::{
 use crate::effect::{cramers_v, cramers_v_corrected};
 use crate::error::{StatsError, check_open_unit};
 use crate::exact::{Fisher, fisher};
-use crate::interval::{Interval, wilson};
+use crate::interval::{Interval, wilson_z, z_for_confidence};
 use crate::montecarlo::{MonteCarlo, conditional_p, table_seed};
 use crate::overdispersion::{Overdispersion, spiegelhalter, tau_squared};
 use crate::pairwise::{Pair, PairMethod, PairwiseOptions, pairwise};
@@ -395,7 +395,7 @@ pub fn analyze_rates(groups: &[(u64, u64)], options: &Options) -> Result<RateAna
         Dispersion::Widen => anom.h * overdispersion.scale,
         Dispersion::Report => anom.h,
     };
-    let confidence = 1.0 - options.alpha;
+    let z = z_for_confidence(1.0 - options.alpha)?;
     let x2 = test.pearson;
     let mut stats = Vec::with_capacity(k);
     for (row, &i) in kept.iter().enumerate() {
@@ -413,7 +413,7 @@ pub fn analyze_rates(groups: &[(u64, u64)], options: &Options) -> Result<RateAna
             inspected: n,
             defective: x,
             rate: x as f64 / n as f64,
-            rate_ci: wilson(x, n, confidence)?,
+            rate_ci: wilson_z(x, n, z)?,
             expected: defective_cell.expected,
             contribution,
             adjusted_residual: adj,
@@ -483,8 +483,11 @@ mod tests {
 
     #[test]
     fn zero_groups_are_dropped_and_indices_kept() {
-        let r = analyze_rates(&[(300, 36), (0, 0), (300, 63), (300, 38)], &Options::default())
-            .expect("testable");
+        let r = analyze_rates(
+            &[(300, 36), (0, 0), (300, 63), (300, 38)],
+            &Options::default(),
+        )
+        .expect("testable");
         assert_eq!(r.test.dropped_rows, vec![1]);
         assert_eq!(
             r.groups.iter().map(|g| g.index).collect::<Vec<_>>(),

@@ -11,7 +11,7 @@
 /// ```
 pub fn cramers_v(x2: f64, n: u64, rows: usize, cols: usize) -> f64 {
     let m = rows.min(cols);
-    if n == 0 || m < 2 || !(x2 > 0.0) {
+    if n == 0 || m < 2 || x2.is_nan() || x2 <= 0.0 {
         return 0.0;
     }
     (x2 / (n as f64 * (m - 1) as f64)).sqrt()
@@ -25,7 +25,7 @@ pub fn cramers_v(x2: f64, n: u64, rows: usize, cols: usize) -> f64 {
 /// Returns 0.0 where undefined (N <= 1, fewer than 2 rows or columns, or a non-positive
 /// denominator).
 pub fn cramers_v_corrected(x2: f64, n: u64, rows: usize, cols: usize) -> f64 {
-    if n <= 1 || rows < 2 || cols < 2 || !(x2 > 0.0) {
+    if n <= 1 || rows < 2 || cols < 2 || x2.is_nan() || x2 <= 0.0 {
         return 0.0;
     }
     let nf = n as f64;

@@ -134,7 +134,11 @@ impl fmt::Display for NotTestable {
             write!(f, "; rows with no counts dropped: {:?}", self.dropped_rows)?;
         }
         if !self.dropped_cols.is_empty() {
-            write!(f, "; columns with no counts dropped: {:?}", self.dropped_cols)?;
+            write!(
+                f,
+                "; columns with no counts dropped: {:?}",
+                self.dropped_cols
+            )?;
         }
         Ok(())
     }

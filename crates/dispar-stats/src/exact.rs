@@ -9,7 +9,7 @@
 //! are negligible, so the work grows with the spread of the distribution (about
 //! sqrt(N)), not with N.
 
-use statrs::function::factorial::ln_factorial;
+use crate::loader::ln_dbinom;
 
 /// The p-values of Fisher's exact test.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -53,7 +53,14 @@ pub fn fisher(a: u64, b: u64, c: u64, d: u64) -> Fisher {
         return one;
     }
     let m = h.mode();
+    match by_walk(&h, a, m) {
+        Some(f) => f,
+        None => log_space(&h, a, m),
+    }
+}
 
+/// Fisher's test with every probability from Loader's ln P: accurate however small p is.
+fn log_space(h: &Hyper, a: u64, m: u64) -> Fisher {
     // One-sided tails; the side beyond the mode is summed directly, the other as a
     // complement of a sum that is at most about one half (so no digits are lost).
     let p_less = if a <= m {
@@ -110,6 +117,87 @@ pub fn fisher(a: u64, b: u64, c: u64, d: u64) -> Fisher {
         p_less: p_less.clamp(0.0, 1.0),
         p_greater: p_greater.clamp(0.0, 1.0),
     }
+}
+
+/// The fast path: every non-negligible term relative to the mode's, by the recurrence
+/// alone (no logarithms). Used when all three p-values are at least `WALK_MIN_P`, where the
+/// terms dropped as negligible cannot matter (they are below 1e-17 of the total, so at most
+/// 1e-12 of any p it returns); otherwise `None` and the log-space path runs.
+fn by_walk(h: &Hyper, a: u64, m: u64) -> Option<Fisher> {
+    const WALK_MIN_P: f64 = 1e-5;
+    // Pass 1: the total mass and the observed term, both relative to P(mode).
+    let mut total = 1.0f64;
+    let mut t_obs = if a == m { 1.0 } else { -1.0 };
+    let (mut x, mut t) = (m, 1.0f64);
+    while x > h.lo {
+        t *= h.ratio_down(x);
+        x -= 1;
+        total += t;
+        if x == a {
+            t_obs = t;
+        }
+        if t < NEGLIGIBLE * total {
+            break;
+        }
+    }
+    let left_end = x;
+    let (mut x, mut t) = (m, 1.0f64);
+    while x < h.hi {
+        t *= h.ratio_up(x);
+        x += 1;
+        total += t;
+        if x == a {
+            t_obs = t;
+        }
+        if t < NEGLIGIBLE * total {
+            break;
+        }
+    }
+    let right_end = x;
+    if t_obs < 0.0 {
+        return None;
+    }
+    // Pass 2: the same terms again, sorted into the three sums.
+    let thr = t_obs * (1.0 + TIE_TOLERANCE);
+    let (mut two, mut less, mut greater) = (0.0f64, 0.0f64, 0.0f64);
+    let mut add = |x: u64, t: f64| {
+        if t <= thr {
+            two += t;
+        }
+        if x <= a {
+            less += t;
+        }
+        if x >= a {
+            greater += t;
+        }
+    };
+    add(m, 1.0);
+    let (mut x, mut t) = (m, 1.0f64);
+    while x > left_end {
+        t *= h.ratio_down(x);
+        x -= 1;
+        add(x, t);
+    }
+    let (mut x, mut t) = (m, 1.0f64);
+    while x < right_end {
+        t *= h.ratio_up(x);
+        x += 1;
+        add(x, t);
+    }
+    let (two, less, greater) = (
+        (two / total).min(1.0),
+        (less / total).min(1.0),
+        (greater / total).min(1.0),
+    );
+    if two.min(less).min(greater) < WALK_MIN_P {
+        return None;
+    }
+    Some(Fisher {
+        p_two_sided: two,
+        log10_p: two.log10(),
+        p_less: less,
+        p_greater: greater,
+    })
 }
 
 /// Largest x in [lo, hi] with `pred(x)`, given pred is true at lo and monotone (true then
@@ -253,81 +341,6 @@ impl Hyper {
     }
 }
 
-/// ln of the binomial probability C(n, x) p^x q^(n-x), q = 1 - p given separately, by
-/// Loader's saddle-point expansion (Loader 2000; the form R's dbinom uses).
-fn ln_dbinom(x: u64, n: u64, p: f64, q: f64) -> f64 {
-    if n == 0 {
-        return if x == 0 { 0.0 } else { f64::NEG_INFINITY };
-    }
-    let nf = n as f64;
-    if x == 0 {
-        return if p < 0.1 {
-            -bd0(nf, nf * q) - nf * p
-        } else {
-            nf * q.ln()
-        };
-    }
-    if x == n {
-        return if q < 0.1 {
-            -bd0(nf, nf * p) - nf * q
-        } else {
-            nf * p.ln()
-        };
-    }
-    let xf = x as f64;
-    let yf = (n - x) as f64;
-    let lc = stirlerr(n) - stirlerr(x) - stirlerr(n - x) - bd0(xf, nf * p) - bd0(yf, nf * q);
-    let lf = (2.0 * std::f64::consts::PI).ln() + xf.ln() + (-xf / nf).ln_1p();
-    lc - 0.5 * lf
-}
-
-/// The error of Stirling's formula, ln(n!) - ((n + 1/2) ln n - n + ln sqrt(2 pi)).
-fn stirlerr(n: u64) -> f64 {
-    const LN_SQRT_2PI: f64 = 0.918_938_533_204_672_8;
-    if n <= 15 {
-        let nf = n as f64;
-        return ln_factorial(n) - ((nf + 0.5) * nf.ln() - nf + LN_SQRT_2PI);
-    }
-    // Stirling's series, coefficients B_2k / (2k (2k - 1)).
-    const S0: f64 = 1.0 / 12.0;
-    const S1: f64 = 1.0 / 360.0;
-    const S2: f64 = 1.0 / 1260.0;
-    const S3: f64 = 1.0 / 1680.0;
-    const S4: f64 = 1.0 / 1188.0;
-    let nf = n as f64;
-    let nn = nf * nf;
-    if n > 500 {
-        (S0 - S1 / nn) / nf
-    } else if n > 80 {
-        (S0 - (S1 - S2 / nn) / nn) / nf
-    } else if n > 35 {
-        (S0 - (S1 - (S2 - S3 / nn) / nn) / nn) / nf
-    } else {
-        (S0 - (S1 - (S2 - (S3 - S4 / nn) / nn) / nn) / nn) / nf
-    }
-}
-
-/// The deviance term x ln(x / m) + m - x, computed without cancellation when x is near m.
-fn bd0(x: f64, m: f64) -> f64 {
-    if (x - m).abs() < 0.1 * (x + m) {
-        let mut v = (x - m) / (x + m);
-        let mut s = (x - m) * v;
-        let mut ej = 2.0 * x * v;
-        v *= v;
-        for j in 1..1000 {
-            ej *= v;
-            let s1 = s + ej / (2 * j + 1) as f64;
-            if s1 == s {
-                return s1;
-            }
-            s = s1;
-        }
-        s
-    } else {
-        x * (x / m).ln() + m - x
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -398,14 +411,70 @@ mod tests {
 
     // Script: /work/notes/stats-scripts/fisher_ref.py (mpmath 1.3.0, loggamma, mp.dps = 60).
     const MPMATH_FISHER: &[([u64; 4], f64, f64)] = &[
-        ([3, 1, 1, 3], 0.485_714_285_714_285_7, -0.313_619_122_972_001_7),
-        ([100, 900, 200, 800], 4.146_230_622_436_390_6e-10, -9.382_346_545_159_193),
-        ([0, 500, 500, 0], 7.399_507_995_628_054e-300, -299.130_797_156_199_76),
-        ([1000, 99000, 1050, 98950], 0.276_671_796_250_005, -0.558_035_110_310_745_5),
-        ([1000, 99000, 1300, 98700], 3.400_961_377_207_788_5e-10, -9.468_398_300_075_739),
-        ([10, 20000, 60, 19950], 7.761_324_335_523_416e-10, -9.110_064_167_590_086),
-        ([0, 3000, 400, 2600], 4.961_686_039_455_849e-127, -126.304_370_720_040_78),
+        (
+            [3, 1, 1, 3],
+            0.485_714_285_714_285_7,
+            -0.313_619_122_972_001_7,
+        ),
+        (
+            [100, 900, 200, 800],
+            4.146_230_622_436_390_6e-10,
+            -9.382_346_545_159_193,
+        ),
+        (
+            [0, 500, 500, 0],
+            7.399_507_995_628_054e-300,
+            -299.130_797_156_199_8,
+        ),
+        (
+            [1000, 99000, 1050, 98950],
+            0.276_671_796_250_005,
+            -0.558_035_110_310_745_5,
+        ),
+        (
+            [1000, 99000, 1300, 98700],
+            3.400_961_377_207_788_5e-10,
+            -9.468_398_300_075_739,
+        ),
+        (
+            [10, 20000, 60, 19950],
+            7.761_324_335_523_416e-10,
+            -9.110_064_167_590_086,
+        ),
+        (
+            [0, 3000, 400, 2600],
+            4.961_686_039_455_849e-127,
+            -126.304_370_720_040_78,
+        ),
     ];
+
+    #[test]
+    fn the_walk_and_the_log_space_path_agree() {
+        for t in [
+            [3u64, 1, 1, 3],
+            [12, 5, 3, 20],
+            [1000, 99000, 1050, 98950],
+            [2, 298, 5, 290],
+        ] {
+            let h = Hyper::new(t[0] + t[1], t[2] + t[3], t[0] + t[2]);
+            let fast = by_walk(&h, t[0], h.mode()).expect("p large enough for the walk");
+            // The log-space path, forced by hiding the fast path's answer.
+            let slow = log_space(&h, t[0], h.mode());
+            assert_rel(
+                fast.p_two_sided,
+                slow.p_two_sided,
+                1e-12,
+                &format!("{t:?} two"),
+            );
+            assert_rel(fast.p_less, slow.p_less, 1e-12, &format!("{t:?} less"));
+            assert_rel(
+                fast.p_greater,
+                slow.p_greater,
+                1e-12,
+                &format!("{t:?} greater"),
+            );
+        }
+    }
 
     #[test]
     fn the_pmf_sums_to_one_for_large_margins() {

@@ -193,6 +193,11 @@ mod tests {
     fn normal_quantile_is_accurate() {
         // 1.959963984540054: the 0.975 normal quantile (Abramowitz & Stegun 26.2; digits from
         // memory, agreeing with mpmath 1.3.0 sqrt(2)*erfinv(0.95)).
-        close(normal_upper_quantile(0.025), 1.959_963_984_540_054, 1e-14, "z");
+        close(
+            normal_upper_quantile(0.025),
+            1.959_963_984_540_054,
+            1e-14,
+            "z",
+        );
     }
 }

@@ -51,6 +51,7 @@ pub mod effect;
 mod error;
 pub mod exact;
 pub mod interval;
+mod loader;
 pub mod montecarlo;
 pub mod overdispersion;
 pub mod pairwise;

@@ -420,8 +420,8 @@ mod tests {
 
     #[test]
     fn the_same_table_gives_the_same_p_and_thread_count_does_not_matter() {
-        let t = Table::from_rows(&[vec![2, 8], vec![0, 10], vec![5, 5], vec![1, 9]])
-            .expect("valid");
+        let t =
+            Table::from_rows(&[vec![2, 8], vec![0, 10], vec![5, 5], vec![1, 9]]).expect("valid");
         let seed = table_seed(&t);
         let a = conditional_p(&t, 600_000, seed).expect("testable"); // threaded
         let b = conditional_p(&t, 600_000, seed).expect("testable");

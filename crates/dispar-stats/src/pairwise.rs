@@ -114,10 +114,7 @@ struct Group {
 /// assert!(pairs[0].p_adjusted >= pairs[0].p);
 /// # Ok::<(), dispar_stats::StatsError>(())
 /// ```
-pub fn pairwise(
-    groups: &[(u64, u64)],
-    options: &PairwiseOptions,
-) -> Result<Vec<Pair>, StatsError> {
+pub fn pairwise(groups: &[(u64, u64)], options: &PairwiseOptions) -> Result<Vec<Pair>, StatsError> {
     check_open_unit("alpha", options.alpha)?;
     if let Some(m) = options.min_difference
         && !(m.is_finite() && m >= 0.0)
@@ -127,6 +124,9 @@ pub fn pairwise(
             value: m,
             requirement: "finite and >= 0",
         });
+    }
+    if options.method == PairMethod::Off {
+        return Ok(Vec::new());
     }
     let z = z_for_confidence(1.0 - options.alpha)?;
     let mut data = Vec::with_capacity(groups.len());
@@ -148,7 +148,7 @@ pub fn pairwise(
             ci: wilson_z(x, n, z)?,
         });
     }
-    if options.method == PairMethod::Off || data.len() < 2 {
+    if data.len() < 2 {
         return Ok(Vec::new());
     }
     let k = data.len();
@@ -284,7 +284,12 @@ mod tests {
             let x2s = crate::chisq::pearson(&t);
             assert_eq!(pair.method, PairTest::Pearson);
             assert_rel(pair.statistic.expect("chi-square"), x2s, 1e-14, "X^2");
-            assert_rel(pair.p, crate::chisq::upper_tail(x2s, 1).expect("ok").p, 1e-14, "p");
+            assert_rel(
+                pair.p,
+                crate::chisq::upper_tail(x2s, 1).expect("ok").p,
+                1e-14,
+                "p",
+            );
             assert_eq!(pair.p_adjusted, h);
             let ci = crate::interval::newcombe_difference(x1, n1, x2, n2, 0.95).expect("ok");
             assert_rel(pair.difference_ci.lower, ci.lower, 1e-14, "lower");
@@ -294,8 +299,11 @@ mod tests {
 
     #[test]
     fn auto_uses_fisher_for_sparse_pairs() {
-        let pairs = pairwise(&[(20, 1), (20, 6), (1000, 100)], &PairwiseOptions::default())
-            .expect("valid");
+        let pairs = pairwise(
+            &[(20, 1), (20, 6), (1000, 100)],
+            &PairwiseOptions::default(),
+        )
+        .expect("valid");
         assert_eq!(pairs[0].method, PairTest::Fisher);
         assert_eq!(pairs[0].statistic, None);
         let f = fisher(1, 19, 6, 14);
@@ -310,8 +318,8 @@ mod tests {
             min_difference: Some(0.05),
             ..PairwiseOptions::default()
         };
-        let pairs = pairwise(&[(10_000, 2_000), (10_000, 1_000), (10_000, 1_030)], &opts)
-            .expect("valid");
+        let pairs =
+            pairwise(&[(10_000, 2_000), (10_000, 1_000), (10_000, 1_030)], &opts).expect("valid");
         assert_eq!(pairs[0].practically_different, Some(true)); // 0.10, CI well above 0.05
         assert_eq!(pairs[2].practically_different, Some(false)); // -0.003
         let none = pairwise(&[(10, 1), (10, 2)], &PairwiseOptions::default()).expect("valid");

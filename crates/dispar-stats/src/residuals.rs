@@ -6,6 +6,7 @@
 //! For a k x 2 table the adjusted residual of a group's defective cell is its
 //! analysis-of-means z-score.
 
+use crate::chisq::deviation;
 use crate::table::Table;
 
 /// Statistics of one cell.
@@ -36,29 +37,59 @@ pub struct Cell {
 /// # Ok::<(), dispar_stats::StatsError>(())
 /// ```
 pub fn cells(table: &Table) -> Vec<Cell> {
-    let n = table.total() as f64;
+    let total = table.total();
     let mut out = Vec::with_capacity(table.rows() * table.cols());
+    if total == 0 {
+        out.resize(
+            table.rows() * table.cols(),
+            Cell {
+                expected: 0.0,
+                contribution: 0.0,
+                pearson_residual: 0.0,
+                adjusted_residual: 0.0,
+            },
+        );
+        return out;
+    }
+    let inv_n = 1.0 / total as f64;
+    // 1 / sqrt(1 - share) for each row and column (0 when it holds all of N).
+    let factor = |t: u64| -> f64 {
+        let rest = 1.0 - t as f64 * inv_n;
+        if rest > 0.0 { 1.0 / rest.sqrt() } else { 0.0 }
+    };
+    let col_factors: Vec<f64> = table.col_totals().iter().map(|&c| factor(c)).collect();
     for r in 0..table.rows() {
-        let row_share = if n > 0.0 {
-            table.row_totals()[r] as f64 / n
-        } else {
-            0.0
-        };
-        for c in 0..table.cols() {
-            let col_share = if n > 0.0 {
-                table.col_totals()[c] as f64 / n
+        let rt = table.row_totals()[r];
+        let row_factor = factor(rt);
+        for ((&o, &col_factor), &ct) in table
+            .row(r)
+            .iter()
+            .zip(&col_factors)
+            .zip(table.col_totals())
+        {
+            let (d, e) = if rt > 0 && ct > 0 {
+                deviation(o, rt, ct, total)
             } else {
-                0.0
+                (0.0, 0.0)
             };
-            let e = table.expected(r, c);
-            let d = table.get(r, c) as f64 - e;
-            let var = e * (1.0 - row_share) * (1.0 - col_share);
-            out.push(Cell {
-                expected: e,
-                contribution: if e > 0.0 { d * d / e } else { 0.0 },
-                pearson_residual: if e > 0.0 { d / e.sqrt() } else { 0.0 },
-                adjusted_residual: if var > 0.0 { d / var.sqrt() } else { 0.0 },
-            });
+            let cell = if e > 0.0 {
+                let inv_e = 1.0 / e;
+                let pearson_residual = d * inv_e.sqrt();
+                Cell {
+                    expected: e,
+                    contribution: d * d * inv_e,
+                    pearson_residual,
+                    adjusted_residual: pearson_residual * row_factor * col_factor,
+                }
+            } else {
+                Cell {
+                    expected: e,
+                    contribution: 0.0,
+                    pearson_residual: 0.0,
+                    adjusted_residual: 0.0,
+                }
+            };
+            out.push(cell);
         }
     }
     out
@@ -72,8 +103,7 @@ mod tests {
 
     #[test]
     fn contributions_sum_to_pearson_x2() {
-        let t = Table::from_rows(&[vec![12, 5, 9], vec![7, 22, 3], vec![1, 8, 30]])
-            .expect("valid");
+        let t = Table::from_rows(&[vec![12, 5, 9], vec![7, 22, 3], vec![1, 8, 30]]).expect("valid");
         let total: f64 = cells(&t).iter().map(|c| c.contribution).sum();
         assert_rel(total, pearson(&t), 1e-13, "sum of contributions");
     }

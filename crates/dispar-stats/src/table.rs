@@ -159,7 +159,10 @@ impl Table {
     /// # Panics
     /// When `r` or `c` is out of range.
     pub fn get(&self, r: usize, c: usize) -> u64 {
-        assert!(r < self.rows && c < self.cols, "cell ({r}, {c}) out of range");
+        assert!(
+            r < self.rows && c < self.cols,
+            "cell ({r}, {c}) out of range"
+        );
         self.counts[r * self.cols + c]
     }
 
@@ -226,9 +229,9 @@ impl Table {
         };
         let (kept_rows, dropped_rows) = split(&self.row_totals);
         let (kept_cols, dropped_cols) = split(&self.col_totals);
-        let table = if dropped_rows.is_empty() && dropped_cols.is_empty() {
-            self.clone()
-        } else if kept_rows.is_empty() || kept_cols.is_empty() {
+        let nothing_dropped = dropped_rows.is_empty() && dropped_cols.is_empty();
+        let nothing_kept = kept_rows.is_empty() || kept_cols.is_empty();
+        let table = if nothing_dropped || nothing_kept {
             self.clone()
         } else {
             let mut counts = Vec::with_capacity(kept_rows.len() * kept_cols.len());

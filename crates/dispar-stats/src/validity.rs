@@ -129,8 +129,8 @@ mod tests {
 
     #[test]
     fn zero_rows_and_columns_are_ignored() {
-        let t = Table::from_rows(&[vec![10, 0, 10], vec![0, 0, 0], vec![10, 0, 10]])
-            .expect("valid");
+        let t =
+            Table::from_rows(&[vec![10, 0, 10], vec![0, 0, 0], vec![10, 0, 10]]).expect("valid");
         let v = cochran(&t);
         assert_eq!(v.cells, 4);
         assert_eq!(v.min_expected, 10.0);
@@ -141,7 +141,11 @@ mod tests {
     fn the_2x2_shortcut_agrees_with_the_general_rule() {
         for (a, b, c, d) in [(5, 5, 5, 5), (4, 6, 6, 4), (10, 90, 20, 80), (1, 99, 3, 97)] {
             let t = Table::new(2, 2, vec![a, b, c, d]).expect("valid");
-            assert_eq!(cochran_2x2_holds(a, b, c, d), cochran(&t).holds, "{a} {b} {c} {d}");
+            assert_eq!(
+                cochran_2x2_holds(a, b, c, d),
+                cochran(&t).holds,
+                "{a} {b} {c} {d}"
+            );
         }
     }
 }

@@ -87,14 +87,18 @@ async fn run(
     }
     for (pass, shift) in [("insert", 0), ("correct", 1)] {
         let data = records(n, with_defects, shift)?;
+        let cpu = cpu_seconds();
         let t = Instant::now();
         for chunk in data.chunks(batch) {
             store.put_batch(chunk, Some(1), None).await?;
         }
         let secs = t.elapsed().as_secs_f64();
+        let cpu = cpu_seconds().zip(cpu).map(|(b, a)| b - a);
         println!(
-            "{label:<22} {pass:<8} {n} records in batches of {batch}: {secs:.3} s, {:.0} records/s",
-            n as f64 / secs
+            "{label:<22} {pass:<8} {n} records in batches of {batch}: {secs:.3} s wall, {:.0} records/s; \
+             process CPU {}",
+            n as f64 / secs,
+            cpu.map_or("n/a".to_owned(), |c| format!("{c:.2} s ({:.0} records per CPU-second)", n as f64 / c)),
         );
     }
     let stats = store.stats().await?;
@@ -104,6 +108,17 @@ async fn run(
     );
     store.close().await;
     Ok(())
+}
+
+/// User + system CPU time of the whole process (all threads), from /proc (Linux).
+fn cpu_seconds() -> Option<f64> {
+    let stat = std::fs::read_to_string("/proc/self/stat").ok()?;
+    let rest = stat.rsplit_once(')')?.1;
+    let fields: Vec<&str> = rest.split_whitespace().collect();
+    // After the command name: state is field 3, utime 14, stime 15 (1-based, man proc).
+    let utime: f64 = fields.get(11)?.parse().ok()?;
+    let stime: f64 = fields.get(12)?.parse().ok()?;
+    Some((utime + stime) / 100.0)
 }
 
 #[tokio::main]

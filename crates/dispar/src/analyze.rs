@@ -15,11 +15,12 @@
 //! could not be written.
 
 use std::io::{Read, Write};
+use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
 use dispar_core::report::{
-    AdjustChoice, MethodChoice, PairwiseChoice, Parameters, analyze_rates, analyze_table,
-    params::DEFAULT_RESAMPLES,
+    AdjustChoice, DispersionChoice, MethodChoice, PairwiseChoice, Parameters, analyze_rates,
+    analyze_table, params::DEFAULT_RESAMPLES,
 };
 use dispar_core::tabular::{self, InputError, InputErrors, Row};
 
@@ -37,7 +38,7 @@ pub enum Format {
 pub struct AnalyzeArgs {
     /// CSV file to read; `-` reads standard input.
     #[arg(value_name = "FILE", default_value = "-")]
-    pub file: String,
+    pub file: PathBuf,
     /// Significance level, between 0 and 1.
     #[arg(long, default_value_t = 0.05)]
     pub alpha: f64,
@@ -68,6 +69,10 @@ pub struct AnalyzeArgs {
     /// Read a table of raw counts (`group,<outcome>,...`) instead of rates.
     #[arg(long)]
     pub table: bool,
+    /// Overdispersion: report (estimate phi, flag with the plain ANOM limit) or widen
+    /// (also widen the flag limit by sqrt(phi) when phi > 1).
+    #[arg(long, default_value = "report", value_name = "report|widen")]
+    pub overdispersion: DispersionChoice,
     /// Smallest difference in rates that matters, in rate units (0.005 = half a
     /// percentage point); pairs are marked practically different only beyond it.
     #[arg(long, value_name = "RATE")]
@@ -104,7 +109,7 @@ pub fn run(args: &AnalyzeArgs) -> ExitCode {
 
 /// Does the work of [`run`]: the text to print, or the message for stderr.
 pub fn analyze(args: &AnalyzeArgs) -> Result<String, String> {
-    let params = Parameters::new(
+    let mut params = Parameters::new(
         args.alpha,
         args.method,
         args.pairwise,
@@ -125,13 +130,12 @@ pub fn analyze(args: &AnalyzeArgs) -> Result<String, String> {
             .collect::<Vec<_>>()
             .join("\n")
     })?;
-    let name = if args.file == "-" {
-        "<stdin>"
-    } else {
-        args.file.as_str()
-    };
-    let bytes =
-        read_input(&args.file).map_err(|e| format!("dispar analyze: cannot read {name}: {e}"))?;
+    params.overdispersion = args.overdispersion;
+    let stdin = args.file.as_os_str() == "-";
+    let shown = args.file.display().to_string();
+    let name = if stdin { "<stdin>" } else { shown.as_str() };
+    let bytes = read_input(&args.file, stdin)
+        .map_err(|e| format!("dispar analyze: cannot read {name}: {e}"))?;
     let rows = read_rows(&bytes).map_err(|e| prefix_errors(name, &e))?;
     let json = args.format == Format::Json;
     if args.table {
@@ -170,9 +174,9 @@ fn prefix_errors(name: &str, e: &InputErrors) -> String {
         .join("\n")
 }
 
-fn read_input(file: &str) -> std::io::Result<Vec<u8>> {
+fn read_input(file: &Path, stdin: bool) -> std::io::Result<Vec<u8>> {
     let mut buf = Vec::new();
-    if file == "-" {
+    if stdin {
         std::io::stdin().lock().read_to_end(&mut buf)?;
     } else {
         std::fs::File::open(file)?.read_to_end(&mut buf)?;

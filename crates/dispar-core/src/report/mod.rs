@@ -14,7 +14,7 @@ pub mod params;
 pub mod text;
 
 pub use build::{GroupCounts, ReportRequest, analyze_rates, analyze_table, build_report};
-pub use model::{Report, TableReport};
+pub use model::{Report, SeriesPoint, TableReport};
 pub use params::{
     AdjustChoice, DispersionChoice, Filters, Level, LevelKind, MethodChoice, PairwiseChoice,
     Parameters, RawParameters,

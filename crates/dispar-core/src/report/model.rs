@@ -416,3 +416,55 @@ pub struct TableReport {
     /// How to read the report.
     pub cautions: Vec<String>,
 }
+
+/// One period's verdict in a series (`GET /v1/reports/series`).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SeriesPoint {
+    /// The period.
+    pub period: Option<Period>,
+    /// Its inclusive dates.
+    pub dates: Option<DateRange>,
+    /// Units inspected over the compared groups.
+    pub inspected: u64,
+    /// Units defective over the compared groups.
+    pub defective: u64,
+    /// Groups compared.
+    pub groups: usize,
+    /// Method code of the test, or null when not testable.
+    pub method: Option<&'static str>,
+    /// p-value, or null.
+    #[serde(serialize_with = "opt_num")]
+    pub p_value: Option<f64>,
+    /// log10 of the p-value, or null.
+    #[serde(serialize_with = "opt_num")]
+    pub log10_p: Option<f64>,
+    /// Whether equal rates were rejected, or null.
+    pub reject: Option<bool>,
+    /// The verdict in words, or the reason it is not testable.
+    pub decision: String,
+    /// Flagged groups, largest share of X^2 first.
+    pub flagged: Vec<Flagged>,
+}
+
+impl Report {
+    /// The summary of this report used in a series.
+    pub fn summary(&self) -> SeriesPoint {
+        SeriesPoint {
+            period: self.period,
+            dates: self.dates,
+            inspected: self.totals.inspected,
+            defective: self.totals.defective,
+            groups: self.totals.groups,
+            method: self.test.as_ref().map(|t| t.method),
+            p_value: self.test.as_ref().map(|t| t.p_value),
+            log10_p: self.test.as_ref().map(|t| t.log10_p),
+            reject: self.test.as_ref().map(|t| t.reject),
+            decision: match (&self.test, &self.not_testable) {
+                (Some(t), _) => t.decision.clone(),
+                (None, Some(n)) => format!("Not testable: {}", n.reason),
+                (None, None) => String::new(),
+            },
+            flagged: self.flagged.clone(),
+        }
+    }
+}

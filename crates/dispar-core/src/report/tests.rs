@@ -297,7 +297,19 @@ fn period_level_and_as_of_are_echoed() {
     assert_eq!(v["dates"]["last"], "2026-03-15");
     assert_eq!(v["level"], "site");
     assert_eq!(v["parameters"]["as_of"], "2026-03-20T12:00:00Z");
-    assert!(r.test.unwrap().decision.contains("between the sites"));
+    assert!(
+        r.test
+            .as_ref()
+            .unwrap()
+            .decision
+            .contains("between the sites")
+    );
+    let s = serde_json::to_value(r.summary()).unwrap();
+    assert_eq!(s["period"], "2026-W11");
+    assert_eq!(s["method"], "pearson");
+    assert_eq!(s["reject"], true);
+    assert_eq!(s["inspected"], 1500);
+    assert_eq!(s["flagged"][0]["name"], "lot4");
 }
 
 #[test]
