@@ -70,21 +70,20 @@ CREATE TABLE revision_defects (
 ) STRICT, WITHOUT ROWID;
 
 -- The latest revision of every natural key, denormalised so that reports over the
--- current data are one indexed range scan with GROUP BY.
+-- current data are one range scan of the primary key with GROUP BY. The key starts
+-- with the date: plants post day by day, so new rows append at the end of the tree
+-- instead of at one place per (site, line), which halves the pages a batch dirties.
 CREATE TABLE counts_current (
+    date            TEXT NOT NULL,
     site            TEXT NOT NULL,
     line            TEXT NOT NULL,
-    date            TEXT NOT NULL,
     product         TEXT NOT NULL,
     revision_id     INTEGER NOT NULL,
     inspected       INTEGER NOT NULL,
     defective       INTEGER NOT NULL,
     plant_revision  INTEGER,
-    PRIMARY KEY (site, line, date, product)
+    PRIMARY KEY (date, site, line, product)
 ) STRICT, WITHOUT ROWID;
-
--- Covering index for SUM(inspected), SUM(defective) WHERE date BETWEEN .. GROUP BY site[, line].
-CREATE INDEX counts_current_by_date ON counts_current (date, site, line, product, inspected, defective);
 
 -- Defect counts of the latest revision of every key; the primary key starts with the
 -- date so category sums over a date range read one contiguous range.

@@ -98,7 +98,10 @@ async fn run(
             "{label:<22} {pass:<8} {n} records in batches of {batch}: {secs:.3} s wall, {:.0} records/s; \
              process CPU {}",
             n as f64 / secs,
-            cpu.map_or("n/a".to_owned(), |c| format!("{c:.2} s ({:.0} records per CPU-second)", n as f64 / c)),
+            cpu.map_or("n/a".to_owned(), |c| format!(
+                "{c:.2} s ({:.0} records per CPU-second)",
+                n as f64 / c
+            )),
         );
     }
     let stats = store.stats().await?;

@@ -129,7 +129,8 @@ pub struct CountFilter {
     pub to: Option<Date>,
 }
 
-/// One page of current records, ordered by (site, line, date, product; no product first).
+/// One page of current records, ordered by (date, site, line, product; no product
+/// first): the order of the primary key, so every page is one index seek.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct CountPage {
     /// The records.

@@ -416,7 +416,7 @@ fn fill_from_analysis(
         )
     } else {
         format!(
-            "Overdispersion phi = {:.3} over {} {between}: they vary more than binomial sampling explains; the flag limit was not widened (ask for overdispersion=widen to widen it by sqrt(phi) = {:.3}).",
+            "Overdispersion phi = {:.3} over {} {between}: they vary more than binomial sampling explains; the flag limit was not widened (the overdispersion choice 'widen' would widen it by sqrt(phi) = {:.3}).",
             o.phi, o.k, o.scale
         )
     };

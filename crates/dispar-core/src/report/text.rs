@@ -25,9 +25,15 @@ pub fn fmt_p(p: f64, log10_p: f64) -> String {
     }
 }
 
-/// A rate as a percentage with two decimals.
+/// A rate as a percentage: two decimals, four below 0.1% (so that rates in the
+/// parts-per-million range stay visible).
 pub fn fmt_rate(r: f64) -> String {
-    format!("{:.2}%", r * 100.0)
+    let pct = r * 100.0;
+    if pct != 0.0 && pct.abs() < 0.1 {
+        format!("{pct:.4}%")
+    } else {
+        format!("{pct:.2}%")
+    }
 }
 
 fn fmt_ci(ci: &Ci) -> String {
@@ -35,11 +41,11 @@ fn fmt_ci(ci: &Ci) -> String {
 }
 
 fn fmt_diff(d: f64) -> String {
-    format!("{:+.2} pp", d * 100.0)
+    format!("{:+.3} pp", d * 100.0)
 }
 
 fn fmt_diff_ci(ci: &Ci) -> String {
-    format!("[{:+.2}, {:+.2}]", ci.lower * 100.0, ci.upper * 100.0)
+    format!("[{:+.3}, {:+.3}]", ci.lower * 100.0, ci.upper * 100.0)
 }
 
 /// Lays out rows of cells in columns: the first column left-aligned, the others

@@ -455,13 +455,13 @@ impl SqliteStore {
                 .collect();
             for chunk in finals.chunks(INSERT_CHUNK) {
                 let mut q: QueryBuilder<Sqlite> = QueryBuilder::new(
-                    "INSERT INTO counts_current (site, line, date, product, revision_id, inspected, \
+                    "INSERT INTO counts_current (date, site, line, product, revision_id, inspected, \
                      defective, plant_revision) ",
                 );
                 q.push_values(chunk, |mut b, (r, c)| {
-                    b.push_bind(r.key.0)
+                    b.push_bind(r.date_text.as_str())
+                        .push_bind(r.key.0)
                         .push_bind(r.key.1)
-                        .push_bind(r.date_text.as_str())
                         .push_bind(r.key.3)
                         .push_bind(c.revision_id)
                         .push_bind(c.inspected)
@@ -469,7 +469,7 @@ impl SqliteStore {
                         .push_bind(c.plant_revision);
                 });
                 q.push(
-                    " ON CONFLICT (site, line, date, product) DO UPDATE SET \
+                    " ON CONFLICT (date, site, line, product) DO UPDATE SET \
                      revision_id = excluded.revision_id, inspected = excluded.inspected, \
                      defective = excluded.defective, plant_revision = excluded.plant_revision",
                 );
@@ -603,27 +603,18 @@ impl SqliteStore {
         if let Some(d) = filter.to {
             q.push(" AND c.date <= ").push_bind(format_date(d));
         }
-        if let Some([site, line, date, product]) = after {
-            // The keyset condition leaves out the columns an equality filter fixes to the
-            // cursor's value (equivalent there), so SQLite seeks straight to the cursor.
-            let site_fixed = filter.site.as_ref().is_some_and(|s| s.as_str() == site);
-            let line_fixed = site_fixed && filter.line.as_ref().is_some_and(|l| l.as_str() == line);
-            if line_fixed {
-                q.push(" AND (c.date, c.product) > (");
-            } else if site_fixed {
-                q.push(" AND (c.line, c.date, c.product) > (")
-                    .push_bind(line)
-                    .push(", ");
-            } else {
-                q.push(" AND (c.site, c.line, c.date, c.product) > (")
-                    .push_bind(site)
-                    .push(", ")
-                    .push_bind(line)
-                    .push(", ");
-            }
-            q.push_bind(date).push(", ").push_bind(product).push(")");
+        if let Some([date, site, line, product]) = after {
+            q.push(" AND (c.date, c.site, c.line, c.product) > (")
+                .push_bind(date)
+                .push(", ")
+                .push_bind(site)
+                .push(", ")
+                .push_bind(line)
+                .push(", ")
+                .push_bind(product)
+                .push(")");
         }
-        q.push(" ORDER BY c.site, c.line, c.date, c.product LIMIT ")
+        q.push(" ORDER BY c.date, c.site, c.line, c.product LIMIT ")
             .push_bind(i64::from(limit) + 1);
 
         let mut tx = self.reader.begin().await?;
@@ -635,7 +626,7 @@ impl SqliteStore {
         tx.rollback().await?;
 
         let next_cursor = match (more, rows.last()) {
-            (true, Some(last)) => Some(encode_cursor([&last.0, &last.1, &last.2, &last.3])),
+            (true, Some(last)) => Some(encode_cursor([&last.2, &last.0, &last.1, &last.3])),
             _ => None,
         };
         let records = rows
@@ -846,7 +837,7 @@ async fn last_recorded_at(tx: &mut WriteTx) -> Result<Option<OffsetDateTime>, St
     last.as_deref().map(parse_instant).transpose()
 }
 
-/// Cursors are the hex of `site \n line \n date \n product` of the last row shown:
+/// Cursors are the hex of `date \n site \n line \n product` of the last row shown:
 /// opaque to clients, and codes cannot contain a newline.
 fn encode_cursor(parts: [&str; 4]) -> String {
     hex::encode(parts.join("\n"))
@@ -856,7 +847,7 @@ fn decode_cursor(cursor: &str) -> Result<[String; 4], StoreError> {
     let bytes = hex::decode(cursor).map_err(|_| StoreError::BadCursor)?;
     let text = String::from_utf8(bytes).map_err(|_| StoreError::BadCursor)?;
     let mut parts = text.split('\n').map(str::to_owned);
-    let (Some(site), Some(line), Some(date), Some(product), None) = (
+    let (Some(date), Some(site), Some(line), Some(product), None) = (
         parts.next(),
         parts.next(),
         parts.next(),
@@ -868,7 +859,7 @@ fn decode_cursor(cursor: &str) -> Result<[String; 4], StoreError> {
     if dispar_core::date::parse_iso_date(&date).is_none() || site.is_empty() || line.is_empty() {
         return Err(StoreError::BadCursor);
     }
-    Ok([site, line, date, product])
+    Ok([date, site, line, product])
 }
 
 #[cfg(test)]
@@ -877,21 +868,21 @@ mod tests {
 
     #[test]
     fn cursors_round_trip_and_garbage_is_refused() {
-        let c = encode_cursor(["S1", "L1", "2026-03-14", ""]);
+        let c = encode_cursor(["2026-03-14", "S1", "L1", ""]);
         assert_eq!(
             decode_cursor(&c).expect("round trip"),
             [
+                "2026-03-14".to_owned(),
                 "S1".to_owned(),
                 "L1".to_owned(),
-                "2026-03-14".to_owned(),
                 String::new()
             ]
         );
         for bad in [
             "zz",
             "",
-            &hex::encode("S1\nL1\nnot-a-date\n"),
-            &hex::encode("S1\nL1"),
+            &hex::encode("not-a-date\nS1\nL1\n"),
+            &hex::encode("2026-03-14\nS1"),
         ] {
             assert!(
                 matches!(decode_cursor(bad), Err(StoreError::BadCursor)),

@@ -67,17 +67,6 @@ impl SqliteStore {
             .foreign_keys(true)
             .busy_timeout(options.busy_timeout)
             .pragma("temp_store", "MEMORY");
-        // EXPERIMENT (remove)
-        let base = match std::env::var("XSYNC").ok().as_deref() {
-            Some("off") => base.synchronous(SqliteSynchronous::Off),
-            Some("normal") => base.synchronous(SqliteSynchronous::Normal),
-            _ => base,
-        };
-        let base = match std::env::var("XCACHE").ok() {
-            Some(c) => base.pragma("cache_size", c),
-            None => base,
-        };
-
         let writer = SqlitePoolOptions::new()
             .max_connections(1)
             .min_connections(1)

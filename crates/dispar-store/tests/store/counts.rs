@@ -226,15 +226,15 @@ async fn pagination_walks_every_record_once_in_key_order() {
     let mut want = all.clone();
     want.sort_by(|a, b| {
         (
+            a.date(),
             a.site(),
             a.line(),
-            a.date(),
             a.product().map(|p| p.as_str()),
         )
             .cmp(&(
+                b.date(),
                 b.site(),
                 b.line(),
-                b.date(),
                 b.product().map(|p| p.as_str()),
             ))
     });
@@ -259,7 +259,7 @@ async fn pagination_walks_every_record_once_in_key_order() {
             .iter()
             .all(|r| r.record.site().as_str() == "S2" && r.record.line().as_str() == "L1")
     );
-    // Paging under equality filters (the cursor seeks within the site, or the line).
+    // Paging under equality filters.
     for (site, line, want) in [("S2", None, 20), ("S1", Some("L2"), 10)] {
         let f = dispar_store::CountFilter {
             site: Some(crate::helpers::site_code(site)),

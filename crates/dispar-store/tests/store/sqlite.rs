@@ -43,7 +43,7 @@ async fn plan(db: &crate::helpers::TestDb, sql: &str) -> String {
 }
 
 #[tokio::test]
-async fn report_sums_read_a_covering_index_range() {
+async fn report_sums_history_and_pages_read_index_ranges() {
     let db = fresh().await;
     let by_site = plan(
         &db,
@@ -52,7 +52,7 @@ async fn report_sums_read_a_covering_index_range() {
     )
     .await;
     assert!(
-        by_site.contains("USING COVERING INDEX counts_current_by_date (date>? AND date<?)"),
+        by_site.contains("USING PRIMARY KEY (date>? AND date<?)"),
         "{by_site}"
     );
     let defects = plan(
@@ -88,6 +88,21 @@ async fn report_sums_read_a_covering_index_range() {
     assert!(
         !as_of.contains("TEMP B-TREE"),
         "grouping follows the index: {as_of}"
+    );
+    let page = plan(
+        &db,
+        "SELECT c.site FROM counts_current c JOIN count_revisions r ON r.id = c.revision_id \
+         WHERE c.site = 'S1' AND (c.date, c.site, c.line, c.product) > ('2026-03-01', 'S1', 'L1', '') \
+         ORDER BY c.date, c.site, c.line, c.product LIMIT 101",
+    )
+    .await;
+    assert!(
+        page.contains("SEARCH c USING PRIMARY KEY ((date,site,line,product)>(?,?,?,?))"),
+        "{page}"
+    );
+    assert!(
+        !page.contains("TEMP B-TREE"),
+        "pages follow the key: {page}"
     );
 }
 
