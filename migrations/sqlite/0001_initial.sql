@@ -97,6 +97,30 @@ CREATE TABLE current_defects (
     PRIMARY KEY (date, site, line, product, category)
 ) STRICT, WITHOUT ROWID;
 
+-- Monthly sums of the current data per (month, site, line, product), kept up to date
+-- by every write (the change of each record is added). A report over whole months
+-- reads these few rows instead of every day; the days at the edges of a range come
+-- from counts_current / current_defects. month is 'YYYY-MM'.
+CREATE TABLE month_totals (
+    month      TEXT NOT NULL,
+    site       TEXT NOT NULL,
+    line       TEXT NOT NULL,
+    product    TEXT NOT NULL,
+    inspected  INTEGER NOT NULL,
+    defective  INTEGER NOT NULL,
+    PRIMARY KEY (month, site, line, product)
+) STRICT, WITHOUT ROWID;
+
+CREATE TABLE month_defects (
+    month     TEXT NOT NULL,
+    site      TEXT NOT NULL,
+    line      TEXT NOT NULL,
+    product   TEXT NOT NULL,
+    category  TEXT NOT NULL,
+    count     INTEGER NOT NULL,
+    PRIMARY KEY (month, site, line, product, category)
+) STRICT, WITHOUT ROWID;
+
 -- Stored answers of batch posts with an Idempotency-Key, scoped to the API key
 -- (api_key_id 0 = written without a key, e.g. by the CLI).
 CREATE TABLE idempotency (

@@ -273,8 +273,16 @@ fn main() {
     let elapsed = start.elapsed().as_secs_f64();
     latencies.sort_by(f64::total_cmp);
     let pct = |p: f64| latencies[((latencies.len() - 1) as f64 * p).round() as usize] * 1000.0;
-    let stored = server.snapshot().len();
-    assert_eq!(stored, o.records, "every record is stored");
+    let metrics = server.request("GET", "/metrics", None, Body::None).text;
+    let created = metrics
+        .lines()
+        .find_map(|l| l.strip_prefix("dispar_records_written_total{outcome=\"created\"} "))
+        .and_then(|v| v.trim().parse::<f64>().ok())
+        .unwrap_or(0.0);
+    assert_eq!(created as usize, o.records, "every record was created");
+    if std::env::var_os("INGEST_LOAD_LOG").is_some() {
+        eprintln!("{}", server.log());
+    }
     println!(
         "ingest over HTTP: {} records in {} CSV batches of {} ({:.1} MB), {} client(s): {:.3} s = {:.0} records/s; batch latency p50 {:.1} ms, p99 {:.1} ms",
         o.records,

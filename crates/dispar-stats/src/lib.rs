@@ -38,10 +38,12 @@
 //!
 //! # Numerical sources
 //!
-//! Upper tails from statrs 0.19 `ChiSquared::sf` (far tail in log space by continued
-//! fraction); Fisher and Patefield with Loader's (2000) saddle-point binomial terms; the
-//! ANOM constant by Fourier inversion (Soong & Hsu 1997) with Weideman's (1994) Faddeeva
-//! function. Each module names its references; tests name the source of every value.
+//! Chi-square upper tails as ln Q(df/2, x/2) from Loader's (2000) saddle-point prefactor and
+//! the continued fraction (statrs 0.19.1's `sf` drifts to ~5e-12 at large df, its `erfc` to
+//! ~4e-11; statrs still supplies ln Gamma and the start of critical values); Fisher and
+//! Patefield with Loader's binomial terms; the ANOM constant by Fourier inversion (Soong &
+//! Hsu 1997) with Weideman's (1994) Faddeeva function. Each module names its references;
+//! tests name the source of every value.
 
 pub mod adjust;
 pub mod analysis;
@@ -50,6 +52,7 @@ pub mod chisq;
 pub mod effect;
 mod error;
 pub mod exact;
+mod faddeeva;
 pub mod interval;
 mod loader;
 pub mod montecarlo;

@@ -748,6 +748,7 @@ async fn post_batch(
             Err(e) => return Err(crate::store_error(e)),
         }
     }
+    let started = std::time::Instant::now();
     let max = state.limits().max_batch_records;
     let (inputs, place) = match media {
         MediaType::Json => (json_records(&body.bytes, max)?, Place::Json),
@@ -770,6 +771,7 @@ async fn post_batch(
     }
     .map_err(|e| batch_validation(e, &place))?;
 
+    let checked = started.elapsed();
     let render = render_batch;
     let idempotency = idem_key.as_deref().map(|key| Idempotency {
         key,
@@ -790,6 +792,8 @@ async fn post_batch(
                 created = outcome.created,
                 corrected = outcome.corrected,
                 unchanged = outcome.unchanged,
+                check_ms = checked.as_secs_f64() * 1e3,
+                store_ms = (started.elapsed() - checked).as_secs_f64() * 1e3,
                 "batch written"
             );
             let answer = answer.unwrap_or_else(|| render_batch(&outcome));

@@ -13,6 +13,8 @@ pub mod counts;
 pub mod error;
 pub mod extract;
 pub mod ops;
+pub mod page;
+pub mod reports;
 pub mod sites;
 pub mod state;
 pub mod telemetry;
@@ -43,6 +45,8 @@ pub fn app(state: AppState) -> Router {
     let v1 = Router::new()
         .merge(sites::router())
         .merge(counts::router())
+        .merge(page::router())
+        .merge(reports::router())
         .layer(GlobalConcurrencyLimitLayer::new(limits.max_concurrency));
     let trace = TraceLayer::new_for_http()
         .make_span_with(|request: &Request<_>| {

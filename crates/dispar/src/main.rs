@@ -12,6 +12,7 @@ use std::time::Duration;
 
 mod analyze;
 mod demo;
+mod report_cli;
 
 use clap::{Args, Parser, Subcommand};
 use dispar::telemetry::{self, LogFormat};
@@ -39,6 +40,8 @@ enum Command {
     Keys(KeysCommand),
     /// Compare defect rates (or a table of counts) from a CSV file, offline.
     Analyze(analyze::AnalyzeArgs),
+    /// The report of one period from a database file, without a server (text or JSON).
+    Report(report_cli::ReportArgs),
     /// The invented demo scenario.
     #[command(subcommand)]
     Demo(DemoCommand),
@@ -198,6 +201,7 @@ async fn main() -> ExitCode {
         Command::Migrate(db) => migrate(&db).await,
         Command::Keys(cmd) => keys(cmd).await,
         Command::Analyze(args) => return analyze::run(&args),
+        Command::Report(args) => return report_cli::run(&args).await,
         Command::Demo(DemoCommand::Generate { seed, out }) => demo_generate(seed, &out),
     };
     match result {

@@ -1,6 +1,6 @@
-//! Operations: `/livez`, `/readyz`, `/metrics`, the `/problems/{slug}` pages, and
-//! the middleware every request passes (metrics, timeout, problem bodies for errors
-//! produced outside our handlers).
+//! Operations: `/livez`, `/readyz`, `/metrics`, the `/problems/{slug}` pages,
+//! `/openapi.yaml` (the API contract), and the middleware every request passes
+//! (metrics, timeout, problem bodies for errors produced outside our handlers).
 //!
 //! Metrics (Prometheus text format, `GET /metrics`, no key needed):
 //! - `dispar_http_requests_total{method, route, status}` — `route` is the route
@@ -94,6 +94,18 @@ pub fn router() -> Router<AppState> {
         .route("/readyz", get(readyz))
         .route("/metrics", get(render_metrics))
         .route("/problems/{slug}", get(problem_page))
+        .route("/openapi.yaml", get(openapi_yaml))
+}
+
+/// The API contract (`openapi.yaml` at the top of the repository), compiled in.
+pub const OPENAPI_YAML: &str = include_str!("../../../openapi.yaml");
+
+/// `GET /openapi.yaml`: the contract this server was built with (no key needed).
+async fn openapi_yaml() -> impl IntoResponse {
+    (
+        [(header::CONTENT_TYPE, HeaderValue::from_static("application/yaml"))],
+        OPENAPI_YAML,
+    )
 }
 
 /// 200 while the process runs.

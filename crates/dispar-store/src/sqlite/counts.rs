@@ -350,6 +350,9 @@ impl SqliteStore {
         let mut writes: Vec<(usize, i64)> = Vec::new();
         let mut dirty: Vec<usize> = Vec::new();
         let mut is_dirty = vec![false; distinct.len()];
+        // The value each changed key had before this batch (for the monthly sums).
+        let mut original: Vec<Option<Current>> = Vec::new();
+        original.resize_with(distinct.len(), || None);
         let mut next_id: Option<i64> = None;
         for (index, row) in rows.iter().enumerate() {
             let k = row_key.get(index).copied().unwrap_or(0);
@@ -378,21 +381,23 @@ impl SqliteStore {
                         status,
                     });
                     let stored_defects = current.is_some_and(|c| c.stored_defects);
-                    if let Some(slot) = state.get_mut(k) {
-                        *slot = Some(Current {
-                            revision_id: id,
-                            inspected: row.inspected,
-                            defective: row.defective,
-                            plant_revision: row.plant_revision,
-                            defects: Defects::Row(index),
-                            stored_defects,
-                        });
-                    }
+                    let new = Current {
+                        revision_id: id,
+                        inspected: row.inspected,
+                        defective: row.defective,
+                        plant_revision: row.plant_revision,
+                        defects: Defects::Row(index),
+                        stored_defects,
+                    };
+                    let before = state.get_mut(k).and_then(|slot| slot.replace(new));
                     if let Some(d) = is_dirty.get_mut(k)
                         && !*d
                     {
                         *d = true;
                         dirty.push(k);
+                        if let Some(o) = original.get_mut(k) {
+                            *o = before;
+                        }
                     }
                 }
             }
@@ -516,6 +521,7 @@ impl SqliteStore {
                 q.build().execute(&mut *tx).await?;
             }
 
+            write_month_sums(&mut tx, &rows, &dirty, &state, &original).await?;
             bump_data_version(&mut tx).await?;
         }
 
@@ -816,6 +822,86 @@ fn stored_from_history(
         recorded_at: parse_instant(&recorded_at)?,
         api_key_id,
     })
+}
+
+/// Adds the change of every changed key (final value minus the value before the batch)
+/// to the monthly sums.
+async fn write_month_sums(
+    tx: &mut WriteTx,
+    rows: &[Row<'_>],
+    dirty: &[usize],
+    state: &[Option<Current>],
+    original: &[Option<Current>],
+) -> Result<(), StoreError> {
+    type Group<'a> = (&'a str, &'a str, &'a str, &'a str);
+    let mut totals: BTreeMap<Group<'_>, (i64, i64)> = BTreeMap::new();
+    let mut defects: BTreeMap<(Group<'_>, String), i64> = BTreeMap::new();
+    for &k in dirty {
+        let Some(Some(now)) = state.get(k) else {
+            continue;
+        };
+        let Defects::Row(i) = now.defects else {
+            continue;
+        };
+        let Some(row) = rows.get(i) else { continue };
+        let month = row.date_text.get(..7).unwrap_or(&row.date_text);
+        let group = (month, row.key.0, row.key.1, row.key.3);
+        let (mut di, mut dd) = (now.inspected, now.defective);
+        for (c, n) in &row.defects {
+            *defects.entry((group, (*c).to_owned())).or_default() += n;
+        }
+        if let Some(Some(before)) = original.get(k) {
+            di -= before.inspected;
+            dd -= before.defective;
+            if let Defects::Stored(d) = &before.defects {
+                for (c, n) in d {
+                    *defects.entry((group, c.clone())).or_default() -= n;
+                }
+            }
+        }
+        let t = totals.entry(group).or_default();
+        t.0 += di;
+        t.1 += dd;
+    }
+    let totals: Vec<_> = totals.into_iter().filter(|(_, d)| *d != (0, 0)).collect();
+    for chunk in totals.chunks(INSERT_CHUNK) {
+        let mut q: QueryBuilder<Sqlite> = QueryBuilder::new(
+            "INSERT INTO month_totals (month, site, line, product, inspected, defective) ",
+        );
+        q.push_values(chunk, |mut b, ((m, s, l, p), (i, d))| {
+            b.push_bind(*m)
+                .push_bind(*s)
+                .push_bind(*l)
+                .push_bind(*p)
+                .push_bind(*i)
+                .push_bind(*d);
+        });
+        q.push(
+            " ON CONFLICT (month, site, line, product) DO UPDATE SET \
+             inspected = inspected + excluded.inspected, defective = defective + excluded.defective",
+        );
+        q.build().execute(&mut **tx).await?;
+    }
+    let defects: Vec<_> = defects.into_iter().filter(|(_, n)| *n != 0).collect();
+    for chunk in defects.chunks(DEFECT_CHUNK) {
+        let mut q: QueryBuilder<Sqlite> = QueryBuilder::new(
+            "INSERT INTO month_defects (month, site, line, product, category, count) ",
+        );
+        q.push_values(chunk, |mut b, (((m, s, l, p), c), n)| {
+            b.push_bind(*m)
+                .push_bind(*s)
+                .push_bind(*l)
+                .push_bind(*p)
+                .push_bind(c.as_str())
+                .push_bind(*n);
+        });
+        q.push(
+            " ON CONFLICT (month, site, line, product, category) DO UPDATE SET \
+             count = count + excluded.count",
+        );
+        q.build().execute(&mut **tx).await?;
+    }
+    Ok(())
 }
 
 /// The id the next revision gets: one above any id ever used.

@@ -252,3 +252,103 @@ async fn as_of_before_a_correction_gives_the_old_sums() {
             .all(|g| g.inspected == 0 && g.defects.is_empty())
     );
 }
+
+#[tokio::test]
+async fn monthly_sums_stay_equal_to_the_daily_data_through_corrections() {
+    use time::macros::date;
+    let db = fresh().await;
+    registry(db.store.as_ref(), 2, 2).await;
+    let day = |m: u8, d: u8| {
+        Date::from_calendar_date(2026, time::Month::try_from(m).expect("month"), d).expect("date")
+    };
+    let mut batch = Vec::new();
+    for m in 1..=4u8 {
+        for d in [1u8, 10, 28] {
+            for (site, line) in [("S1", "L1"), ("S1", "L2"), ("S2", "L1")] {
+                let n = u64::from(m) * 100 + u64::from(d);
+                batch.push(rec_full(
+                    site,
+                    line,
+                    None,
+                    day(m, d),
+                    n,
+                    n / 10,
+                    &[("a", n % 7), ("b", 1)],
+                    None,
+                ));
+                batch.push(rec_full(site, line, Some("P1"), day(m, d), n, 2, &[], None));
+            }
+        }
+    }
+    db.store.put_batch(&batch, None, None).await.expect("load");
+    // Corrections: other counts, a category dropped, a category added, a key twice.
+    let fixes = vec![
+        rec_full("S1", "L1", None, day(2, 10), 5, 5, &[("c", 9)], None),
+        rec_full("S1", "L1", None, day(2, 10), 6, 1, &[("a", 1)], None),
+        rec_full(
+            "S2",
+            "L1",
+            Some("P1"),
+            day(3, 28),
+            1000,
+            3,
+            &[("b", 4)],
+            None,
+        ),
+        rec("S1", "L2", day(1, 1), 0, 0),
+        rec("S2", "L2", day(4, 30), 70, 7),
+    ];
+    db.store.put_batch(&fixes, None, None).await.expect("fixes");
+    db.store
+        .put_record(
+            &rec_full("S1", "L1", None, day(2, 10), 6, 1, &[("a", 1)], None),
+            None,
+        )
+        .await
+        .expect("unchanged");
+
+    let ranges = [
+        (date!(2026 - 01 - 01), date!(2026 - 04 - 30)),
+        (date!(2026 - 02 - 01), date!(2026 - 02 - 28)),
+        (date!(2026 - 01 - 10), date!(2026 - 03 - 28)),
+        (date!(2026 - 01 - 02), date!(2026 - 02 - 27)),
+    ];
+    for (from, to) in ranges {
+        for level in [
+            Level::Site,
+            Level::AllLines,
+            Level::Line {
+                site: site_code("S1"),
+            },
+        ] {
+            for product in [None, Some("P1")] {
+                let mut q = query(level.clone(), from, to);
+                q.product =
+                    product.map(|p| dispar_core::code::ProductCode::parse(p).expect("product"));
+                let current = db.store.aggregate(&q).await.expect("current");
+                q.as_of = Some(time::OffsetDateTime::now_utc());
+                let history = db.store.aggregate(&q).await.expect("history");
+                assert_eq!(
+                    current.groups, history.groups,
+                    "{from}..{to} {level:?} {product:?}"
+                );
+            }
+        }
+    }
+    let feb = db
+        .store
+        .aggregate(&query(
+            Level::Site,
+            date!(2026 - 02 - 01),
+            date!(2026 - 02 - 28),
+        ))
+        .await
+        .expect("february");
+    let c: Vec<(&str, u64)> = feb.groups[0]
+        .defects
+        .iter()
+        .map(|(c, n)| (c.as_str(), *n))
+        .collect();
+    // S1 in February: L1 (1st: a=201%7=5,b=1; 10th: a=1; 28th: a=228%7=4,b=1), L2 (1st, 10th, 28th: a=5,0,4; b=1 each).
+    assert_eq!(c, [("a", 5 + 1 + 4 + 5 + 0 + 4), ("b", 1 + 1 + 1 + 1 + 1)]);
+}

@@ -1,0 +1,543 @@
+//! The HTML pages for people: sign in with a read key, then the report page and the
+//! series page, rendered on the server (SVG charts, no script, no external assets).
+//!
+//! | path | what |
+//! |------|------|
+//! | `GET /` | 303 to `/report` |
+//! | `GET /sign-in` | the sign-in form (`?next=` a page to return to) |
+//! | `POST /sign-in` | form `key=` (and `next=`): checks the key, sets the session cookie, 303 |
+//! | `POST /sign-out` | ends the session, clears the cookie, 303 to `/sign-in` |
+//! | `GET /report?period=&level=&site=` | the report page (default: the latest complete week with data, sites) |
+//! | `GET /series?from=&to=&level=&site=` | verdicts per period (default: the 12 weeks up to that week) |
+//!
+//! Modules: [`render`] (pure HTML), [`charts`] (pure SVG), [`format`] (escaping and
+//! numbers), [`session`] (cookie and session store), [`data`] (reports from the
+//! store, as the JSON endpoints compute them).
+//!
+//! Security: the key is only ever in the body of the sign-in POST. The session cookie
+//! is `HttpOnly; SameSite=Strict; Path=/` (+ `Secure` over https, see
+//! [`session::SecureCookies`]). Form posts from another origin are refused. Pages are
+//! sent with `Cache-Control: no-store` and a Content-Security-Policy that allows no
+//! script and only the page's own style sheet.
+
+pub mod charts;
+pub mod data;
+pub mod format;
+pub mod render;
+pub mod session;
+
+use std::sync::{Arc, Mutex};
+
+use axum::extract::{Form, State};
+use axum::http::header::{self, HeaderValue};
+use axum::http::{HeaderMap, StatusCode, Uri};
+use axum::response::{IntoResponse, Redirect, Response};
+use axum::routing::{get, post};
+use axum::{Extension, Router};
+use dispar_core::period::Period;
+use dispar_core::report::LevelKind;
+use dispar_store::KeyRole;
+use serde::Deserialize;
+use time::Date;
+
+use crate::auth::{parse_token, secret_matches};
+use crate::error::ApiError;
+use crate::state::AppState;
+
+use self::render::{PageContext, Selection, SeriesView, SiteChoice, Viewer};
+use self::session::{SecureCookies, Sessions};
+
+/// Settings of the pages.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct PageConfig {
+    /// When the session cookie is `Secure`.
+    pub secure_cookies: SecureCookies,
+}
+
+/// The pages' own state: sessions and the cached default period.
+#[derive(Debug)]
+struct Pages {
+    config: PageConfig,
+    sessions: Sessions,
+    /// (data version, today, default week) of the last look-up.
+    default_week: Mutex<Option<(u64, Date, Period)>>,
+}
+
+/// The page routes with the default [`PageConfig`].
+pub fn router() -> Router<AppState> {
+    router_with(PageConfig::default())
+}
+
+/// The page routes with `config`. Each call has its own sessions.
+pub fn router_with(config: PageConfig) -> Router<AppState> {
+    let pages = Arc::new(Pages {
+        config,
+        sessions: Sessions::new(),
+        default_week: Mutex::new(None),
+    });
+    Router::new()
+        .route("/", get(home))
+        .route("/sign-in", get(sign_in_form).post(sign_in))
+        .route("/sign-out", post(sign_out))
+        .route("/report", get(report_page))
+        .route("/series", get(series_page))
+        .layer(Extension(pages))
+}
+
+/// An HTML page with the headers every page carries.
+fn html(status: StatusCode, body: String) -> Response {
+    let csp = format!(
+        "default-src 'none'; style-src {}; img-src 'self'; form-action 'self'; frame-ancestors 'none'; base-uri 'none'",
+        render::style_hash()
+    );
+    let mut response = (status, body).into_response();
+    let h = response.headers_mut();
+    h.insert(
+        header::CONTENT_TYPE,
+        HeaderValue::from_static("text/html; charset=utf-8"),
+    );
+    h.insert(header::CACHE_CONTROL, HeaderValue::from_static("no-store"));
+    if let Ok(v) = HeaderValue::from_str(&csp) {
+        h.insert(header::CONTENT_SECURITY_POLICY, v);
+    }
+    h.insert(
+        header::X_CONTENT_TYPE_OPTIONS,
+        HeaderValue::from_static("nosniff"),
+    );
+    h.insert(header::X_FRAME_OPTIONS, HeaderValue::from_static("DENY"));
+    h.insert(
+        header::REFERRER_POLICY,
+        HeaderValue::from_static("same-origin"),
+    );
+    response
+}
+
+/// 303 to `location` with `Set-Cookie` when given.
+fn see_other(location: &str, cookie: Option<String>) -> Response {
+    let mut response = Redirect::to(location).into_response();
+    let h = response.headers_mut();
+    h.insert(header::CACHE_CONTROL, HeaderValue::from_static("no-store"));
+    if let Some(c) = cookie
+        && let Ok(v) = HeaderValue::from_str(&c)
+    {
+        h.insert(header::SET_COOKIE, v);
+    }
+    response
+}
+
+async fn home() -> Response {
+    see_other("/report", None)
+}
+
+/// The signed-in viewer of a request, or the redirect to the sign-in page.
+async fn viewer(
+    state: &AppState,
+    pages: &Pages,
+    headers: &HeaderMap,
+    uri: &Uri,
+) -> Result<Viewer, Response> {
+    let to_sign_in = || {
+        let mut q = form_urlencoded::Serializer::new(String::new());
+        let here = uri
+            .path_and_query()
+            .map_or_else(|| uri.path().to_owned(), |pq| pq.as_str().to_owned());
+        q.append_pair("next", &here);
+        see_other(&format!("/sign-in?{}", q.finish()), None)
+    };
+    let Some(id) = session::session_id(headers) else {
+        return Err(to_sign_in());
+    };
+    let Some(s) = pages.sessions.get(&id) else {
+        return Err(to_sign_in());
+    };
+    // The key is looked up again: a revoked key ends its sessions.
+    match state.store().find_key(s.key_id).await {
+        Ok(Some(key)) if !key.is_revoked() && key.role != KeyRole::Ingest => {
+            tracing::Span::current().record("key_id", key.id);
+            Ok(Viewer {
+                key_id: key.id,
+                role: key.role.to_string(),
+            })
+        }
+        Ok(_) => {
+            pages.sessions.remove(&id);
+            Err(to_sign_in())
+        }
+        Err(e) => Err(problem_page(&crate::store_error(e))),
+    }
+}
+
+/// A bare error page for failures before a report page can be laid out.
+fn problem_page(e: &ApiError) -> Response {
+    let (message, details) = words(e);
+    let body = render::render_sign_in(Some(&format!("{message} {}", details.join(" "))), None);
+    html(e.status(), body)
+}
+
+/// The words of an API error for a page: its detail and each item's message; for a
+/// 5xx a fixed sentence (the cause is logged, never shown).
+fn words(e: &ApiError) -> (String, Vec<String>) {
+    if e.status().is_server_error() {
+        tracing::error!(error = ?e, "page failed");
+        return (
+            "The server could not compute this page; the cause is in the server log.".to_owned(),
+            Vec::new(),
+        );
+    }
+    let detail = e.body()["detail"].as_str().unwrap_or("").to_owned();
+    let details = e
+        .errors()
+        .iter()
+        .map(|i| match &i.parameter {
+            Some(p) => format!("{p}: {}", i.message),
+            None => i.message.clone(),
+        })
+        .collect();
+    (detail, details)
+}
+
+#[derive(Debug, Default, Deserialize)]
+struct NextQuery {
+    next: Option<String>,
+}
+
+async fn sign_in_form(uri: Uri) -> Response {
+    let q: NextQuery = serde_urlencoded::from_str(uri.query().unwrap_or("")).unwrap_or_default();
+    html(
+        StatusCode::OK,
+        render::render_sign_in(None, session::safe_next(q.next.as_deref())),
+    )
+}
+
+/// The sign-in form's fields.
+#[derive(Deserialize)]
+struct SignInForm {
+    #[serde(default)]
+    key: String,
+    next: Option<String>,
+}
+
+async fn sign_in(
+    State(state): State<AppState>,
+    Extension(pages): Extension<Arc<Pages>>,
+    headers: HeaderMap,
+    form: Result<Form<SignInForm>, axum::extract::rejection::FormRejection>,
+) -> Response {
+    let refuse = |status: StatusCode, message: &str, next: Option<&str>| {
+        html(status, render::render_sign_in(Some(message), next))
+    };
+    if session::cross_site(&headers) {
+        return refuse(
+            StatusCode::FORBIDDEN,
+            "Sign in from this server's own sign-in page.",
+            None,
+        );
+    }
+    let Ok(Form(form)) = form else {
+        return refuse(
+            StatusCode::BAD_REQUEST,
+            "The sign-in form could not be read; send it again.",
+            None,
+        );
+    };
+    let next = session::safe_next(form.next.as_deref());
+    let Some(token) = parse_token(form.key.trim()) else {
+        return refuse(
+            StatusCode::UNAUTHORIZED,
+            "That is not a dispar key. A key looks like dsp_12_ followed by 64 letters and digits.",
+            next,
+        );
+    };
+    let key = match state.store().find_key(token.id).await {
+        Ok(k) => k,
+        Err(e) => return problem_page(&crate::store_error(e)),
+    };
+    let key = match key {
+        Some(k) if secret_matches(&token.secret, &k.secret_hash) => k,
+        _ => {
+            return refuse(StatusCode::UNAUTHORIZED, "That key is not valid.", next);
+        }
+    };
+    if key.is_revoked() {
+        return refuse(
+            StatusCode::UNAUTHORIZED,
+            "That key has been revoked.",
+            next,
+        );
+    }
+    if key.role == KeyRole::Ingest {
+        return refuse(
+            StatusCode::FORBIDDEN,
+            "An ingest key cannot open reports; sign in with a read key.",
+            next,
+        );
+    }
+    let id = match pages.sessions.create(key.id, key.role) {
+        Ok(id) => id,
+        Err(e) => {
+            return problem_page(&ApiError::internal(format!("no randomness for a session: {e}")));
+        }
+    };
+    tracing::Span::current().record("key_id", key.id);
+    tracing::info!(key_id = key.id, role = %key.role, "signed in to the pages");
+    let secure = pages.config.secure_cookies.secure_for(&headers);
+    see_other(
+        next.unwrap_or("/report"),
+        Some(session::set_cookie(&id, secure)),
+    )
+}
+
+async fn sign_out(Extension(pages): Extension<Arc<Pages>>, headers: HeaderMap) -> Response {
+    if session::cross_site(&headers) {
+        return html(
+            StatusCode::FORBIDDEN,
+            render::render_sign_in(Some("Sign out from this server's own pages."), None),
+        );
+    }
+    if let Some(id) = session::session_id(&headers) {
+        pages.sessions.remove(&id);
+    }
+    let secure = pages.config.secure_cookies.secure_for(&headers);
+    see_other("/sign-in", Some(session::clear_cookie(secure)))
+}
+
+/// A page's query string: the first value of each parameter (unknown ones ignored).
+#[derive(Debug, Default)]
+struct PageParams {
+    pairs: Vec<(String, String)>,
+}
+
+impl PageParams {
+    fn of(uri: &Uri) -> Self {
+        Self {
+            pairs: form_urlencoded::parse(uri.query().unwrap_or("").as_bytes())
+                .map(|(k, v)| (k.into_owned(), v.into_owned()))
+                .collect(),
+        }
+    }
+
+    /// The first non-empty value of `name`, trimmed.
+    fn get(&self, name: &str) -> Option<&str> {
+        self.pairs
+            .iter()
+            .find(|(k, _)| k == name)
+            .map(|(_, v)| v.trim())
+            .filter(|v| !v.is_empty())
+    }
+
+    /// The pass-through parameters present.
+    fn extra(&self) -> Vec<(String, String)> {
+        data::PASS_THROUGH
+            .iter()
+            .filter_map(|name| self.get(name).map(|v| ((*name).to_owned(), v.to_owned())))
+            .collect()
+    }
+
+    fn selection(&self) -> Selection {
+        Selection {
+            period: String::new(),
+            level: level_kind(self.get("level")),
+            site: self.get("site").map(str::to_owned),
+            extra: self.extra(),
+        }
+    }
+}
+
+async fn site_choices(state: &AppState) -> Vec<SiteChoice> {
+    match state.store().list_sites().await {
+        Ok(sites) => sites
+            .into_iter()
+            .map(|s| SiteChoice {
+                code: s.code.to_string(),
+                name: s.name.to_string(),
+            })
+            .collect(),
+        Err(e) => {
+            tracing::warn!(error = %e, "page: cannot list sites for the picker");
+            Vec::new()
+        }
+    }
+}
+
+fn today() -> Date {
+    time::OffsetDateTime::now_utc().date()
+}
+
+/// The default week, cached per data version and day.
+async fn default_week(state: &AppState, pages: &Pages) -> Result<Period, ApiError> {
+    let version = state
+        .store()
+        .data_version()
+        .await
+        .map_err(crate::store_error)?;
+    let day = today();
+    if let Ok(cache) = pages.default_week.lock()
+        && let Some((v, d, p)) = *cache
+        && v == version
+        && d == day
+    {
+        return Ok(p);
+    }
+    let p = data::default_week(state, day).await?;
+    if let Ok(mut cache) = pages.default_week.lock() {
+        *cache = Some((version, day, p));
+    }
+    Ok(p)
+}
+
+fn level_kind(level: Option<&str>) -> LevelKind {
+    level
+        .and_then(|l| l.parse::<LevelKind>().ok())
+        .unwrap_or(LevelKind::Site)
+}
+
+async fn report_page(
+    State(state): State<AppState>,
+    Extension(pages): Extension<Arc<Pages>>,
+    headers: HeaderMap,
+    uri: Uri,
+) -> Response {
+    let viewer = match viewer(&state, &pages, &headers, &uri).await {
+        Ok(v) => v,
+        Err(r) => return r,
+    };
+    let params = PageParams::of(&uri);
+    let mut ctx = PageContext {
+        viewer: Some(viewer),
+        selection: params.selection(),
+        sites: site_choices(&state).await,
+        previous: None,
+        next: None,
+        notice: None,
+    };
+    let period_text = match params.get("period") {
+        Some(p) => p.to_owned(),
+        None => match default_week(&state, &pages).await {
+            Ok(p) => {
+                ctx.notice = Some(format!(
+                    "Showing {p}, the latest complete week with data. Choose another period above."
+                ));
+                p.to_string()
+            }
+            Err(e) => {
+                let (message, details) = words(&e);
+                return html(
+                    e.status(),
+                    render::render_report_problem(&ctx, &message, &details),
+                );
+            }
+        },
+    };
+    ctx.selection.period = period_text.clone();
+    if let Ok(p) = period_text.parse::<Period>() {
+        ctx.previous = data::previous(p).map(|x| x.to_string());
+        ctx.next = p.next().map(|x| x.to_string());
+    }
+    let extra = ctx.selection.extra.clone();
+    let query = data::PageQuery {
+        period: Some(&period_text),
+        level: params.get("level"),
+        site: params.get("site"),
+        extra: &extra,
+        ..data::PageQuery::default()
+    };
+    match data::report(&state, query).await {
+        Ok(report) => html(StatusCode::OK, render::render_report(&report, &ctx)),
+        Err(e) => {
+            let (message, details) = words(&e);
+            html(
+                e.status(),
+                render::render_report_problem(&ctx, &message, &details),
+            )
+        }
+    }
+}
+
+async fn series_page(
+    State(state): State<AppState>,
+    Extension(pages): Extension<Arc<Pages>>,
+    headers: HeaderMap,
+    uri: Uri,
+) -> Response {
+    let viewer = match viewer(&state, &pages, &headers, &uri).await {
+        Ok(v) => v,
+        Err(r) => return r,
+    };
+    let params = PageParams::of(&uri);
+    let ctx = PageContext {
+        viewer: Some(viewer),
+        selection: params.selection(),
+        sites: site_choices(&state).await,
+        previous: None,
+        next: None,
+        notice: None,
+    };
+    let result = async {
+        let (from, to) =
+            series_bounds(&state, &pages, params.get("from"), params.get("to")).await?;
+        let query = data::PageQuery {
+            from: Some(&from),
+            to: Some(&to),
+            level: params.get("level"),
+            site: params.get("site"),
+            extra: &ctx.selection.extra,
+            ..data::PageQuery::default()
+        };
+        let (points, alpha) = data::series(&state, query).await?;
+        Ok::<_, ApiError>(SeriesView {
+            from,
+            to,
+            alpha,
+            points,
+        })
+    }
+    .await;
+    match result {
+        Ok(view) => html(StatusCode::OK, render::render_series(&view, &ctx)),
+        Err(e) => {
+            let (message, details) = words(&e);
+            html(
+                e.status(),
+                render::render_series_problem(
+                    params.get("from").unwrap_or(""),
+                    params.get("to").unwrap_or(""),
+                    &ctx,
+                    &message,
+                    &details,
+                ),
+            )
+        }
+    }
+}
+
+/// The series' first and last period as given, with the defaults filled in: `to`
+/// the default week (or the period of `from`'s kind holding it), `from` eleven
+/// periods before `to`.
+async fn series_bounds(
+    state: &AppState,
+    pages: &Pages,
+    from: Option<&str>,
+    to: Option<&str>,
+) -> Result<(String, String), ApiError> {
+    if let (Some(f), Some(t)) = (from, to) {
+        return Ok((f.to_owned(), t.to_owned()));
+    }
+    let from_p = from.map(|f| data::parse_period(f, "from")).transpose()?;
+    let to_p = match to {
+        Some(t) => data::parse_period(t, "to")?,
+        None => {
+            let week = default_week(state, pages).await?;
+            match from_p {
+                Some(f) if f.granularity() != week.granularity() => {
+                    Period::containing(f.granularity(), week.last_day()).unwrap_or(week)
+                }
+                _ => week,
+            }
+        }
+    };
+    let from_text = match from {
+        Some(f) => f.to_owned(),
+        None => data::back(to_p, 11).to_string(),
+    };
+    Ok((from_text, to.map_or_else(|| to_p.to_string(), str::to_owned)))
+}

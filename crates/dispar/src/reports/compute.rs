@@ -1,0 +1,134 @@
+//! From a checked request to a report: the store's sums per group (SQL), the groups'
+//! display names, and the pure builder of `dispar-core` (statistics in Rust). The HTTP
+//! handlers and `dispar report` share these functions, so both give the same report.
+
+use std::collections::{BTreeMap, HashMap};
+
+use dispar_core::period::Period;
+use dispar_core::report::build::CAUTIONS;
+use dispar_core::report::model::ParametersEcho;
+use dispar_core::report::{GroupCounts, Level, Report, SeriesPoint, build_report};
+use dispar_store::{GroupTotals, Store, StoreError};
+
+use super::spec::{ReportSpec, format_as_of};
+
+/// The groups of one period, as the builder takes them, and the data version they
+/// were read at.
+#[derive(Debug, Clone)]
+pub struct Loaded {
+    /// One entry per registered group at the level (those without data have zeros).
+    pub groups: Vec<GroupCounts>,
+    /// The store's data version of the read snapshot.
+    pub data_version: u64,
+}
+
+/// The name a group is shown and referred to by: the site code, or `site/line`.
+pub fn group_name(level: &Level, g: &GroupTotals) -> String {
+    match (level, &g.line) {
+        (Level::Site, _) | (_, None) => g.site.as_str().to_owned(),
+        (_, Some(line)) => format!("{}/{}", g.site, line),
+    }
+}
+
+fn counts(name: String, label: Option<String>, g: GroupTotals) -> GroupCounts {
+    GroupCounts {
+        name,
+        label,
+        inspected: g.inspected,
+        defective: g.defective,
+        defects: g
+            .defects
+            .into_iter()
+            .map(|(c, n)| (c.as_str().to_owned(), n))
+            .collect::<BTreeMap<_, _>>(),
+    }
+}
+
+/// Sums the counts of `period` per group (one `aggregate` call). With `labels`, also
+/// reads the display names: site names at the site and all-lines levels, line names
+/// at the line level (read after the sums, so they are never older than the data).
+pub async fn load(
+    store: &dyn Store,
+    spec: &ReportSpec,
+    period: &Period,
+    labels: bool,
+) -> Result<Loaded, StoreError> {
+    let aggregate = store.aggregate(&spec.aggregate_query(period)).await?;
+    let names: HashMap<String, String> = if !labels || aggregate.groups.is_empty() {
+        HashMap::new()
+    } else {
+        match &spec.level {
+            Level::Site | Level::AllLines => store
+                .list_sites()
+                .await?
+                .into_iter()
+                .map(|s| (s.code.as_str().to_owned(), s.name.as_str().to_owned()))
+                .collect(),
+            Level::Line { site } => store
+                .get_site(site)
+                .await?
+                .lines
+                .into_iter()
+                .filter_map(|l| {
+                    let name = l.name?;
+                    Some((l.code.as_str().to_owned(), name.as_str().to_owned()))
+                })
+                .collect(),
+        }
+    };
+    let groups = aggregate
+        .groups
+        .into_iter()
+        .map(|g| {
+            let label = match (&spec.level, &g.line) {
+                (Level::Line { .. }, Some(line)) => names.get(line.as_str()).cloned(),
+                _ => names.get(g.site.as_str()).cloned(),
+            };
+            counts(group_name(&spec.level, &g), label, g)
+        })
+        .collect();
+    Ok(Loaded {
+        groups,
+        data_version: aggregate.data_version,
+    })
+}
+
+/// The report of `period` over `groups` (pure; CPU-bound for many groups).
+pub fn build(spec: &ReportSpec, period: Period, groups: &[GroupCounts]) -> Report {
+    build_report(&spec.request(period), groups)
+}
+
+/// One period's verdict for a series.
+pub fn summary(spec: &ReportSpec, period: Period, groups: &[GroupCounts]) -> SeriesPoint {
+    build(spec, period, groups).summary()
+}
+
+/// The parameters as a report echoes them.
+pub fn echo(spec: &ReportSpec) -> ParametersEcho {
+    let p = &spec.parameters;
+    ParametersEcho {
+        alpha: p.alpha,
+        method: p.method,
+        pairwise: p.pairwise,
+        adjust: p.adjust,
+        resamples: p.resamples,
+        min_difference: p.min_difference,
+        overdispersion: p.overdispersion,
+        as_of: spec.as_of.map(format_as_of),
+    }
+}
+
+/// The cautions every report and series carries.
+pub fn cautions() -> Vec<String> {
+    CAUTIONS.iter().map(|s| (*s).to_owned()).collect()
+}
+
+/// Loads and builds a report: what `dispar report` runs.
+pub async fn report(
+    store: &dyn Store,
+    spec: &ReportSpec,
+    period: Period,
+) -> Result<(Report, u64), StoreError> {
+    let loaded = load(store, spec, &period, true).await?;
+    Ok((build(spec, period, &loaded.groups), loaded.data_version))
+}

@@ -1,0 +1,416 @@
+//! Period reports: `GET /v1/reports` (one period) and `GET /v1/reports/series`
+//! (per-period verdicts over a range).
+//!
+//! # Parameters
+//!
+//! `period` (reports; `2026-03-14`, `2026-W11`, `2026-03`, `2026-Q1`, `2026`,
+//! `2026-03-01..2026-03-20`) or `from` and `to` (series; two periods of the same
+//! kind, at most [`spec::MAX_SERIES_PERIODS`] periods); `level` = `site` (default),
+//! `line` (the lines of the site given by `site`), `all-lines`; filters `site` and
+//! `product`; `alpha`, `method`, `pairwise`, `adjust`, `resamples`,
+//! `min_difference`, `overdispersion` as in `dispar analyze`; `as_of` (RFC 3339: the
+//! data as they stood then). Every bad parameter is named in one 422 problem
+//! (`errors[].parameter`); an unknown parameter is a 422 too. A `site` that is not
+//! registered is a 422 with reason `unknown_site` on `site` (a filter is not a
+//! resource, so not a 404); an unknown `product` simply matches no data.
+//!
+//! # Who may ask
+//!
+//! Read and admin keys: any report. An ingest key: only reports confined to one of
+//! its own sites, that is with `site=` naming it (any level: `level=line&site=S1`
+//! compares S1's lines); without `site=`, or with another site, it is 403. The same
+//! rule as the count listing.
+//!
+//! # Caching
+//!
+//! Every answer carries a weak `ETag` derived from the normalized request (parameters
+//! as parsed, so `alpha=0.05` and `alpha=0.050` are one request) and the store's data
+//! version, which every write bumps, and `Cache-Control: private, no-cache`. A request
+//! whose `If-None-Match` holds the current tag gets 304 after one cheap read of the
+//! data version: no sums, no statistics. Rendered bodies are kept in a bounded
+//! in-memory [`cache::ReportCache`] (per server instance) under the same key, so a
+//! repeated request is served without recomputing; a write makes every older entry
+//! unreachable. `as_of` reports are keyed the same way (the registered groups and
+//! their names, which an `as_of` report also shows, are current, not historical).
+//! The counter `dispar_report_cache_total{result="hit|miss|not_modified"}` counts the
+//! outcomes.
+
+pub mod cache;
+pub mod compute;
+pub mod spec;
+
+use std::future::Future;
+use std::sync::Arc;
+
+use axum::body::Bytes;
+use axum::extract::State;
+use axum::http::header::{self, HeaderMap, HeaderValue};
+use axum::http::StatusCode;
+use axum::response::{IntoResponse, Response};
+use axum::routing::get;
+use axum::{Extension, Router};
+use dispar_core::error::FieldError;
+use dispar_core::period::{Granularity, Period};
+use dispar_core::report::model::ParametersEcho;
+use dispar_core::report::{Filters, LevelKind, SeriesPoint};
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+
+use crate::auth::Caller;
+use crate::error::{ApiError, ErrorItem, Result};
+use crate::extract::ApiQuery;
+use crate::state::AppState;
+
+pub use self::cache::ReportCache;
+pub use self::spec::{RawQuery, ReportSpec};
+
+/// The counter of cache outcomes.
+pub const CACHE_TOTAL: &str = "dispar_report_cache_total";
+
+/// The report routes, with their own cache (one per application instance).
+pub fn router() -> Router<AppState> {
+    Router::new()
+        .route("/v1/reports", get(get_report))
+        .route("/v1/reports/series", get(get_series))
+        .layer(Extension(Arc::new(ReportCache::default())))
+}
+
+/// The query of `GET /v1/reports`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct ReportQuery {
+    period: Option<String>,
+    level: Option<String>,
+    site: Option<String>,
+    product: Option<String>,
+    alpha: Option<String>,
+    method: Option<String>,
+    pairwise: Option<String>,
+    adjust: Option<String>,
+    resamples: Option<String>,
+    min_difference: Option<String>,
+    overdispersion: Option<String>,
+    as_of: Option<String>,
+}
+
+/// The query of `GET /v1/reports/series`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct SeriesQuery {
+    from: Option<String>,
+    to: Option<String>,
+    level: Option<String>,
+    site: Option<String>,
+    product: Option<String>,
+    alpha: Option<String>,
+    method: Option<String>,
+    pairwise: Option<String>,
+    adjust: Option<String>,
+    resamples: Option<String>,
+    min_difference: Option<String>,
+    overdispersion: Option<String>,
+    as_of: Option<String>,
+}
+
+/// A 422 naming each bad query parameter.
+fn params_error(errors: Vec<FieldError>) -> ApiError {
+    ApiError::validation(
+        "The query string has invalid parameters.",
+        errors
+            .into_iter()
+            .map(|e| ErrorItem::parameter(e.field, e.reason, e.message))
+            .collect(),
+    )
+}
+
+/// Read and admin keys may ask for any report; an ingest key only with `site=` one of
+/// its sites.
+fn authorize(caller: &Caller, site: Option<&str>) -> Result<()> {
+    match site {
+        Some(site) => caller.require_read_site(site.trim()),
+        None => caller.require_read_all().map_err(|_| {
+            ApiError::forbidden(
+                "An ingest key may read reports of its own sites only: name one with `site=`.",
+            )
+        }),
+    }
+}
+
+/// The weak entity tag of `key` at data `version`.
+pub fn etag(key: &str, version: u64) -> String {
+    let mut h = Sha256::new();
+    h.update(concat!("dispar ", env!("CARGO_PKG_VERSION"), "\n").as_bytes());
+    h.update(key.as_bytes());
+    h.update(format!("\n{version}").as_bytes());
+    let digest = h.finalize();
+    format!("W/\"{}\"", hex::encode(&digest[..16]))
+}
+
+/// True when `If-None-Match` lists `tag` (weak comparison, RFC 9110 section 13.1.2)
+/// or is `*`.
+fn none_match_hits(headers: &HeaderMap, tag: &str) -> bool {
+    let opaque = tag.trim_start_matches("W/");
+    headers
+        .get_all(header::IF_NONE_MATCH)
+        .iter()
+        .filter_map(|v| v.to_str().ok())
+        .flat_map(|v| v.split(','))
+        .map(str::trim)
+        .any(|t| t == "*" || t.trim_start_matches("W/") == opaque)
+}
+
+fn cache_headers(response: &mut Response, tag: &str) {
+    let headers = response.headers_mut();
+    if let Ok(v) = HeaderValue::from_str(tag) {
+        headers.insert(header::ETAG, v);
+    }
+    headers.insert(
+        header::CACHE_CONTROL,
+        HeaderValue::from_static("private, no-cache"),
+    );
+}
+
+fn json_response(body: Bytes, tag: &str) -> Response {
+    let mut response = (
+        [(
+            header::CONTENT_TYPE,
+            HeaderValue::from_static("application/json"),
+        )],
+        body,
+    )
+        .into_response();
+    cache_headers(&mut response, tag);
+    response
+}
+
+fn count(result: &'static str) {
+    metrics::counter!(CACHE_TOTAL, "result" => result).increment(1);
+}
+
+/// What a computation hands back: the body, the data version it was read at, and
+/// whether it may be cached (a series read across a write is not).
+struct Computed {
+    body: Bytes,
+    version: u64,
+    cacheable: bool,
+}
+
+/// The conditional-request and cache logic shared by both endpoints: 304 when the
+/// client's tag is current, the cached body when there is one, else `compute`.
+async fn respond<F, Fut>(
+    state: &AppState,
+    cache: &ReportCache,
+    headers: &HeaderMap,
+    key: &str,
+    compute: F,
+) -> Result<Response>
+where
+    F: FnOnce() -> Fut,
+    Fut: Future<Output = Result<Computed>>,
+{
+    let version = state
+        .store()
+        .data_version()
+        .await
+        .map_err(crate::store_error)?;
+    let tag = etag(key, version);
+    if none_match_hits(headers, &tag) {
+        count("not_modified");
+        let mut response = StatusCode::NOT_MODIFIED.into_response();
+        cache_headers(&mut response, &tag);
+        return Ok(response);
+    }
+    if let Some(body) = cache.get(key, version) {
+        count("hit");
+        return Ok(json_response(body, &tag));
+    }
+    count("miss");
+    let computed = compute().await?;
+    if computed.cacheable {
+        cache.insert(key, computed.version, computed.body.clone());
+    }
+    Ok(json_response(
+        computed.body,
+        &etag(key, computed.version),
+    ))
+}
+
+/// Runs CPU-bound work (statistics, serialization) off the async workers.
+async fn blocking<T: Send + 'static>(
+    work: impl FnOnce() -> serde_json::Result<T> + Send + 'static,
+) -> Result<T> {
+    tokio::task::spawn_blocking(work)
+        .await
+        .map_err(ApiError::internal)?
+        .map_err(ApiError::internal)
+}
+
+async fn get_report(
+    State(state): State<AppState>,
+    Extension(cache): Extension<Arc<ReportCache>>,
+    caller: Caller,
+    headers: HeaderMap,
+    ApiQuery(q): ApiQuery<ReportQuery>,
+) -> Result<Response> {
+    authorize(&caller, q.site.as_deref())?;
+    let raw = RawQuery {
+        period: q.period.as_deref(),
+        from: None,
+        to: None,
+        level: q.level.as_deref(),
+        site: q.site.as_deref(),
+        product: q.product.as_deref(),
+        alpha: q.alpha.as_deref(),
+        method: q.method.as_deref(),
+        pairwise: q.pairwise.as_deref(),
+        adjust: q.adjust.as_deref(),
+        resamples: q.resamples.as_deref(),
+        min_difference: q.min_difference.as_deref(),
+        overdispersion: q.overdispersion.as_deref(),
+        as_of: q.as_of.as_deref(),
+    };
+    let (spec, period) = ReportSpec::parse_report(&raw).map_err(params_error)?;
+    let key = format!("report&period={period}&{}", spec.key());
+    let store = state.store().clone();
+    respond(&state, &cache, &headers, &key, || async move {
+        let loaded = compute::load(store.as_ref(), &spec, &period, true)
+            .await
+            .map_err(crate::store_error)?;
+        let version = loaded.data_version;
+        let body = blocking(move || {
+            let report = compute::build(&spec, period, &loaded.groups);
+            serde_json::to_vec(&report)
+        })
+        .await?;
+        Ok(Computed {
+            body: Bytes::from(body),
+            version,
+            cacheable: true,
+        })
+    })
+    .await
+}
+
+/// The body of `GET /v1/reports/series`.
+#[derive(Debug, Serialize)]
+struct Series {
+    from: Period,
+    to: Period,
+    granularity: Granularity,
+    level: LevelKind,
+    #[serde(skip_serializing_if = "Filters::is_empty")]
+    filters: Filters,
+    parameters: ParametersEcho,
+    periods: Vec<SeriesPoint>,
+    cautions: Vec<String>,
+}
+
+async fn get_series(
+    State(state): State<AppState>,
+    Extension(cache): Extension<Arc<ReportCache>>,
+    caller: Caller,
+    headers: HeaderMap,
+    ApiQuery(q): ApiQuery<SeriesQuery>,
+) -> Result<Response> {
+    authorize(&caller, q.site.as_deref())?;
+    let raw = RawQuery {
+        period: None,
+        from: q.from.as_deref(),
+        to: q.to.as_deref(),
+        level: q.level.as_deref(),
+        site: q.site.as_deref(),
+        product: q.product.as_deref(),
+        alpha: q.alpha.as_deref(),
+        method: q.method.as_deref(),
+        pairwise: q.pairwise.as_deref(),
+        adjust: q.adjust.as_deref(),
+        resamples: q.resamples.as_deref(),
+        min_difference: q.min_difference.as_deref(),
+        overdispersion: q.overdispersion.as_deref(),
+        as_of: q.as_of.as_deref(),
+    };
+    let (spec, periods) = ReportSpec::parse_series(&raw).map_err(params_error)?;
+    let (Some(&from), Some(&to)) = (periods.first(), periods.last()) else {
+        return Err(params_error(vec![FieldError::new(
+            "to",
+            "empty_series",
+            "the series holds no period",
+        )]));
+    };
+    let key = format!("series&from={from}&to={to}&{}", spec.key());
+    let store = state.store().clone();
+    respond(&state, &cache, &headers, &key, || async move {
+        let mut loads = Vec::with_capacity(periods.len());
+        for p in &periods {
+            loads.push(
+                compute::load(store.as_ref(), &spec, p, false)
+                    .await
+                    .map_err(crate::store_error)?,
+            );
+        }
+        // Each period is its own read; a write in between makes the versions differ.
+        // Such a body is answered with the oldest version's tag and not cached.
+        let version = loads.iter().map(|l| l.data_version).min().unwrap_or(0);
+        let cacheable = loads.iter().all(|l| l.data_version == version);
+        let body = blocking(move || {
+            let points = periods
+                .iter()
+                .zip(&loads)
+                .map(|(p, l)| compute::summary(&spec, *p, &l.groups))
+                .collect();
+            serde_json::to_vec(&Series {
+                from,
+                to,
+                granularity: from.granularity(),
+                level: spec.level.kind(),
+                filters: spec.filters.clone(),
+                parameters: compute::echo(&spec),
+                periods: points,
+                cautions: compute::cautions(),
+            })
+        })
+        .await?;
+        Ok(Computed {
+            body: Bytes::from(body),
+            version,
+            cacheable,
+        })
+    })
+    .await
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn if_none_match_compares_weakly_and_accepts_lists_and_star() {
+        let tag = etag("k", 7);
+        assert!(tag.starts_with("W/\"") && tag.ends_with('"'), "{tag}");
+        let strong = tag.trim_start_matches("W/").to_owned();
+        for sent in [
+            tag.clone(),
+            strong.clone(),
+            format!("\"other\", {tag}"),
+            "*".to_owned(),
+        ] {
+            let mut h = HeaderMap::new();
+            h.insert(header::IF_NONE_MATCH, HeaderValue::from_str(&sent).unwrap());
+            assert!(none_match_hits(&h, &tag), "{sent}");
+        }
+        let mut h = HeaderMap::new();
+        h.insert(
+            header::IF_NONE_MATCH,
+            HeaderValue::from_str(&etag("k", 8)).unwrap(),
+        );
+        assert!(!none_match_hits(&h, &tag));
+        assert!(!none_match_hits(&HeaderMap::new(), &tag));
+    }
+
+    #[test]
+    fn the_tag_changes_with_the_key_and_the_version() {
+        assert_eq!(etag("a", 1), etag("a", 1));
+        assert_ne!(etag("a", 1), etag("a", 2));
+        assert_ne!(etag("a", 1), etag("b", 1));
+    }
+}
