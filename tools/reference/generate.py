@@ -475,7 +475,7 @@ def gen_fisher(tables: list[dict]) -> list[dict]:
     cases = []
     seen = set()
 
-    def add(name, a, b, c, d, big=False):
+    def add(name, a, b, c, d):
         key = (a, b, c, d)
         if key in seen:
             return
@@ -513,17 +513,17 @@ def gen_fisher(tables: list[dict]) -> list[dict]:
             if min(a + b, c + d, a + c, b + d) <= 20_000:
                 add(t["name"], a, b, c, d)
     add("tea tasting (Fisher 1935)", 3, 1, 1, 3)
-    add("[[100,900],[200,800]] (statrs gives half)", 100, 900, 200, 800, True)
-    add("[[0,500],[500,0]] (statrs gives negative)", 0, 500, 500, 0, True)
-    add("1% defective 100k each, equal", 1000, 99_000, 1000, 99_000, True)
-    add("1% defective 100k each, 1000 vs 1100", 1000, 99_000, 1100, 98_900, True)
-    add("1% defective 100k each, 980 vs 1050", 980, 99_020, 1050, 98_950, True)
-    add("1% defective 100k each, 1000 vs 1300", 1000, 99_000, 1300, 98_700, True)
-    add("1% defective 100k vs 80k, 1000 vs 760", 1000, 99_000, 760, 79_240, True)
-    add("rare defects 100k each, 3 vs 15", 3, 99_997, 15, 99_985, True)
+    add("[[100,900],[200,800]] (statrs gives half)", 100, 900, 200, 800)
+    add("[[0,500],[500,0]] (statrs gives negative)", 0, 500, 500, 0)
+    add("1% defective 100k each, equal", 1000, 99_000, 1000, 99_000)
+    add("1% defective 100k each, 1000 vs 1100", 1000, 99_000, 1100, 98_900)
+    add("1% defective 100k each, 980 vs 1050", 980, 99_020, 1050, 98_950)
+    add("1% defective 100k each, 1000 vs 1300", 1000, 99_000, 1300, 98_700)
+    add("1% defective 100k vs 80k, 1000 vs 760", 1000, 99_000, 760, 79_240)
+    add("rare defects 100k each, 3 vs 15", 3, 99_997, 15, 99_985)
     add("zero row", 0, 0, 5, 7)
     add("zero column", 0, 4, 0, 9)
-    add("large balanced 2000", 1000, 1000, 1000, 1000, True)
+    add("large balanced 2000", 1000, 1000, 1000, 1000)
     add("skewed 5/1000 vs 0/20", 5, 995, 0, 20)
     return cases
 

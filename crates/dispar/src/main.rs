@@ -1,4 +1,5 @@
-//! The `dispar` command: `serve`, `migrate`, `keys`, `analyze`, `demo generate`.
+//! The `dispar` command: `serve`, `migrate`, `keys`, `analyze`, `report`, `demo`
+//! (serve the demo scenario) and `demo generate`.
 //!
 //! Every subcommand that touches data takes `--database URL` (env `DATABASE_URL`,
 //! default `sqlite:dispar.db` in the working directory; the file is created and
@@ -41,10 +42,21 @@ enum Command {
     /// Compare defect rates (or a table of counts) from a CSV file, offline.
     Analyze(analyze::AnalyzeArgs),
     /// The report of one period from a database file, without a server (text or JSON).
-    Report(report_cli::ReportArgs),
-    /// The invented demo scenario.
+    Report(Box<report_cli::ReportArgs>),
+    /// The invented demo scenario: `dispar demo` serves it on a fresh database with keys
+    /// and examples; `dispar demo generate` writes its CSV files.
+    Demo(DemoArgs),
+}
+
+/// `dispar demo [--listen ADDR] [--database PATH]`, or `dispar demo generate ...`
+/// (from demo-run: see demo/run.rs).
+#[derive(Debug, Args)]
+#[command(args_conflicts_with_subcommands = true)]
+struct DemoArgs {
     #[command(subcommand)]
-    Demo(DemoCommand),
+    command: Option<DemoCommand>,
+    #[command(flatten)]
+    run: demo::run::RunArgs,
 }
 
 #[derive(Debug, Subcommand)]
@@ -202,7 +214,11 @@ async fn main() -> ExitCode {
         Command::Keys(cmd) => keys(cmd).await,
         Command::Analyze(args) => return analyze::run(&args),
         Command::Report(args) => return report_cli::run(&args).await,
-        Command::Demo(DemoCommand::Generate { seed, out }) => demo_generate(seed, &out),
+        Command::Demo(DemoArgs {
+            command: Some(DemoCommand::Generate { seed, out }),
+            ..
+        }) => demo_generate(seed, &out),
+        Command::Demo(DemoArgs { command: None, run }) => demo::run::run(run).await,
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

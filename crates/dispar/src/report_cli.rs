@@ -200,7 +200,10 @@ mod tests {
     fn database_urls_name_their_file() {
         let f = |u: &str| sqlite_file(u).map(|p| p.display().to_string());
         assert_eq!(f("sqlite:dispar.db").as_deref(), Some("dispar.db"));
-        assert_eq!(f("sqlite:///var/lib/d.db").as_deref(), Some("/var/lib/d.db"));
+        assert_eq!(
+            f("sqlite:///var/lib/d.db").as_deref(),
+            Some("/var/lib/d.db")
+        );
         assert_eq!(f("sqlite://d.db?mode=rwc").as_deref(), Some("d.db"));
         assert_eq!(f("plain.db").as_deref(), Some("plain.db"));
         assert_eq!(f("postgres://u@h/db"), None);

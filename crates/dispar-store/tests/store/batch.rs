@@ -231,3 +231,49 @@ async fn an_empty_batch_is_accepted_and_changes_nothing() {
     );
     assert_eq!(db.store.data_version().await.expect("version"), version);
 }
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 4)]
+async fn concurrent_writers_and_readers_all_succeed_in_some_order() {
+    let db = fresh().await;
+    registry(db.store.as_ref(), 4, 1).await;
+    let mut tasks = Vec::new();
+    for s in 1..=4 {
+        let store = db.store.clone();
+        tasks.push(tokio::spawn(async move {
+            for day in 0..25i64 {
+                let batch: Vec<_> = (0..20i64)
+                    .map(|k| {
+                        rec(
+                            &format!("S{s}"),
+                            "L1",
+                            D1 + Duration::days(day * 20 + k),
+                            100,
+                            1,
+                        )
+                    })
+                    .collect();
+                store
+                    .put_batch(&batch, None, None)
+                    .await
+                    .expect("concurrent batch");
+            }
+        }));
+        let store = db.store.clone();
+        tasks.push(tokio::spawn(async move {
+            for _ in 0..25 {
+                store.stats().await.expect("concurrent read");
+            }
+        }));
+    }
+    for t in tasks {
+        t.await.expect("task");
+    }
+    let stats = db.store.stats().await.expect("stats");
+    assert_eq!((stats.records, stats.revisions), (2000, 2000));
+    let history = db
+        .store
+        .record_history(&key("S3", "L1", None, D1))
+        .await
+        .expect("history");
+    assert_eq!(history.len(), 1);
+}

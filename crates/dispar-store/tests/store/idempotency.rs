@@ -144,3 +144,39 @@ async fn a_refused_batch_stores_no_answer_so_a_fixed_retry_goes_through() {
         .expect("purge");
     assert_eq!(purged, 1);
 }
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn two_racing_posts_with_one_key_give_one_write_and_one_replay() {
+    let db = fresh().await;
+    registry(db.store.as_ref(), 1, 1).await;
+    let batch = vec![rec("S1", "L1", D1, 10, 1), rec("S1", "L1", D2, 10, 1)];
+    let mut tasks = Vec::new();
+    for _ in 0..2 {
+        let store = db.store.clone();
+        let batch = batch.clone();
+        tasks.push(tokio::spawn(async move {
+            let idem = Idempotency {
+                key: "race",
+                body_sha256: [5; 32],
+                render: &render,
+            };
+            store
+                .put_batch(&batch, Some(1), Some(idem))
+                .await
+                .expect("post")
+        }));
+    }
+    let mut written = 0;
+    let mut replayed = 0;
+    for t in tasks {
+        match t.await.expect("task") {
+            BatchResult::Written { .. } => written += 1,
+            BatchResult::Replayed(a) => {
+                assert_eq!(a.body, b"created=2");
+                replayed += 1;
+            }
+        }
+    }
+    assert_eq!((written, replayed), (1, 1));
+    assert_eq!(db.store.stats().await.expect("stats").revisions, 2);
+}

@@ -7,6 +7,7 @@
 //! (a test checks it).
 
 pub mod generate;
+pub mod run;
 
 #[cfg(test)]
 mod tests;

@@ -9,8 +9,8 @@
 
 use std::fmt::Write as _;
 
-use dispar_core::report::{Report, SeriesPoint};
 use dispar_core::report::model::Flag;
+use dispar_core::report::{Report, SeriesPoint};
 
 use super::format::{coord, escape, fmt_count, fmt_p, fmt_pct};
 
@@ -170,7 +170,10 @@ pub fn rates_chart(report: &Report) -> Option<String> {
         let title = format!(
             "{}{}: {} ({} interval {} to {}), {} defective of {} inspected{}",
             g.name,
-            g.label.as_deref().map(|l| format!(" ({l})")).unwrap_or_default(),
+            g.label
+                .as_deref()
+                .map(|l| format!(" ({l})"))
+                .unwrap_or_default(),
             fmt_pct(g.rate),
             conf,
             fmt_pct(g.rate_ci.lower),
@@ -514,7 +517,11 @@ pub fn series_chart(points: &[SeriesPoint], alpha: f64, links: &[PeriodLink]) ->
                 let title = format!(
                     "{period}: p = {}{}{}",
                     fmt_p(pv),
-                    if reject { ", the groups differ" } else { ", no significant difference" },
+                    if reject {
+                        ", the groups differ"
+                    } else {
+                        ", no significant difference"
+                    },
                     flagged
                 );
                 let yb = y(h);
@@ -534,7 +541,10 @@ pub fn series_chart(points: &[SeriesPoint], alpha: f64, links: &[PeriodLink]) ->
                         String::new()
                     },
                 );
-                (if reject { "differ" } else { "same" }, format!("<title>{}</title>{bar}", escape(&title)))
+                (
+                    if reject { "differ" } else { "same" },
+                    format!("<title>{}</title>{bar}", escape(&title)),
+                )
             }
             _ => {
                 let title = format!("{period}: {}", p.decision);

@@ -12,7 +12,7 @@ use dispar_store::{AggregateQuery, Level as StoreLevel};
 use time::{Date, Duration};
 
 use crate::error::{ApiError, ErrorItem};
-use crate::reports::compute;
+use crate::reports::compute::{self, Detail};
 use crate::reports::spec::{RawQuery, ReportSpec};
 use crate::state::AppState;
 
@@ -97,7 +97,7 @@ pub fn parse_period(text: &str, field: &str) -> Result<Period, ApiError> {
 /// The report of `q.period`, exactly as `GET /v1/reports` computes it.
 pub async fn report(state: &AppState, q: PageQuery<'_>) -> Result<Report, ApiError> {
     let (spec, period) = ReportSpec::parse_report(&q.raw()).map_err(params_error)?;
-    let loaded = compute::load(state.store().as_ref(), &spec, &period, true)
+    let loaded = compute::load(state.store().as_ref(), &spec, &period, Detail::Report)
         .await
         .map_err(crate::store_error)?;
     // The statistics are CPU-bound: off the async workers, as the JSON endpoint does.
@@ -117,7 +117,7 @@ pub async fn series(
     let mut loads = Vec::with_capacity(periods.len());
     for p in &periods {
         loads.push(
-            compute::load(state.store().as_ref(), &spec, p, false)
+            compute::load(state.store().as_ref(), &spec, p, Detail::Summary)
                 .await
                 .map_err(crate::store_error)?,
         );

@@ -65,7 +65,7 @@ pub fn fmt_count(n: u64) -> String {
     let digits = n.to_string();
     let mut out = String::with_capacity(digits.len() + digits.len() / 3);
     for (i, c) in digits.chars().enumerate() {
-        if i > 0 && (digits.len() - i) % 3 == 0 {
+        if i > 0 && (digits.len() - i).is_multiple_of(3) {
             out.push(',');
         }
         out.push(c);
@@ -151,7 +151,11 @@ pub fn coord(x: f64) -> String {
     if x.is_finite() {
         let s = format!("{x:.2}");
         let s = s.trim_end_matches('0').trim_end_matches('.');
-        if s == "-0" { "0".to_owned() } else { s.to_owned() }
+        if s == "-0" {
+            "0".to_owned()
+        } else {
+            s.to_owned()
+        }
     } else {
         "0".to_owned()
     }

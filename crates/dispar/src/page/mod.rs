@@ -26,6 +26,9 @@ pub mod format;
 pub mod render;
 pub mod session;
 
+#[cfg(test)]
+mod tests;
+
 use std::sync::{Arc, Mutex};
 
 use axum::extract::{Form, State};
@@ -259,11 +262,7 @@ async fn sign_in(
         }
     };
     if key.is_revoked() {
-        return refuse(
-            StatusCode::UNAUTHORIZED,
-            "That key has been revoked.",
-            next,
-        );
+        return refuse(StatusCode::UNAUTHORIZED, "That key has been revoked.", next);
     }
     if key.role == KeyRole::Ingest {
         return refuse(
@@ -275,7 +274,9 @@ async fn sign_in(
     let id = match pages.sessions.create(key.id, key.role) {
         Ok(id) => id,
         Err(e) => {
-            return problem_page(&ApiError::internal(format!("no randomness for a session: {e}")));
+            return problem_page(&ApiError::internal(format!(
+                "no randomness for a session: {e}"
+            )));
         }
     };
     tracing::Span::current().record("key_id", key.id);
@@ -539,5 +540,8 @@ async fn series_bounds(
         Some(f) => f.to_owned(),
         None => data::back(to_p, 11).to_string(),
     };
-    Ok((from_text, to.map_or_else(|| to_p.to_string(), str::to_owned)))
+    Ok((
+        from_text,
+        to.map_or_else(|| to_p.to_string(), str::to_owned),
+    ))
 }

@@ -34,8 +34,7 @@ pub fn style_hash() -> &'static str {
 
 /// Standard base64 (RFC 4648 section 4, with padding).
 fn base64(bytes: &[u8]) -> String {
-    const ALPHABET: &[u8; 64] =
-        b"ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789+/";
+    const ALPHABET: &[u8; 64] = b"ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789+/";
     let mut out = String::with_capacity(bytes.len().div_ceil(3) * 4);
     for chunk in bytes.chunks(3) {
         let b = [
@@ -164,7 +163,13 @@ fn document(title: &str, viewer: Option<&Viewer>, nav: Nav, body: &str) -> Strin
         escape(title)
     );
     if let Some(v) = viewer {
-        let current = |n: Nav| if n == nav { " aria-current=\"page\"" } else { "" };
+        let current = |n: Nav| {
+            if n == nav {
+                " aria-current=\"page\""
+            } else {
+                ""
+            }
+        };
         let _ = write!(
             s,
             "<nav><a href=\"/report\"{}>Report</a><a href=\"/series\"{}>Series</a></nav><form class=\"who\" method=\"post\" action=\"/sign-out\"><span>key {} \u{00b7} {}</span><button type=\"submit\" class=\"quiet\">Sign out</button></form>",
@@ -311,9 +316,9 @@ fn verdict(report: &Report, out: &mut String) {
         }
     }
     let t = &report.totals;
-    let _ = write!(
+    let _ = writeln!(
         out,
-        "<p class=\"muted\">Pooled defect rate {} ({} defective of {} inspected, {} {}).</p></section>\n",
+        "<p class=\"muted\">Pooled defect rate {} ({} defective of {} inspected, {} {}).</p></section>",
         fmt_pct(t.rate),
         fmt_count(t.defective),
         fmt_count(t.inspected),
@@ -345,9 +350,13 @@ fn groups_table(report: &Report, out: &mut String) {
             fmt_pct(g.rate_ci.lower),
             fmt_pct(g.rate_ci.upper),
             fmt_num(g.expected, 1),
-            g.adjusted_residual.map(fmt_signed).unwrap_or_else(|| "\u{2014}".to_owned()),
+            g.adjusted_residual
+                .map(fmt_signed)
+                .unwrap_or_else(|| "\u{2014}".to_owned()),
             flag_tag(g.flag),
-            g.share_of_statistic.map(fmt_share).unwrap_or_else(|| "\u{2014}".to_owned()),
+            g.share_of_statistic
+                .map(fmt_share)
+                .unwrap_or_else(|| "\u{2014}".to_owned()),
         );
     }
     let t = &report.totals;
@@ -415,7 +424,11 @@ fn pair_row(p: &PairRow, with_practical: bool, out: &mut String) {
     let _ = write!(
         out,
         "<tr{}><th scope=\"row\">{} \u{2013} {}</th><td>{}</td><td>{} to {}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td>",
-        if p.reject { " class=\"significant\"" } else { "" },
+        if p.reject {
+            " class=\"significant\""
+        } else {
+            ""
+        },
         escape(&p.a),
         escape(&p.b),
         fmt_pp(p.difference),
@@ -519,9 +532,9 @@ fn flagged(report: &Report, out: &mut String) {
     let (_, plural, _) = units(report.level, None);
     out.push_str("<section id=\"flagged-section\"><h2>Flagged</h2>");
     if report.flagged.is_empty() {
-        let _ = write!(
+        let _ = writeln!(
             out,
-            "<p class=\"muted\">No {plural} beyond the flag limit.</p></section>\n"
+            "<p class=\"muted\">No {plural} beyond the flag limit.</p></section>"
         );
         return;
     }
@@ -538,9 +551,9 @@ fn flagged(report: &Report, out: &mut String) {
             fmt_share(f.share_of_statistic)
         );
     }
-    let _ = write!(
+    let _ = writeln!(
         out,
-        "</tbody></table></div><p class=\"small muted\">Largest share of the chi-square statistic first. A flag says a group's rate is far from the pooled rate of these {plural} in this period; it is relative to the others, not a verdict on the group alone.</p></section>\n"
+        "</tbody></table></div><p class=\"small muted\">Largest share of the chi-square statistic first. A flag says a group's rate is far from the pooled rate of these {plural} in this period; it is relative to the others, not a verdict on the group alone.</p></section>"
     );
 }
 
@@ -579,11 +592,7 @@ fn categories(report: &Report, out: &mut String) {
     }
     out.push_str("</tbody></table></div><div>");
     let a = &c.association;
-    let _ = write!(
-        out,
-        "<p>{}</p>",
-        escape(&association_words(a))
-    );
+    let _ = write!(out, "<p>{}</p>", escape(&association_words(a)));
     if !a.cells.is_empty() && !a.columns.is_empty() {
         out.push_str("<div class=\"scroll\"><table id=\"category-mix\"><thead><tr><th scope=\"col\">Group</th>");
         for col in &a.columns {
@@ -672,7 +681,11 @@ fn sample_sizes(report: &Report, out: &mut String) {
 fn method_notes(report: &Report, out: &mut String) {
     out.push_str("<section id=\"method\"><h2>How this was computed</h2><dl class=\"facts\">");
     if let Some(t) = &report.test {
-        let stat_name = if t.method == "g" { "G\u{00b2}" } else { "X\u{00b2}" };
+        let stat_name = if t.method == "g" {
+            "G\u{00b2}"
+        } else {
+            "X\u{00b2}"
+        };
         let _ = write!(
             out,
             "<dt>Test</dt><dd>{} \u{2014} {}</dd><dt>Statistic</dt><dd>{stat_name} = {} on {} df (critical value {} at alpha = {})</dd><dt>p-value</dt><dd>{}{} <span class=\"muted\">({})</span></dd><dt>Effect size</dt><dd>Cram\u{00e9}r's V = {} (bias-corrected {})</dd>",
@@ -703,11 +716,7 @@ fn method_notes(report: &Report, out: &mut String) {
         );
     }
     if let Some(o) = &report.overdispersion {
-        let _ = write!(
-            out,
-            "<dt>Overdispersion</dt><dd>{}</dd>",
-            escape(&o.note)
-        );
+        let _ = write!(out, "<dt>Overdispersion</dt><dd>{}</dd>", escape(&o.note));
     }
     let p = &report.parameters;
     let _ = write!(
@@ -719,7 +728,10 @@ fn method_notes(report: &Report, out: &mut String) {
         adjust_words(p.adjust.as_str()),
         fmt_count(p.resamples),
         p.min_difference
-            .map(|d| format!(", minimum difference of interest {} pp", fmt_num(d * 100.0, 2)))
+            .map(|d| format!(
+                ", minimum difference of interest {} pp",
+                fmt_num(d * 100.0, 2)
+            ))
             .unwrap_or_default(),
         format_args!(", overdispersion {}", p.overdispersion),
         p.as_of
@@ -867,7 +879,12 @@ pub fn render_report(report: &Report, ctx: &PageContext) -> String {
             escape(&q.finish())
         );
     }
-    document(&format!("{title} \u{2014} dispar"), ctx.viewer.as_ref(), Nav::Report, &body)
+    document(
+        &format!("{title} \u{2014} dispar"),
+        ctx.viewer.as_ref(),
+        Nav::Report,
+        &body,
+    )
 }
 
 /// The report page with the pickers and a problem instead of a report (a period that
@@ -876,7 +893,12 @@ pub fn render_report_problem(ctx: &PageContext, message: &str, details: &[String
     let mut body = String::new();
     picker(ctx, &mut body);
     problem_box(message, details, &mut body);
-    document("Report \u{2014} dispar", ctx.viewer.as_ref(), Nav::Report, &body)
+    document(
+        "Report \u{2014} dispar",
+        ctx.viewer.as_ref(),
+        Nav::Report,
+        &body,
+    )
 }
 
 fn problem_box(message: &str, details: &[String], out: &mut String) {
@@ -910,9 +932,9 @@ pub struct SeriesView {
 
 fn series_picker(view_from: &str, view_to: &str, ctx: &PageContext, out: &mut String) {
     let sel = &ctx.selection;
-    let _ = write!(
+    let _ = writeln!(
         out,
-        "<form id=\"picker\" class=\"picker\" method=\"get\" action=\"/series\"><label>From<input id=\"from\" name=\"from\" value=\"{}\" size=\"12\" spellcheck=\"false\" autocomplete=\"off\"></label><label>To<input id=\"to\" name=\"to\" value=\"{}\" size=\"12\" spellcheck=\"false\" autocomplete=\"off\"></label><label>Compare<select id=\"level\" name=\"level\">{}</select></label><label>Site (for lines of one site)<select id=\"site\" name=\"site\">{}</select></label>{}<button type=\"submit\">Show</button><p class=\"help\">Periods of one kind: weeks (2026-W10 to 2026-W26), months (2026-01 to 2026-06), quarters or years.</p></form>\n",
+        "<form id=\"picker\" class=\"picker\" method=\"get\" action=\"/series\"><label>From<input id=\"from\" name=\"from\" value=\"{}\" size=\"12\" spellcheck=\"false\" autocomplete=\"off\"></label><label>To<input id=\"to\" name=\"to\" value=\"{}\" size=\"12\" spellcheck=\"false\" autocomplete=\"off\"></label><label>Compare<select id=\"level\" name=\"level\">{}</select></label><label>Site (for lines of one site)<select id=\"site\" name=\"site\">{}</select></label>{}<button type=\"submit\">Show</button><p class=\"help\">Periods of one kind: weeks (2026-W10 to 2026-W26), months (2026-01 to 2026-06), quarters or years.</p></form>",
         escape(view_from),
         escape(view_to),
         level_options(sel.level),
@@ -927,11 +949,15 @@ pub fn render_series(view: &SeriesView, ctx: &PageContext) -> String {
     let mut body = String::with_capacity(32 * 1024);
     series_picker(&view.from, &view.to, ctx, &mut body);
     let (cap, plural, _) = units(Some(sel.level), sel.site.as_deref());
-    let differ = view.points.iter().filter(|p| p.reject == Some(true)).count();
+    let differ = view
+        .points
+        .iter()
+        .filter(|p| p.reject == Some(true))
+        .count();
     let tested = view.points.iter().filter(|p| p.reject.is_some()).count();
-    let _ = write!(
+    let _ = writeln!(
         body,
-        "<section id=\"verdict\" class=\"{}\"><h1>{cap}: {} of {} periods differ</h1><p class=\"verdict-line\">From {} to {}: the {plural} differ in defect rate in {differ} of the {tested} periods that could be tested at alpha = {}{}.</p></section>\n",
+        "<section id=\"verdict\" class=\"{}\"><h1>{cap}: {} of {} periods differ</h1><p class=\"verdict-line\">From {} to {}: the {plural} differ in defect rate in {differ} of the {tested} periods that could be tested at alpha = {}{}.</p></section>",
         if differ > 0 { "differ" } else { "same" },
         differ,
         view.points.len(),
@@ -1020,7 +1046,12 @@ pub fn render_series_problem(
     let mut body = String::new();
     series_picker(from, to, ctx, &mut body);
     problem_box(message, details, &mut body);
-    document("Series \u{2014} dispar", ctx.viewer.as_ref(), Nav::Series, &body)
+    document(
+        "Series \u{2014} dispar",
+        ctx.viewer.as_ref(),
+        Nav::Series,
+        &body,
+    )
 }
 
 /// The sign-in page: one password field for the read key, posted to `/sign-in`.

@@ -289,13 +289,19 @@ mod tests {
             session_id(&h).as_deref(),
             Some("0123456789abcdef0123456789ABCDEF")
         );
-        assert_eq!(session_id(&headers(&[("cookie", "dispar_session=short")])), None);
+        assert_eq!(
+            session_id(&headers(&[("cookie", "dispar_session=short")])),
+            None
+        );
         assert_eq!(session_id(&headers(&[])), None);
     }
 
     #[test]
     fn only_local_page_paths_are_followed_after_sign_in() {
-        assert_eq!(safe_next(Some("/report?period=2026-W16")), Some("/report?period=2026-W16"));
+        assert_eq!(
+            safe_next(Some("/report?period=2026-W16")),
+            Some("/report?period=2026-W16")
+        );
         assert_eq!(safe_next(Some("/series")), Some("/series"));
         for bad in [
             "https://evil.example/",

@@ -44,17 +44,34 @@ fn counts(name: String, label: Option<String>, g: GroupTotals) -> GroupCounts {
     }
 }
 
-/// Sums the counts of `period` per group (one `aggregate` call). With `labels`, also
-/// reads the display names: site names at the site and all-lines levels, line names
-/// at the line level (read after the sums, so they are never older than the data).
+/// What a load is for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Detail {
+    /// A full report: with the groups' display names and defect categories.
+    Report,
+    /// A series point: names and categories are not shown, so they are not read.
+    Summary,
+}
+
+/// Sums the counts of `period` per group (one `aggregate` call). For a full report it
+/// also reads the display names: site names at the site and all-lines levels, line
+/// names at the line level (read after the sums, so they are never older than the
+/// data).
 pub async fn load(
     store: &dyn Store,
     spec: &ReportSpec,
     period: &Period,
-    labels: bool,
+    detail: Detail,
 ) -> Result<Loaded, StoreError> {
-    let aggregate = store.aggregate(&spec.aggregate_query(period)).await?;
-    let names: HashMap<String, String> = if !labels || aggregate.groups.is_empty() {
+    let mut aggregate = store.aggregate(&spec.aggregate_query(period)).await?;
+    if detail == Detail::Summary {
+        // The category association is not part of a summary; without categories the
+        // builder skips it.
+        for g in &mut aggregate.groups {
+            g.defects.clear();
+        }
+    }
+    let names: HashMap<String, String> = if detail == Detail::Summary || aggregate.groups.is_empty() {
         HashMap::new()
     } else {
         match &spec.level {
@@ -129,6 +146,6 @@ pub async fn report(
     spec: &ReportSpec,
     period: Period,
 ) -> Result<(Report, u64), StoreError> {
-    let loaded = load(store, spec, &period, true).await?;
+    let loaded = load(store, spec, &period, Detail::Report).await?;
     Ok((build(spec, period, &loaded.groups), loaded.data_version))
 }

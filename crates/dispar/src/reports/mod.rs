@@ -44,8 +44,8 @@ use std::sync::Arc;
 
 use axum::body::Bytes;
 use axum::extract::State;
-use axum::http::header::{self, HeaderMap, HeaderValue};
 use axum::http::StatusCode;
+use axum::http::header::{self, HeaderMap, HeaderValue};
 use axum::response::{IntoResponse, Response};
 use axum::routing::get;
 use axum::{Extension, Router};
@@ -229,10 +229,7 @@ where
     if computed.cacheable {
         cache.insert(key, computed.version, computed.body.clone());
     }
-    Ok(json_response(
-        computed.body,
-        &etag(key, computed.version),
-    ))
+    Ok(json_response(computed.body, &etag(key, computed.version)))
 }
 
 /// Runs CPU-bound work (statistics, serialization) off the async workers.
@@ -273,7 +270,7 @@ async fn get_report(
     let key = format!("report&period={period}&{}", spec.key());
     let store = state.store().clone();
     respond(&state, &cache, &headers, &key, || async move {
-        let loaded = compute::load(store.as_ref(), &spec, &period, true)
+        let loaded = compute::load(store.as_ref(), &spec, &period, compute::Detail::Report)
             .await
             .map_err(crate::store_error)?;
         let version = loaded.data_version;
@@ -343,7 +340,7 @@ async fn get_series(
         let mut loads = Vec::with_capacity(periods.len());
         for p in &periods {
             loads.push(
-                compute::load(store.as_ref(), &spec, p, false)
+                compute::load(store.as_ref(), &spec, p, compute::Detail::Summary)
                     .await
                     .map_err(crate::store_error)?,
             );

@@ -92,9 +92,7 @@ pub fn parse_as_of(s: &str) -> Result<OffsetDateTime, FieldError> {
             FieldError::new(
                 "as_of",
                 dispar_core::error::reason::INVALID_FORMAT,
-                format!(
-                    "{s:?} is not an RFC 3339 timestamp; use for example 2026-03-14T08:00:00Z"
-                ),
+                format!("{s:?} is not an RFC 3339 timestamp; use for example 2026-03-14T08:00:00Z"),
             )
         })?
         .to_offset(UtcOffset::UTC);
@@ -218,7 +216,10 @@ impl ReportSpec {
         format!(
             "level={level}&site={}&product={}&alpha={:?}&method={}&pairwise={}&adjust={}&resamples={}&min_difference={}&overdispersion={}&as_of={}",
             self.filters.site.as_ref().map_or("", SiteCode::as_str),
-            self.filters.product.as_ref().map_or("", ProductCode::as_str),
+            self.filters
+                .product
+                .as_ref()
+                .map_or("", ProductCode::as_str),
             p.alpha,
             p.method,
             p.pairwise,
@@ -354,7 +355,11 @@ mod tests {
         let (sa, _) = ReportSpec::parse_report(&a).unwrap();
         let (sb, _) = ReportSpec::parse_report(&b).unwrap();
         assert_eq!(sa.key(), sb.key());
-        assert!(sa.key().contains("as_of=2026-03-14T08:00:00.000000Z"), "{}", sa.key());
+        assert!(
+            sa.key().contains("as_of=2026-03-14T08:00:00.000000Z"),
+            "{}",
+            sa.key()
+        );
         let c = RawQuery {
             alpha: Some("0.01"),
             ..a

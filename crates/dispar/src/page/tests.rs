@@ -1,0 +1,561 @@
+//! Tests of the pages: rendering (pure, from reports built by the core's builder) and
+//! the sign-in flow through the page router on a temporary SQLite database.
+
+use std::collections::BTreeMap;
+
+use axum::body::Body;
+use axum::http::{Request, StatusCode, header};
+use dispar_core::period::Period;
+use dispar_core::report::{
+    DispersionChoice, GroupCounts, LevelKind, Parameters, Report, ReportRequest, build_report,
+};
+use tower::ServiceExt as _;
+
+use super::render::{PageContext, Selection, SiteChoice, Viewer, render_report, render_sign_in};
+
+fn group(name: &str, label: &str, inspected: u64, defective: u64) -> GroupCounts {
+    GroupCounts {
+        name: name.to_owned(),
+        label: Some(label.to_owned()),
+        inspected,
+        defective,
+        defects: BTreeMap::new(),
+    }
+}
+
+fn report_of(groups: &[GroupCounts], parameters: Parameters) -> Report {
+    let req = ReportRequest {
+        period: Some("2026-W16".parse::<Period>().unwrap()),
+        level: Some(LevelKind::Site),
+        parameters,
+        ..ReportRequest::default()
+    };
+    build_report(&req, groups)
+}
+
+fn ctx() -> PageContext {
+    PageContext {
+        viewer: Some(Viewer {
+            key_id: 3,
+            role: "read".to_owned(),
+        }),
+        selection: Selection {
+            period: "2026-W16".to_owned(),
+            level: LevelKind::Site,
+            site: None,
+            extra: Vec::new(),
+        },
+        sites: vec![SiteChoice {
+            code: "KES".to_owned(),
+            name: "Kestelmoor <works>".to_owned(),
+        }],
+        previous: Some("2026-W15".to_owned()),
+        next: Some("2026-W17".to_owned()),
+        notice: None,
+    }
+}
+
+/// Five sites, one clearly worse (flagged above).
+fn five_sites() -> Vec<GroupCounts> {
+    vec![
+        group("KES", "Kestelmoor", 97_809, 1_977),
+        group("MRQ", "Marquenne", 80_000, 1_000),
+        group("ODW", "Oderwyn", 150_000, 1_350),
+        group("TLG", "Tallowgate", 320_000, 3_200),
+        group("VAL", "Valtrona", 7_500, 118),
+    ]
+}
+
+fn count(haystack: &str, needle: &str) -> usize {
+    haystack.matches(needle).count()
+}
+
+#[test]
+fn the_page_opens_with_the_verdict_then_the_table_and_both_charts() {
+    let report = report_of(&five_sites(), Parameters::default());
+    let html = render_report(&report, &ctx());
+    assert!(html.starts_with("<!doctype html>"), "{}", &html[..40]);
+    let order = [
+        "id=\"verdict\"",
+        "<table id=\"groups\"",
+        "<svg id=\"rates-chart\"",
+        "<svg id=\"funnel-chart\"",
+        "id=\"pairwise\"",
+        "id=\"flagged\"",
+        "id=\"samples\"",
+        "id=\"method\"",
+        "<ul id=\"cautions\"",
+    ];
+    let positions: Vec<usize> = order
+        .iter()
+        .map(|needle| {
+            html.find(needle)
+                .unwrap_or_else(|| panic!("{needle} missing"))
+        })
+        .collect();
+    assert!(positions.windows(2).all(|w| w[0] < w[1]), "{positions:?}");
+    let p = super::format::escape(&super::format::fmt_p(report.test.as_ref().unwrap().p_value));
+    assert!(
+        html.contains(&format!(
+            "Sites differ in defect rate (p = {p}, Pearson chi-square, 4 df)."
+        )),
+        "verdict sentence"
+    );
+    assert!(html.contains("flagged: <strong>KES</strong> above the pooled rate (2.02% against"));
+    // One row per site in the table, one mark per site in each chart.
+    let table = &html[html.find("<table id=\"groups\"").unwrap()..];
+    let table = &table[..table.find("</table>").unwrap()];
+    assert_eq!(count(table, " data-name="), 5);
+    assert_eq!(count(&html, "<g class=\"group "), 10);
+    for c in &report.cautions {
+        assert!(html.contains(&super::format::escape(c)), "caution {c}");
+    }
+    assert_eq!(count(&html, "<section"), count(&html, "</section>"));
+    assert_eq!(count(&html, "<svg"), count(&html, "</svg>"));
+    assert_eq!(count(&html, "<table"), count(&html, "</table>"));
+}
+
+#[test]
+fn names_from_users_are_escaped_everywhere() {
+    let mut groups = five_sites();
+    groups[0].name = "<script>alert(1)</script>".to_owned();
+    groups[0].label = Some("\"><img src=x onerror=alert(2)>".to_owned());
+    let report = report_of(&groups, Parameters::default());
+    let html = render_report(&report, &ctx());
+    assert!(!html.contains("<script"), "raw script tag in the page");
+    assert!(!html.contains("<img"), "raw img tag in the page");
+    assert!(html.contains("&lt;script&gt;alert(1)&lt;/script&gt;"));
+    assert!(html.contains("&quot;&gt;&lt;img src=x onerror=alert(2)&gt;"));
+    // The site picker's names too.
+    assert!(html.contains("Kestelmoor &lt;works&gt;"));
+    let sign_in = render_sign_in(Some("<b>bad</b>"), Some("/report?period=\"x"));
+    assert!(sign_in.contains("&lt;b&gt;bad&lt;/b&gt;") && !sign_in.contains("<b>"));
+    assert!(sign_in.contains("value=\"/report?period=&quot;x\""));
+}
+
+#[test]
+fn p_values_are_written_for_people() {
+    let groups = vec![
+        group("A", "a", 1_000, 10),
+        group("B", "b", 1_000, 12),
+        group("C", "c", 1_000, 30),
+    ];
+    let report = report_of(&groups, Parameters::default());
+    let t = report.test.as_ref().unwrap();
+    let html = render_report(&report, &ctx());
+    let shown = super::format::fmt_p(t.p_value);
+    assert!(
+        shown.contains("e-") || shown.starts_with("0."),
+        "{shown} for {}",
+        t.p_value
+    );
+    assert!(
+        html.contains(&format!("p = {shown}, Pearson chi-square, 2 df")),
+        "{shown}"
+    );
+    let huge = report_of(
+        &[
+            group("A", "a", 1_000_000, 100_000),
+            group("B", "b", 1_000_000, 10_000),
+        ],
+        Parameters::default(),
+    );
+    let t = huge.test.as_ref().unwrap();
+    assert!(
+        t.p_value < 1e-300 && t.log10_p < -300.0,
+        "{} {}",
+        t.p_value,
+        t.log10_p
+    );
+    let html = render_report(&huge, &ctx());
+    assert!(
+        html.contains("(p = &lt; 1e-300, "),
+        "underflow shown as a bound"
+    );
+    assert!(
+        html.contains(&format!("log10 p = {:.1}", t.log10_p)),
+        "log10 p kept"
+    );
+    let no_difference = report_of(
+        &[group("A", "a", 1_000, 10), group("B", "b", 1_000, 11)],
+        Parameters::default(),
+    );
+    let html = render_report(&no_difference, &ctx());
+    assert!(html.contains("class=\"same\""));
+    assert!(html.contains("This is not proof that they are equal."));
+}
+
+#[test]
+fn a_period_that_cannot_be_tested_says_why_and_still_lists_the_groups() {
+    let report = report_of(
+        &[
+            group("KES", "Kestelmoor", 500, 5),
+            group("MRQ", "Marquenne", 0, 0),
+        ],
+        Parameters::default(),
+    );
+    assert!(report.test.is_none());
+    let html = render_report(&report, &ctx());
+    assert!(html.contains("id=\"verdict\" class=\"untestable\""));
+    assert!(html.contains("<h1>Not testable</h1>"));
+    assert!(html.contains("<tr data-name=\"KES\">"));
+    assert!(html.contains("<li><strong>MRQ</strong>: no units inspected</li>"));
+    assert!(html.contains("No pairwise comparisons (there is no test)."));
+
+    let no_defects = report_of(
+        &[group("A", "a", 500, 0), group("B", "b", 700, 0)],
+        Parameters::default(),
+    );
+    let html = render_report(&no_defects, &ctx());
+    assert!(
+        html.contains("id=\"funnel-missing\""),
+        "no funnel at a pooled rate of 0"
+    );
+    assert!(html.contains("<svg id=\"rates-chart\""));
+}
+
+#[test]
+fn the_funnel_widens_when_overdispersion_is_applied() {
+    // Twelve groups with more spread than binomial sampling gives.
+    let groups: Vec<GroupCounts> = (0..12u64)
+        .map(|i| {
+            group(
+                &format!("S{i}"),
+                "s",
+                20_000,
+                160 + 15 * i + if i % 2 == 0 { 40 } else { 0 },
+            )
+        })
+        .collect();
+    let widen = Parameters {
+        overdispersion: DispersionChoice::Widen,
+        ..Parameters::default()
+    };
+    let report = report_of(&groups, widen);
+    let o = report.overdispersion.as_ref().unwrap();
+    assert!(o.applied, "phi = {}", o.phi);
+    let html = render_report(&report, &ctx());
+    assert!(html.contains(&format!("99.8% limits \u{00d7} {:.2}", o.phi.sqrt())));
+    assert!(html.contains("widened for overdispersion"));
+    let plain = report_of(&groups, Parameters::default());
+    assert!(!render_report(&plain, &ctx()).contains("widened for overdispersion"));
+}
+
+#[test]
+fn the_pickers_keep_the_selection_and_link_the_neighbouring_periods() {
+    let report = report_of(&five_sites(), Parameters::default());
+    let mut c = ctx();
+    c.selection.extra = vec![("alpha".to_owned(), "0.01".to_owned())];
+    let html = render_report(&report, &c);
+    assert!(html.contains("<input id=\"period\" name=\"period\" value=\"2026-W16\""));
+    assert!(html.contains("href=\"/report?period=2026-W15&amp;level=site&amp;alpha=0.01\""));
+    assert!(html.contains("<input type=\"hidden\" name=\"alpha\" value=\"0.01\">"));
+    assert!(html.contains("<option value=\"site\" selected>"));
+    assert!(!html.contains("<script"), "the page needs no script");
+}
+
+// ---- the routes, in process -------------------------------------------------------
+
+mod flow {
+    use std::sync::Arc;
+    use std::sync::atomic::{AtomicU64, Ordering};
+
+    use axum::Router;
+    use dispar_store::{KeyRole, Store};
+
+    use super::*;
+    use crate::state::{AppState, Limits};
+
+    struct Fixture {
+        app: Router,
+        store: Arc<dyn Store>,
+        path: std::path::PathBuf,
+    }
+
+    impl Drop for Fixture {
+        fn drop(&mut self) {
+            for suffix in ["", "-wal", "-shm"] {
+                let _ = std::fs::remove_file(format!("{}{suffix}", self.path.display()));
+            }
+        }
+    }
+
+    async fn fixture() -> Fixture {
+        static N: AtomicU64 = AtomicU64::new(0);
+        let path = std::env::temp_dir().join(format!(
+            "dispar-page-test-{}-{}.db",
+            std::process::id(),
+            N.fetch_add(1, Ordering::Relaxed)
+        ));
+        let store = dispar_store::open(&format!("sqlite:{}", path.display()))
+            .await
+            .unwrap();
+        let state = AppState::new(store.clone(), Limits::default());
+        let app = crate::page::router().with_state(state);
+        Fixture { app, store, path }
+    }
+
+    async fn key(store: &Arc<dyn Store>, role: KeyRole) -> (i64, String) {
+        let secret = crate::auth::new_secret().unwrap();
+        let sites = if role == KeyRole::Ingest {
+            vec![dispar_core::code::SiteCode::parse("KES").unwrap()]
+        } else {
+            Vec::new()
+        };
+        let id = store
+            .create_key(role, &sites, None, &secret.hash)
+            .await
+            .unwrap();
+        (id, crate::auth::token(id, &secret.secret_hex))
+    }
+
+    async fn send(app: &Router, req: Request<Body>) -> (StatusCode, axum::http::HeaderMap, String) {
+        let resp = app.clone().oneshot(req).await.unwrap();
+        let status = resp.status();
+        let headers = resp.headers().clone();
+        let bytes = axum::body::to_bytes(resp.into_body(), 10 << 20)
+            .await
+            .unwrap();
+        (status, headers, String::from_utf8(bytes.to_vec()).unwrap())
+    }
+
+    fn post_form(path: &str, body: String, extra: &[(&str, &str)]) -> Request<Body> {
+        let mut b = Request::post(path)
+            .header(header::CONTENT_TYPE, "application/x-www-form-urlencoded")
+            .header(header::HOST, "127.0.0.1:8080");
+        for (k, v) in extra {
+            b = b.header(*k, *v);
+        }
+        b.body(Body::from(body)).unwrap()
+    }
+
+    fn get(path: &str, cookie: Option<&str>) -> Request<Body> {
+        let mut b = Request::get(path);
+        if let Some(c) = cookie {
+            b = b.header(header::COOKIE, c);
+        }
+        b.body(Body::empty()).unwrap()
+    }
+
+    fn form(key: &str, next: Option<&str>) -> String {
+        let mut s = form_urlencoded::Serializer::new(String::new());
+        s.append_pair("key", key);
+        if let Some(n) = next {
+            s.append_pair("next", n);
+        }
+        s.finish()
+    }
+
+    /// The `name=value` part of a Set-Cookie header.
+    fn cookie_pair(set_cookie: &str) -> String {
+        set_cookie.split(';').next().unwrap().to_owned()
+    }
+
+    #[tokio::test]
+    async fn pages_need_a_session_and_sign_in_exchanges_a_read_key_for_a_cookie() {
+        let f = fixture().await;
+        let (_, token) = key(&f.store, KeyRole::Read).await;
+
+        let (status, headers, _) = send(&f.app, get("/report?period=2026-W16", None)).await;
+        assert_eq!(status, StatusCode::SEE_OTHER);
+        assert_eq!(
+            headers[header::LOCATION],
+            "/sign-in?next=%2Freport%3Fperiod%3D2026-W16"
+        );
+
+        let (status, headers, body) = send(&f.app, get("/sign-in?next=%2Freport", None)).await;
+        assert_eq!(status, StatusCode::OK);
+        assert!(
+            headers[header::CONTENT_TYPE]
+                .to_str()
+                .unwrap()
+                .starts_with("text/html")
+        );
+        assert!(body.contains("type=\"password\"") && body.contains("method=\"post\""));
+        let csp = headers[header::CONTENT_SECURITY_POLICY].to_str().unwrap();
+        assert!(
+            csp.contains("default-src 'none'") && csp.contains("'sha256-"),
+            "{csp}"
+        );
+
+        let (status, headers, _) = send(
+            &f.app,
+            post_form(
+                "/sign-in",
+                form(&token, Some("/report?period=2026-W16")),
+                &[],
+            ),
+        )
+        .await;
+        assert_eq!(status, StatusCode::SEE_OTHER);
+        let location = headers[header::LOCATION].to_str().unwrap();
+        assert_eq!(location, "/report?period=2026-W16");
+        assert!(!location.contains(&token[4..20]), "no key in the URL");
+        let set_cookie = headers[header::SET_COOKIE].to_str().unwrap();
+        for part in [
+            "dispar_session=",
+            "HttpOnly",
+            "SameSite=Strict",
+            "Path=/",
+            "Max-Age=43200",
+        ] {
+            assert!(set_cookie.contains(part), "{part} in {set_cookie}");
+        }
+        assert!(!set_cookie.contains("Secure"), "plain HTTP: {set_cookie}");
+        assert!(
+            !set_cookie.contains(&token[4..20]),
+            "the cookie is not the key"
+        );
+        let cookie = cookie_pair(set_cookie);
+
+        let (status, headers, body) =
+            send(&f.app, get("/report?period=2026-W16", Some(&cookie))).await;
+        assert_eq!(status, StatusCode::OK, "{body}");
+        assert_eq!(headers[header::CACHE_CONTROL], "no-store");
+        assert!(body.contains("id=\"verdict\""), "{body}");
+        assert!(!body.contains(&token[4..20]), "the key is not in the page");
+
+        // Signing out ends the session.
+        let (status, headers, _) = send(
+            &f.app,
+            post_form("/sign-out", String::new(), &[("cookie", &cookie)]),
+        )
+        .await;
+        assert_eq!(status, StatusCode::SEE_OTHER);
+        assert!(
+            headers[header::SET_COOKIE]
+                .to_str()
+                .unwrap()
+                .contains("Max-Age=0")
+        );
+        let (status, _, _) = send(&f.app, get("/report", Some(&cookie))).await;
+        assert_eq!(status, StatusCode::SEE_OTHER);
+    }
+
+    #[tokio::test]
+    async fn wrong_ingest_and_revoked_keys_are_refused() {
+        let f = fixture().await;
+        let (_, token) = key(&f.store, KeyRole::Read).await;
+        let (_, ingest) = key(&f.store, KeyRole::Ingest).await;
+
+        let mut wrong = token.clone();
+        let last = wrong.pop().unwrap();
+        wrong.push(if last == '0' { '1' } else { '0' });
+        for (k, status, words) in [
+            (
+                wrong.as_str(),
+                StatusCode::UNAUTHORIZED,
+                "That key is not valid.",
+            ),
+            (
+                "hello",
+                StatusCode::UNAUTHORIZED,
+                "That is not a dispar key.",
+            ),
+            ("", StatusCode::UNAUTHORIZED, "That is not a dispar key."),
+            (
+                ingest.as_str(),
+                StatusCode::FORBIDDEN,
+                "An ingest key cannot open reports",
+            ),
+        ] {
+            let (s, headers, body) = send(&f.app, post_form("/sign-in", form(k, None), &[])).await;
+            assert_eq!(s, status, "{k:?}: {body}");
+            assert!(headers.get(header::SET_COOKIE).is_none(), "{k:?}");
+            assert!(body.contains(words), "{k:?}: {body}");
+        }
+
+        // A key in the query string is never read.
+        let (s, headers, _) = send(
+            &f.app,
+            post_form(&format!("/sign-in?key={token}"), String::new(), &[]),
+        )
+        .await;
+        assert_eq!(s, StatusCode::UNAUTHORIZED);
+        assert!(headers.get(header::SET_COOKIE).is_none());
+
+        // A post from another site is refused.
+        let (s, headers, _) = send(
+            &f.app,
+            post_form(
+                "/sign-in",
+                form(&token, None),
+                &[("origin", "https://evil.example")],
+            ),
+        )
+        .await;
+        assert_eq!(s, StatusCode::FORBIDDEN);
+        assert!(headers.get(header::SET_COOKIE).is_none());
+
+        // Revoking the key ends its session.
+        let (_, headers, _) = send(&f.app, post_form("/sign-in", form(&token, None), &[])).await;
+        let cookie = cookie_pair(headers[header::SET_COOKIE].to_str().unwrap());
+        let (s, _, _) = send(&f.app, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::OK);
+        let id = crate::auth::parse_token(&token).unwrap().id;
+        f.store.revoke_key(id).await.unwrap();
+        let (s, _, _) = send(&f.app, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::SEE_OTHER);
+    }
+
+    #[tokio::test]
+    async fn the_cookie_is_secure_behind_an_https_proxy() {
+        let f = fixture().await;
+        let (_, token) = key(&f.store, KeyRole::Admin).await;
+        let (s, headers, _) = send(
+            &f.app,
+            post_form(
+                "/sign-in",
+                form(&token, Some("https://evil.example/")),
+                &[("x-forwarded-proto", "https")],
+            ),
+        )
+        .await;
+        assert_eq!(s, StatusCode::SEE_OTHER);
+        assert_eq!(headers[header::LOCATION], "/report", "foreign next ignored");
+        assert!(
+            headers[header::SET_COOKIE]
+                .to_str()
+                .unwrap()
+                .ends_with("; Secure")
+        );
+    }
+
+    #[tokio::test]
+    async fn bad_choices_are_shown_on_the_page_with_the_parameter_named() {
+        let f = fixture().await;
+        let (_, token) = key(&f.store, KeyRole::Read).await;
+        let (_, headers, _) = send(&f.app, post_form("/sign-in", form(&token, None), &[])).await;
+        let cookie = cookie_pair(headers[header::SET_COOKIE].to_str().unwrap());
+        let (s, headers, body) = send(&f.app, get("/report?period=2026-W99", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::UNPROCESSABLE_ENTITY);
+        assert!(
+            headers[header::CONTENT_TYPE]
+                .to_str()
+                .unwrap()
+                .starts_with("text/html")
+        );
+        assert!(
+            body.contains("id=\"problem\"") && body.contains("period: "),
+            "{body}"
+        );
+        assert!(
+            body.contains("value=\"2026-W99\""),
+            "the picker keeps the input"
+        );
+        let (s, _, body) = send(
+            &f.app,
+            get("/report?period=2026-W16&level=line", Some(&cookie)),
+        )
+        .await;
+        assert_eq!(s, StatusCode::UNPROCESSABLE_ENTITY);
+        assert!(body.contains("site: "), "{body}");
+        // No data at all: the default week is the current one, and it is not testable.
+        let (s, _, body) = send(&f.app, get("/report", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::OK);
+        assert!(body.contains("class=\"untestable\""), "{body}");
+        assert!(body.contains("id=\"notice\""));
+        let (s, _, body) = send(&f.app, get("/", None)).await;
+        assert_eq!(s, StatusCode::SEE_OTHER, "{body}");
+    }
+}

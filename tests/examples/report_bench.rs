@@ -1,0 +1,303 @@
+//! Report benchmark (not a test): 200 sites x 3 lines x 365 days of counts in a fresh
+//! SQLite file behind the release `dispar` server, then the latency of a month's
+//! site-level report (`GET /v1/reports?period=2025-06`): cache misses, cache hits and
+//! 304s; and, in the same run, the same report pieces computed by
+//! `tools/reference/report_bench.py` (pandas, scipy, statsmodels) from the same data.
+//!
+//! ```text
+//! cargo run --release -p dispar-system-tests --example report_bench -- \
+//!     [--out DIR] [--python /work/venv-ref/bin/python] [--misses 30] [--hits 200]
+//! ```
+//!
+//! Built with `--release`, the harness builds and runs the release server (or the
+//! binary in `DISPAR_BIN`). The data (deterministic, splitmix64): sites S001..S200,
+//! lines L1..L3, every day of 2025, 800..1200 units a line and day, a site rate of
+//! 1% to 3% (three sites at twice their rate), lines at 0.9, 1.0, 1.1 times it, three
+//! defect categories. They are written to `DIR/counts.csv` (the `POST /v1/counts` CSV
+//! layout, which the Python script reads too) and posted as CSV batches of 10,000 rows.
+//!
+//! Timing is client-side (`reqwest`, keep-alive, body read to the end): a miss is a
+//! request the server has not seen at the current data version (each uses another
+//! `alpha` a millionth apart, the same work); a hit repeats one request; a 304 sends
+//! its `If-None-Match`. The Python time is measured by the script itself
+//! (`time.perf_counter`) and printed next to ours.
+
+#![allow(clippy::unwrap_used, clippy::print_stderr)] // a benchmark driver: panics report failures
+
+use std::fmt::Write as _;
+use std::path::PathBuf;
+use std::process::Command;
+use std::time::{Duration, Instant};
+
+use dispar_system_tests::{Body, Server, Value};
+
+const SITES: usize = 200;
+const LINES: usize = 3;
+const YEAR: i32 = 2025;
+const MONTH: &str = "2025-06";
+const CATEGORIES: [&str; 3] = ["scratch", "dent", "short-shot"];
+const BATCH: usize = 10_000;
+
+struct Options {
+    out: Option<PathBuf>,
+    python: Option<String>,
+    misses: usize,
+    hits: usize,
+}
+
+fn options() -> Options {
+    let mut o = Options {
+        out: None,
+        python: None,
+        misses: 30,
+        hits: 200,
+    };
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    let mut i = 0;
+    while i < args.len() {
+        let value = args.get(i + 1).cloned().unwrap_or_default();
+        match args[i].as_str() {
+            "--out" => o.out = Some(PathBuf::from(value)),
+            "--python" => o.python = Some(value),
+            "--misses" => o.misses = value.parse().expect("--misses N"),
+            "--hits" => o.hits = value.parse().expect("--hits N"),
+            other => panic!("unknown argument {other}"),
+        }
+        i += 2;
+    }
+    o
+}
+
+/// splitmix64 (Steele, Lea and Flood 2014): small, fast, deterministic.
+struct SplitMix(u64);
+
+impl SplitMix {
+    fn next(&mut self) -> u64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^ (z >> 31)
+    }
+
+    /// Uniform in [0, 1).
+    fn unit(&mut self) -> f64 {
+        (self.next() >> 11) as f64 / (1u64 << 53) as f64
+    }
+}
+
+/// The CSV header and one row per site, line and day of [`YEAR`].
+fn generate() -> (String, Vec<String>) {
+    let header = format!(
+        "site,line,date,inspected,defective,{}",
+        CATEGORIES.map(|c| format!("defect:{c}")).join(",")
+    );
+    let mut g = SplitMix(20_250_601);
+    let site_rate: Vec<f64> = (0..SITES)
+        .map(|i| {
+            let base = 0.01 + 0.02 * g.unit();
+            if [16, 41, 132].contains(&i) {
+                2.0 * base
+            } else {
+                base
+            }
+        })
+        .collect();
+    let first = time::Date::from_calendar_date(YEAR, time::Month::January, 1).unwrap();
+    let mut rows = Vec::with_capacity(SITES * LINES * 365);
+    for day in 0..365 {
+        let date = first + time::Duration::days(day);
+        for (s, rate) in site_rate.iter().enumerate() {
+            for l in 0..LINES {
+                let n = 800 + g.next() % 401;
+                let r = rate * [0.9, 1.0, 1.1][l] * (0.7 + 0.6 * g.unit());
+                let x = ((n as f64) * r).round() as u64;
+                let scratch = x / 2;
+                let dent = (x * 3) / 10;
+                let short = x - scratch - dent + g.next() % 2;
+                rows.push(format!(
+                    "S{:03},L{},{date},{n},{x},{scratch},{dent},{short}",
+                    s + 1,
+                    l + 1
+                ));
+            }
+        }
+    }
+    (header, rows)
+}
+
+fn stats(mut v: Vec<Duration>) -> (f64, f64, f64, f64) {
+    v.sort();
+    let ms = |d: Duration| d.as_secs_f64() * 1e3;
+    let pick = |q: f64| ms(v[((v.len() - 1) as f64 * q).round() as usize]);
+    (ms(v[0]), pick(0.5), pick(0.95), ms(v[v.len() - 1]))
+}
+
+fn main() {
+    let o = options();
+    let tempdir = tempfile::tempdir().unwrap();
+    let dir = o.out.clone().unwrap_or_else(|| tempdir.path().to_owned());
+    std::fs::create_dir_all(&dir).unwrap();
+    let _ = std::fs::remove_file(dir.join("dispar.db"));
+    let _ = std::fs::remove_file(dir.join("dispar.db-wal"));
+    let _ = std::fs::remove_file(dir.join("dispar.db-shm"));
+
+    let (header, rows) = generate();
+    let csv_path = dir.join("counts.csv");
+    let mut csv = String::with_capacity(rows.len() * 48);
+    writeln!(csv, "{header}").unwrap();
+    for r in &rows {
+        writeln!(csv, "{r}").unwrap();
+    }
+    std::fs::write(&csv_path, &csv).unwrap();
+    eprintln!("wrote {} rows to {}", rows.len(), csv_path.display());
+
+    let s = Server::start_in(&dir, &["--max-body-bytes", "67108864"]);
+    let started = Instant::now();
+    for i in 1..=SITES {
+        s.site(&format!("S{i:03}"), &["L1", "L2", "L3"]);
+    }
+    let registry = started.elapsed();
+    let started = Instant::now();
+    for chunk in rows.chunks(BATCH) {
+        let body = format!("{header}\n{}\n", chunk.join("\n"));
+        let r = s.as_admin("POST", "/v1/counts", Body::Csv(body));
+        assert!(r.status == 200 || r.status == 201, "{}", r.text);
+    }
+    let ingest = started.elapsed();
+    eprintln!(
+        "registered {SITES} sites x {LINES} lines in {:.1} s; ingested {} records in {:.1} s",
+        registry.as_secs_f64(),
+        rows.len(),
+        ingest.as_secs_f64()
+    );
+
+    let read = s.key("read", &[]);
+    let path = |alpha: f64| format!("/v1/reports?period={MONTH}&level=site&alpha={alpha}");
+    // Misses: each alpha is another request at the same data version.
+    let mut misses = Vec::new();
+    let mut first_report: Option<Value> = None;
+    let mut body_bytes = 0;
+    for i in 0..o.misses {
+        let alpha = 0.05 + i as f64 * 1e-6;
+        let t = Instant::now();
+        let r = s.request("GET", &path(alpha), Some(&read), Body::None);
+        misses.push(t.elapsed());
+        assert_eq!(r.status, 200, "{}", r.text);
+        body_bytes = r.text.len();
+        if first_report.is_none() {
+            first_report = Some(r.json());
+        }
+    }
+    let report = first_report.unwrap();
+    // Hits: the first request again and again.
+    let mut hits = Vec::new();
+    let mut tag = String::new();
+    for _ in 0..o.hits {
+        let t = Instant::now();
+        let r = s.request("GET", &path(0.05), Some(&read), Body::None);
+        hits.push(t.elapsed());
+        assert_eq!(r.status, 200);
+        tag = r.header("etag").unwrap().to_owned();
+    }
+    let mut not_modified = Vec::new();
+    for _ in 0..o.hits {
+        let t = Instant::now();
+        let r = s.request_with(
+            "GET",
+            &path(0.05),
+            Some(&read),
+            Body::None,
+            &[("if-none-match", &tag)],
+        );
+        not_modified.push(t.elapsed());
+        assert_eq!(r.status, 304);
+    }
+    // The same report from the command line (a new process: open, migrate check, read).
+    let t = Instant::now();
+    let cli = s.cli(&["report", "--period", MONTH, "--format", "json"]);
+    let cli_time = t.elapsed();
+    assert!(cli.status.success(), "{}", String::from_utf8_lossy(&cli.stderr));
+    let cli_report: Value = serde_json::from_slice(&cli.stdout).unwrap();
+    assert_eq!(cli_report["test"], report["test"]);
+
+    let metric = s.request("GET", "/metrics", None, Body::None).text;
+    let server_side: Vec<&str> = metric
+        .lines()
+        .filter(|l| l.starts_with("dispar_report_cache_total"))
+        .collect();
+
+    let (mn, md, p95, mx) = stats(misses.clone());
+    let (hmn, hmd, hp95, hmx) = stats(hits);
+    let (nmn, nmd, np95, nmx) = stats(not_modified);
+    let t = &report["test"];
+    println!("## Report latency: {SITES} sites x {LINES} lines x 365 days, month {MONTH}, level=site");
+    println!();
+    println!(
+        "Data: {} records ({} MB CSV); report: {} groups, {} pairs, {} flagged, body {:.1} MB; test {} X^2 = {:.3}, df {}, log10 p = {:.2}",
+        rows.len(),
+        csv.len() / 1_000_000,
+        report["groups"].as_array().unwrap().len(),
+        report["pairwise"].as_array().unwrap().len(),
+        report["flagged"].as_array().unwrap().len(),
+        body_bytes as f64 / 1e6,
+        t["method"],
+        t["statistic"].as_f64().unwrap(),
+        t["df"],
+        t["log10_p"].as_f64().unwrap(),
+    );
+    println!();
+    println!("| request | n | min ms | median ms | p95 ms | max ms |");
+    println!("|---|---|---|---|---|---|");
+    println!("| cache miss | {} | {mn:.1} | {md:.1} | {p95:.1} | {mx:.1} |", o.misses);
+    println!("| cache hit | {} | {hmn:.2} | {hmd:.2} | {hp95:.2} | {hmx:.2} |", o.hits);
+    println!("| 304 (If-None-Match) | {} | {nmn:.2} | {nmd:.2} | {np95:.2} | {nmx:.2} |", o.hits);
+    println!(
+        "| `dispar report --format json` (new process) | 1 | | {:.1} | | |",
+        cli_time.as_secs_f64() * 1e3
+    );
+    println!();
+    println!("Server counters: {}", server_side.join(", "));
+
+    if let Some(python) = &o.python {
+        let script = concat!(env!("CARGO_MANIFEST_DIR"), "/../tools/reference/report_bench.py");
+        let out = Command::new(python)
+            .arg(script)
+            .arg(&csv_path)
+            .args(["--month", MONTH])
+            .output()
+            .expect("python runs");
+        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+        let py: Value = serde_json::from_slice(&out.stdout).unwrap();
+        let compute = py["seconds"]["compute"].as_f64().unwrap();
+        let total = py["seconds"]["total"].as_f64().unwrap();
+        println!();
+        println!("## The same pieces in Python ({})", py["versions"]);
+        println!();
+        println!("| step | seconds |");
+        println!("|---|---|");
+        for (k, v) in py["seconds"].as_object().unwrap() {
+            println!("| {k} | {:.3} |", v.as_f64().unwrap());
+        }
+        println!();
+        let miss_median = md / 1e3;
+        println!(
+            "dispar cache miss (median, end to end over HTTP incl. SQL sums) vs the script: {:.0}x faster than its compute step (data already in memory), {:.0}x faster than its total (incl. reading the CSV).",
+            compute / miss_median,
+            total / miss_median
+        );
+        let x2 = py["chi2"]["statistic"].as_f64().unwrap();
+        let ours = t["statistic"].as_f64().unwrap();
+        println!(
+            "Agreement: X^2 {ours:.6} (dispar) vs {x2:.6} (scipy), rel. diff {:.1e}; pairs rejected after Holm: {} (dispar) vs {} (statsmodels)",
+            (ours - x2).abs() / x2,
+            report["pairwise"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .filter(|p| p["reject"] == true)
+                .count(),
+            py["pairwise"]["rejected"]
+        );
+    }
+}
