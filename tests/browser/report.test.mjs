@@ -206,13 +206,7 @@ async function main() {
   assert.match(new URL(page.url()).pathname, /^\/sign-in$/, `redirected to sign-in: ${page.url()}`);
   await page.screenshot({ path: join(outDir, 'sign-in.png') });
 
-  // 2. A wrong key is refused on the form itself.
-  await page.fill('#key', 'dsp_1_' + '0'.repeat(64));
-  await Promise.all([page.waitForLoadState('load'), page.click('#sign-in-form button[type=submit]')]);
-  assert.equal(await page.locator('#sign-in-problem').count(), 1, 'a wrong key shows a message on the form');
-  assert.equal((await context.cookies()).filter((c) => c.name === 'dispar_session').length, 0);
-
-  // 3. Sign in with the read key.
+  // 2. Sign in with the read key.
   await page.fill('#key', readKey);
   await Promise.all([
     page.waitForURL((u) => u.pathname === '/report'),
@@ -225,7 +219,7 @@ async function main() {
   assert.equal(session.path, '/');
   assert.ok(!session.value.includes(readKey.slice(4, 20)), 'the cookie is not the key');
 
-  // 4. The default report: the latest complete week with data, six sites.
+  // 3. The default report: the latest complete week with data, six sites.
   await page.locator('#verdict').waitFor();
   assert.equal(await page.inputValue('#period'), LAST_WEEK, 'default period');
   await checkReport(page, 'default week');
@@ -235,7 +229,7 @@ async function main() {
     `KES is not flagged above in ${LAST_WEEK}`);
   await page.screenshot({ path: join(outDir, 'report-default.png'), fullPage: true });
 
-  // 5. Change the period with the form: KES's drift week.
+  // 4. Change the period with the form: KES's drift week.
   await page.fill('#period', DRIFT_WEEK);
   await page.selectOption('#level', 'site');
   await Promise.all([
@@ -253,18 +247,19 @@ async function main() {
   assert.equal(await page.locator('svg#funnel-chart g.group.above[data-name="KES"]').count(), 1);
   assert.match(await page.locator('#report-title').innerText(), /2026-W16 · 2026-04-13 to 2026-04-19/);
   await page.screenshot({ path: join(outDir, `report-${DRIFT_WEEK}.png`), fullPage: true });
+  await page.locator('#charts').screenshot({ path: join(outDir, `charts-${DRIFT_WEEK}.png`) });
   await page.emulateMedia({ media: 'print' });
   await page.screenshot({ path: join(outDir, `report-${DRIFT_WEEK}-print.png`), fullPage: true });
   await page.emulateMedia({ media: 'screen' });
 
-  // 6. The previous-period link steps back one week.
+  // 5. The previous-period link steps back one week.
   await Promise.all([
     page.waitForURL((u) => u.searchParams.get('period') === '2026-W15'),
     page.click('#previous-period'),
   ]);
   await checkReport(page, '2026-W15');
 
-  // 7. Lines of one site (the level switch).
+  // 6. Lines of one site (the level switch).
   await page.fill('#period', '2026-W09');
   await page.selectOption('#level', 'line');
   await page.selectOption('#site', 'MRQ');
@@ -276,7 +271,7 @@ async function main() {
   assert.equal(await page.locator('table#groups tbody tr').count(), 4, 'MRQ has four lines');
   assert.match(await page.locator('#flag-summary').innerText(), /MRQ\/L2 above/, 'the spike line is flagged');
 
-  // 8. The series page: one row and one bar per week.
+  // 7. The series page: one row and one bar per week.
   await page.goto(`${base}/series?from=2026-W10&to=${LAST_WEEK}&level=site`);
   await page.locator('svg#series-chart').waitFor();
   assert.equal(await page.locator('table#series tbody tr').count(), 17, '17 weeks W10..W26');
@@ -285,19 +280,33 @@ async function main() {
   assert.doesNotMatch(await page.locator('table#series tbody tr[data-period="2026-W13"]').innerText(), /KES ↑/);
   await page.screenshot({ path: join(outDir, 'series.png'), fullPage: true });
 
-  // 9. The key never appeared in a URL.
+  // 8. The key never appeared in a URL.
   for (const u of visited) {
     assert.ok(!u.includes(readKey.slice(4, 20)), `key in URL ${u}`);
   }
   assert.deepEqual(consoleErrors, [], 'no console errors (e.g. CSP violations)');
 
-  // 10. Sign out: the session ends.
+  // 9. Sign out: the session ends.
   await Promise.all([
     page.waitForURL((u) => u.pathname === '/sign-in'),
     page.click('header form.who button[type=submit]'),
   ]);
   await page.goto(`${base}/report?period=${DRIFT_WEEK}`);
   assert.equal(new URL(page.url()).pathname, '/sign-in', 'signed out');
+
+  // 10. A wrong key is refused on the form itself, and no session starts.
+  await page.fill('#key', 'dsp_1_' + '0'.repeat(64));
+  const [refusal] = await Promise.all([
+    page.waitForResponse((r) => r.request().method() === 'POST' && new URL(r.url()).pathname === '/sign-in'),
+    page.click('#sign-in-form button[type=submit]'),
+  ]);
+  assert.equal(refusal.status(), 401, 'a wrong key is 401');
+  assert.match(refusal.headers()['content-type'] || '', /^text\/html/,
+    'the refusal is the HTML form again (not a problem+json body)');
+  await page.locator('#sign-in-problem').waitFor();
+  assert.match(await page.locator('#sign-in-problem').innerText(), /not valid/);
+  assert.equal((await context.cookies()).filter((c) => c.name === 'dispar_session').length, 0);
+  await page.screenshot({ path: join(outDir, 'sign-in-refused.png') });
 
   log(`ok: screenshots in ${outDir}`);
 }

@@ -89,6 +89,16 @@ fn a_body_in_another_media_type_is_415() {
             "{method} {path} {content_type:?}: {p}"
         );
     }
+    let r = s.as_admin(
+        "POST",
+        "/v1/counts",
+        Body::Raw {
+            content_type: Some("text/plain"),
+            bytes: b"x".to_vec(),
+        },
+    );
+    r.problem(415, "unsupported-media-type");
+    assert_eq!(r.header("accept-post"), Some("application/json, text/csv"));
     let ok = s.as_admin(
         "PUT",
         DAY,

@@ -290,8 +290,8 @@ fn the_listing_pages_with_a_cursor_and_filters() {
             assert_eq!(rec["site"], "S1");
             seen.push(format!(
                 "{}/{}",
-                rec["line"].as_str().unwrap(),
-                rec["date"].as_str().unwrap()
+                rec["date"].as_str().unwrap(),
+                rec["line"].as_str().unwrap()
             ));
         }
         match v["next_cursor"].as_str() {
@@ -310,8 +310,9 @@ fn the_listing_pages_with_a_cursor_and_filters() {
     assert_eq!(seen.len(), 14, "{seen:?}");
     let mut sorted = seen.clone();
     sorted.sort();
-    assert_eq!(seen, sorted, "ordered by line then date");
-    assert_eq!(seen[0], "L1/2026-03-02");
+    assert_eq!(seen, sorted, "ordered by date, then site and line");
+    assert_eq!(seen[0], "2026-03-02/L1");
+    assert_eq!(seen[13], "2026-03-08/L2");
 
     let one_line = s
         .request("GET", "/v1/counts?site=S1&line=L2", Some(&read), Body::None)

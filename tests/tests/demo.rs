@@ -239,7 +239,10 @@ fn the_demo_loads_the_scenario_and_gives_the_readme_verdicts() {
         "If-None-Match",
         "/v1/reports?period=2026-W16",
     ] {
-        assert!(banner.contains(needle), "{needle:?} missing from:\n{banner}");
+        assert!(
+            banner.contains(needle),
+            "{needle:?} missing from:\n{banner}"
+        );
     }
     let database = PathBuf::from(demo.line("database: ").split(" (").next().unwrap());
     assert!(database.is_file(), "{}", database.display());
@@ -287,7 +290,10 @@ fn the_demo_loads_the_scenario_and_gives_the_readme_verdicts() {
 
     // The spike: MRQ's L2 above among MRQ's lines in W09 only.
     for week in weeks() {
-        let r = demo.json(&format!("/v1/reports?period={week}&level=line&site=MRQ"), &read);
+        let r = demo.json(
+            &format!("/v1/reports?period={week}&level=line&site=MRQ"),
+            &read,
+        );
         assert_eq!(r["groups"].as_array().unwrap().len(), 4, "{week}: {r}");
         let l2 = flag(&r, "MRQ/L2");
         if week == "2026-W09" {
@@ -301,7 +307,10 @@ fn the_demo_loads_the_scenario_and_gives_the_readme_verdicts() {
 
     // The small plant: SEM's two lines need an exact test in every week.
     for week in weeks() {
-        let r = demo.json(&format!("/v1/reports?period={week}&level=line&site=SEM"), &read);
+        let r = demo.json(
+            &format!("/v1/reports?period={week}&level=line&site=SEM"),
+            &read,
+        );
         let method = r["test"]["method"].as_str().unwrap_or("none");
         assert!(
             method == "fisher" || method == "monte-carlo",
@@ -335,8 +344,13 @@ fn the_demo_loads_the_scenario_and_gives_the_readme_verdicts() {
     assert_eq!(status, 403, "read key PUT: {text}");
     let csv = "site,line,date,inspected,defective,defect:seal-leak\n\
                KES,L1,2026-06-30,9050,58,9\nKES,L2,2026-06-30,8600,49,8\n";
-    let (status, _, text) =
-        demo.request("POST", "/v1/counts", &read, Some(("text/csv", csv.to_owned())), &[]);
+    let (status, _, text) = demo.request(
+        "POST",
+        "/v1/counts",
+        &read,
+        Some(("text/csv", csv.to_owned())),
+        &[],
+    );
     assert_eq!(status, 403, "read key batch: {text}");
     let (status, _, text) = demo.request(
         "PUT",
@@ -378,7 +392,11 @@ fn the_demo_loads_the_scenario_and_gives_the_readme_verdicts() {
 
     // A graceful stop deletes the temporary database.
     let status = demo.terminate();
-    assert!(status.success(), "exit status {status}; log:\n{}", demo.log());
+    assert!(
+        status.success(),
+        "exit status {status}; log:\n{}",
+        demo.log()
+    );
     assert!(
         !database.exists() && !database.parent().unwrap().exists(),
         "{} is left",
@@ -400,6 +418,10 @@ fn the_demo_refuses_an_existing_database_file() {
     assert!(!out.status.success());
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(stderr.contains("already exists"), "{stderr}");
-    assert!(out.stdout.is_empty(), "{}", String::from_utf8_lossy(&out.stdout));
+    assert!(
+        out.stdout.is_empty(),
+        "{}",
+        String::from_utf8_lossy(&out.stdout)
+    );
     assert_eq!(std::fs::read(file).unwrap(), b"someone's data");
 }

@@ -24,10 +24,16 @@
 //!
 //! # SQLite
 //!
-//! WAL journal, `synchronous=FULL`, foreign keys on, a busy timeout; one writer
-//! connection (a pool of one) whose transactions all begin with `BEGIN IMMEDIATE`,
-//! and a pool of `query_only` readers. Batches are written with multi-row `INSERT`s.
-//! Busy or locked databases give [`StoreError::Busy`], which is retryable.
+//! WAL journal, `synchronous=FULL`, foreign keys on, a busy timeout, statement
+//! journals in memory; one writer connection (a pool of one) whose transactions all
+//! begin with `BEGIN IMMEDIATE`, and a pool of `query_only` readers. Batches are
+//! written with multi-row `INSERT`s, and the current values needed for the revision
+//! checks are read with one query per 500 keys. Busy or locked databases give
+//! [`StoreError::Busy`], which is retryable.
+//!
+//! Reports over the current data read monthly sums (kept up to date by every write)
+//! for the whole months of a range and the daily rows for the days at its edges;
+//! `as_of` reports read the history. The schema is in `migrations/sqlite`.
 
 mod counts;
 mod error;

@@ -141,6 +141,7 @@ pub trait Store: Send + Sync + std::fmt::Debug {
     /// The data version: grows with every write that can change a report.
     async fn data_version(&self) -> Result<u64, StoreError>;
 
-    /// Row counts.
+    /// Row counts. Counting takes time proportional to the rows (fine for tests and
+    /// occasional metrics, not for every request).
     async fn stats(&self) -> Result<StoreStats, StoreError>;
 }

@@ -724,6 +724,10 @@ async fn post_batch(
             return Err(unsupported(
                 body.content_type.as_deref(),
                 "application/json or text/csv",
+            )
+            .with_header(
+                HeaderName::from_static("accept-post"),
+                "application/json, text/csv",
             ));
         }
     };

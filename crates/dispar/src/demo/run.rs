@@ -168,14 +168,18 @@ impl DemoDatabase {
             }
             None => {
                 let mut suffix = [0u8; 6];
-                getrandom::fill(&mut suffix).map_err(|e| format!("no randomness available: {e}"))?;
+                getrandom::fill(&mut suffix)
+                    .map_err(|e| format!("no randomness available: {e}"))?;
                 let dir = std::env::temp_dir().join(format!(
                     "dispar-demo-{}-{}",
                     std::process::id(),
                     hex::encode(suffix)
                 ));
                 std::fs::create_dir(&dir).map_err(|e| {
-                    format!("cannot create the temporary directory {}: {e}", dir.display())
+                    format!(
+                        "cannot create the temporary directory {}: {e}",
+                        dir.display()
+                    )
                 })?;
                 Ok(Self {
                     path: dir.join("demo.db"),
@@ -234,9 +238,7 @@ async fn prepare(state: &AppState, store: &dyn Store, data: &DemoData) -> Result
     let ingest_sites = data
         .sites
         .iter()
-        .map(|s| {
-            SiteCode::parse(s.code).map_err(|e| format!("demo site code {:?}: {e}", s.code))
-        })
+        .map(|s| SiteCode::parse(s.code).map_err(|e| format!("demo site code {:?}: {e}", s.code)))
         .collect::<Result<Vec<_>, _>>()?;
     let admin = make_key(store, KeyRole::Admin, &[], "dispar demo: admin").await?;
     let read = make_key(store, KeyRole::Read, &[], "dispar demo: read").await?;
@@ -433,7 +435,7 @@ impl Progress {
                 "\rloading counts [{bar}] week {step}/{steps} ({label}), {records}/{total} records\x1b[K"
             );
             let _ = err.flush();
-        } else if step % PLAIN_PROGRESS_EVERY == 0 || step == steps {
+        } else if step.is_multiple_of(PLAIN_PROGRESS_EVERY) || step == steps {
             eprintln!("loading counts: week {step}/{steps} ({label}), {records}/{total} records");
         }
     }
@@ -465,7 +467,7 @@ fn thousands(n: u64) -> String {
     let digits = n.to_string();
     let mut out = String::new();
     for (i, c) in digits.chars().enumerate() {
-        if i > 0 && (digits.len() - i) % 3 == 0 {
+        if i > 0 && (digits.len() - i).is_multiple_of(3) {
             out.push(',');
         }
         out.push(c);
@@ -534,18 +536,18 @@ fn banner(data: &DemoData, demo: &Prepared, database: &DemoDatabase, addr: Socke
     );
     let examples = r#"
 # 1. Create a site and a line (admin key)
-curl -sS -X PUT "$DISPAR/v1/sites/NHV" -H "Authorization: Bearer $ADMIN_KEY" -H 'Content-Type: application/json' -d '{"name": "Northaven", "time_zone": "Europe/Oslo"}'
-curl -sS -X PUT "$DISPAR/v1/sites/NHV/lines/L1" -H "Authorization: Bearer $ADMIN_KEY" -H 'Content-Type: application/json' -d '{"name": "Cap press 1"}'
+curl -sS -w '\n' -X PUT "$DISPAR/v1/sites/NHV" -H "Authorization: Bearer $ADMIN_KEY" -H 'Content-Type: application/json' -d '{"name": "Northaven", "time_zone": "Europe/Oslo"}'
+curl -sS -w '\n' -X PUT "$DISPAR/v1/sites/NHV/lines/L1" -H "Authorization: Bearer $ADMIN_KEY" -H 'Content-Type: application/json' -d '{"name": "Cap press 1"}'
 
 # 2. PUT one day's counts of a line (ingest key)
-curl -sS -X PUT "$DISPAR/v1/sites/KES/lines/L1/days/2026-06-29" -H "Authorization: Bearer $INGEST_KEY" -H 'Content-Type: application/json' -d '{"inspected": 9120, "defective": 61, "defects": {"flash": 19, "short-shot": 11, "seal-leak": 12, "thread-damage": 13, "surface-mark": 9}}'
+curl -sS -w '\n' -X PUT "$DISPAR/v1/sites/KES/lines/L1/days/2026-06-29" -H "Authorization: Bearer $INGEST_KEY" -H 'Content-Type: application/json' -d '{"inspected": 9120, "defective": 61, "defects": {"flash": 19, "short-shot": 11, "seal-leak": 12, "thread-damage": 13, "surface-mark": 9}}'
 
 # 3. A batch as CSV (ingest key; all or nothing)
-printf 'site,line,date,inspected,defective,defect:seal-leak\nKES,L1,2026-06-30,9050,58,9\nKES,L2,2026-06-30,8600,49,8\n' | curl -sS -X POST "$DISPAR/v1/counts" -H "Authorization: Bearer $INGEST_KEY" -H 'Content-Type: text/csv' --data-binary @-
+printf 'site,line,date,inspected,defective,defect:seal-leak\nKES,L1,2026-06-30,9050,58,9\nKES,L2,2026-06-30,8600,49,8\n' | curl -sS -w '\n' -X POST "$DISPAR/v1/counts" -H "Authorization: Bearer $INGEST_KEY" -H 'Content-Type: text/csv' --data-binary @-
 
 # 4. Fetch a report (read key): the six plants in ISO week 2026-W16 (KES flagged above), then MRQ's lines in W09
-curl -sS "$DISPAR/v1/reports?period=2026-W16&level=site" -H "Authorization: Bearer $READ_KEY"
-curl -sS "$DISPAR/v1/reports?period=2026-W09&level=line&site=MRQ" -H "Authorization: Bearer $READ_KEY"
+curl -sS -w '\n' "$DISPAR/v1/reports?period=2026-W16&level=site" -H "Authorization: Bearer $READ_KEY"
+curl -sS -w '\n' "$DISPAR/v1/reports?period=2026-W09&level=line&site=MRQ" -H "Authorization: Bearer $READ_KEY"
 
 # 5. Poll with ETag: 304 Not Modified until the data change
 etag=$(curl -sS -o /dev/null -D - "$DISPAR/v1/reports?period=2026-W16" -H "Authorization: Bearer $READ_KEY" | tr -d '\r' | sed -n 's/^[Ee][Tt][Aa][Gg]: //p')

@@ -21,8 +21,12 @@ pub const Z_95: f64 = 1.959_963_984_540_054;
 /// checked against scipy.stats.norm.ppf(0.999) = 3.090232306167813).
 pub const Z_998: f64 = 3.090_232_306_167_813;
 
-/// Width of every chart's coordinate system.
-const WIDTH: f64 = 720.0;
+/// Width of the coordinate system of the two report charts (shown side by side on a
+/// laptop, so about their width in CSS pixels there: text keeps its size).
+const WIDTH: f64 = 540.0;
+
+/// Width of the series chart's coordinate system (full width of the page).
+const SERIES_WIDTH: f64 = 900.0;
 
 /// The class of a group's mark: `above`, `below` or `level`.
 fn flag_class(flag: Option<Flag>) -> &'static str {
@@ -106,7 +110,7 @@ pub fn rates_chart(report: &Report) -> Option<String> {
     }
     let pooled = report.totals.rate;
     let conf = confidence_words(report.parameters.alpha);
-    let (left, right, top, row, bottom) = (150.0, 84.0, 34.0, 26.0, 40.0);
+    let (left, right, top, row, bottom) = (112.0, 62.0, 34.0, 26.0, 40.0);
     let plot_w = WIDTH - left - right;
     let height = top + row * groups.len() as f64 + bottom;
     let max = groups
@@ -207,7 +211,7 @@ pub fn rates_chart(report: &Report) -> Option<String> {
             r#"<text class="row-label" x="{lx}" y="{ty}" text-anchor="end">{label}</text><line class="whisker" x1="{x1}" y1="{cy}" x2="{x2}" y2="{cy}"/><line class="whisker" x1="{x1}" y1="{c1}" x2="{x1}" y2="{c2}"/><line class="whisker" x1="{x2}" y1="{c1}" x2="{x2}" y2="{c2}"/><circle class="dot" cx="{dx}" cy="{cy}" r="4.5"/><text class="value" x="{vx}" y="{ty}">{rate}</text></g>"#,
             lx = coord(left - 10.0),
             ty = coord(cy + 4.0),
-            label = escape(&shorten(&g.name, 20)),
+            label = escape(&shorten(&g.name, 15)),
             x1 = coord(x1),
             x2 = coord(x2),
             cy = coord(cy),
@@ -249,8 +253,8 @@ pub fn funnel_chart(report: &Report) -> Option<String> {
         .as_ref()
         .filter(|o| o.applied && o.phi > 1.0)
         .map_or(1.0, |o| o.phi.sqrt());
-    let (left, right, top, bottom) = (64.0, 24.0, 30.0, 48.0);
-    let height = 380.0;
+    let (left, right, top, bottom) = (56.0, 16.0, 30.0, 46.0);
+    let height = 360.0;
     let plot_w = WIDTH - left - right;
     let plot_h = height - top - bottom;
 
@@ -390,12 +394,12 @@ pub fn funnel_chart(report: &Report) -> Option<String> {
         a = coord(lx),
         b = coord(lx + 22.0),
         t1 = coord(lx + 28.0),
-        c = coord(lx + 150.0),
-        d = coord(lx + 172.0),
-        t2 = coord(lx + 178.0),
-        e = coord(lx + 270.0),
-        f = coord(lx + 292.0),
-        t3 = coord(lx + 298.0),
+        c = coord(lx + 128.0),
+        d = coord(lx + 150.0),
+        t2 = coord(lx + 156.0),
+        e = coord(lx + 236.0),
+        f = coord(lx + 258.0),
+        t3 = coord(lx + 264.0),
         ly = coord(top - 14.0),
         ty = coord(top - 10.0),
         pooled = fmt_pct(pooled),
@@ -405,7 +409,9 @@ pub fn funnel_chart(report: &Report) -> Option<String> {
             String::new()
         },
     );
-    // Points, labelled; the label goes left of the dot near the right edge.
+    // Points, labelled; the label goes left of the dot near the right edge, and moves
+    // up or down when it would overlap a label already placed.
+    let mut placed: Vec<(f64, f64, f64)> = Vec::new(); // (x0, x1, baseline)
     for g in groups {
         let n = g.inspected.max(1) as f64;
         let (cx, cy) = (x(n), y(g.rate));
@@ -417,11 +423,29 @@ pub fn funnel_chart(report: &Report) -> Option<String> {
             fmt_count(g.inspected),
             fmt_pct(g.rate)
         );
+        let label = shorten(&g.name, 16);
+        let label_w = label.chars().count() as f64 * 7.0;
         let (tx, anchor) = if cx > left + plot_w - 90.0 {
             (cx - 8.0, "end")
         } else {
             (cx + 8.0, "start")
         };
+        let (x0, x1) = if anchor == "end" {
+            (tx - label_w, tx)
+        } else {
+            (tx, tx + label_w)
+        };
+        let clashes = |baseline: f64| {
+            placed
+                .iter()
+                .any(|&(a, b, y0)| (baseline - y0).abs() < 12.0 && x0 < b && a < x1)
+        };
+        let ty = [-7.0, 15.0, -19.0, 27.0, -31.0, 39.0]
+            .iter()
+            .map(|dy| cy + dy)
+            .find(|&baseline| !clashes(baseline))
+            .unwrap_or(cy - 7.0);
+        placed.push((x0, x1, ty));
         let _ = write!(
             s,
             r#"<g class="group {class}" data-name="{name}"><title>{title}</title><circle class="dot" cx="{cx}" cy="{cy}" r="5"/><text class="point-label" x="{tx}" y="{ty}" text-anchor="{anchor}">{label}</text></g>"#,
@@ -430,8 +454,8 @@ pub fn funnel_chart(report: &Report) -> Option<String> {
             cx = coord(cx),
             cy = coord(cy),
             tx = coord(tx),
-            ty = coord(cy - 7.0),
-            label = escape(&shorten(&g.name, 16)),
+            ty = coord(ty),
+            label = escape(&label),
         );
     }
     s.push_str("</svg>");
@@ -441,69 +465,66 @@ pub fn funnel_chart(report: &Report) -> Option<String> {
 /// The link of one period's report, for the series strip (already a page path).
 pub type PeriodLink = String;
 
-/// Strip of verdicts over periods (`svg#series-chart`): one bar per period, its height
-/// -log10(p) (capped), coloured by verdict, with the alpha line; each bar links to
-/// that period's report (`links[i]`, same order as `points`).
+/// Strip of verdicts over periods (`svg#series-chart`): one column per period. The
+/// top row is the verdict (red: the groups differ, green: no significant difference,
+/// grey: not testable; the p-value in the tooltip); below it one row per group that
+/// was flagged in some period, with a mark where it was flagged above (up triangle)
+/// or below (down triangle) that period's pooled rate. Each column links to that
+/// period's report (`links[i]`, same order as `points`).
 pub fn series_chart(points: &[SeriesPoint], alpha: f64, links: &[PeriodLink]) -> String {
-    let (left, right, top, bottom) = (56.0, 16.0, 26.0, 58.0);
-    let height = 260.0;
-    let plot_w = WIDTH - left - right;
-    let plot_h = height - top - bottom;
+    // Groups that were flagged at least once, in order of first appearance by name.
+    let mut names: Vec<&str> = points
+        .iter()
+        .flat_map(|p| p.flagged.iter().map(|f| f.name.as_str()))
+        .collect();
+    names.sort_unstable();
+    names.dedup();
+    let (left, right, top, verdict_h, row_h, bottom) = (96.0, 12.0, 8.0, 22.0, 20.0, 62.0);
+    let rows_top = top + verdict_h + 10.0;
+    let height = rows_top + row_h * names.len() as f64 + bottom;
+    let plot_w = SERIES_WIDTH - left - right;
     let count = points.len().max(1) as f64;
     let slot = plot_w / count;
-    let bar_w = (slot * 0.7).clamp(2.0, 36.0);
-    let cap = 30.0_f64;
-    let top_value = points
-        .iter()
-        .filter_map(|p| p.log10_p.map(|l| -l))
-        .fold(-alpha.log10() * 2.0, f64::max)
-        .min(cap);
-    let (step, y_max) = linear_ticks(top_value);
-    let y = |v: f64| top + plot_h - (v / y_max).clamp(0.0, 1.0) * plot_h;
+    let cell_w = (slot - 2.0).max(1.0);
+    let mark = (row_h * 0.32).min(slot * 0.4).max(2.0);
 
     let mut s = String::new();
     let _ = write!(
         s,
-        r#"<svg id="series-chart" class="chart" viewBox="0 0 {w} {h}" role="img" aria-labelledby="series-chart-title series-chart-desc" preserveAspectRatio="xMinYMin meet"><title id="series-chart-title">Verdict per period</title><desc id="series-chart-desc">One bar per period: its height is -log10 of the p-value (taller is stronger evidence of a difference, capped at {cap}); bars above the dashed alpha line are periods where the groups differ. Grey marks are periods that could not be tested.</desc>"#,
-        w = coord(WIDTH),
+        r#"<svg id="series-chart" class="chart series" viewBox="0 0 {w} {h}" role="img" aria-labelledby="series-chart-title series-chart-desc" preserveAspectRatio="xMinYMin meet"><title id="series-chart-title">Verdict and flagged groups per period</title><desc id="series-chart-desc">One column per period. Top row: red where the groups differ at alpha = {alpha}, green where they do not, grey where the period could not be tested. Below, one row per group flagged in any period: an up triangle where it was flagged above that period's pooled rate, a down triangle where below.</desc>"#,
+        w = coord(SERIES_WIDTH),
         h = coord(height),
-        cap = cap,
     );
-    let mut v = 0.0;
-    let mut guard = 0;
-    while v <= y_max + step * 1e-9 && guard < 50 {
-        let _ = write!(
-            s,
-            r#"<line class="grid" x1="{l}" y1="{y}" x2="{r}" y2="{y}"/><text class="tick" x="{tx}" y="{ty}" text-anchor="end">{v}</text>"#,
-            l = coord(left),
-            r = coord(left + plot_w),
-            y = coord(y(v)),
-            tx = coord(left - 8.0),
-            ty = coord(y(v) + 4.0),
-            v = coord(v),
-        );
-        v += step;
-        guard += 1;
-    }
-    let ay = y(-alpha.log10());
     let _ = write!(
         s,
-        r#"<line class="pooled" x1="{l}" y1="{y}" x2="{r}" y2="{y}" stroke-dasharray="5 4"/><text class="pooled-label" x="{r}" y="{ty}" text-anchor="end">alpha = {alpha}</text><text class="axis-label" x="14" y="{my}" text-anchor="middle" transform="rotate(-90 14 {my})">−log10 p</text>"#,
-        l = coord(left),
-        r = coord(left + plot_w),
-        y = coord(ay),
-        ty = coord(ay - 5.0),
-        my = coord(top + plot_h / 2.0),
+        r#"<text class="row-label" x="{x}" y="{y}" text-anchor="end">verdict</text>"#,
+        x = coord(left - 8.0),
+        y = coord(top + verdict_h / 2.0 + 4.0),
     );
-    let label_every = (count / 13.0).ceil().max(1.0) as usize;
+    for (r, name) in names.iter().enumerate() {
+        let cy = rows_top + row_h * (r as f64 + 0.5);
+        let _ = write!(
+            s,
+            r#"<line class="grid" x1="{l}" y1="{y}" x2="{rr}" y2="{y}"/><text class="row-label" x="{x}" y="{ty}" text-anchor="end">{label}</text>"#,
+            l = coord(left),
+            rr = coord(left + plot_w),
+            y = coord(cy),
+            x = coord(left - 8.0),
+            ty = coord(cy + 4.0),
+            label = escape(&shorten(name, 12)),
+        );
+    }
+    let label_every = (count / 26.0).ceil().max(1.0) as usize;
+    let rows_bottom = rows_top + row_h * names.len() as f64;
     for (i, p) in points.iter().enumerate() {
-        let cx = left + slot * (i as f64 + 0.5);
+        let x0 = left + slot * i as f64 + 1.0;
+        let cx = x0 + cell_w / 2.0;
         let period = p.period.map(|x| x.to_string()).unwrap_or_default();
-        let flagged = if p.flagged.is_empty() {
-            String::new()
+        let flagged_words = if p.flagged.is_empty() {
+            "no group flagged".to_owned()
         } else {
             format!(
-                "; flagged: {}",
+                "flagged: {}",
                 p.flagged
                     .iter()
                     .map(|f| format!("{} {}", f.name, f.flag.as_str()))
@@ -511,60 +532,72 @@ pub fn series_chart(points: &[SeriesPoint], alpha: f64, links: &[PeriodLink]) ->
                     .join(", ")
             )
         };
-        let (class, body) = match (p.reject, p.p_value, p.log10_p) {
-            (Some(reject), Some(pv), Some(l)) => {
-                let h = (-l).clamp(0.0, cap);
-                let title = format!(
-                    "{period}: p = {}{}{}",
-                    fmt_p(pv),
-                    if reject {
-                        ", the groups differ"
-                    } else {
-                        ", no significant difference"
-                    },
-                    flagged
-                );
-                let yb = y(h);
-                let bar = format!(
-                    r#"<rect class="bar" x="{x}" y="{y}" width="{w}" height="{hh}"/>{over}"#,
-                    x = coord(cx - bar_w / 2.0),
-                    y = coord(yb),
-                    w = coord(bar_w),
-                    hh = coord((top + plot_h - yb).max(1.0)),
-                    over = if -l > cap {
-                        format!(
-                            r#"<text class="cap" x="{x}" y="{y}" text-anchor="middle">&#9650;</text>"#,
-                            x = coord(cx),
-                            y = coord(yb - 3.0)
-                        )
-                    } else {
-                        String::new()
-                    },
-                );
-                (
-                    if reject { "differ" } else { "same" },
-                    format!("<title>{}</title>{bar}", escape(&title)),
-                )
-            }
-            _ => {
-                let title = format!("{period}: {}", p.decision);
-                (
-                    "untestable",
-                    format!(
-                        r#"<title>{}</title><rect class="bar" x="{x}" y="{y}" width="{w}" height="6"/>"#,
-                        escape(&title),
-                        x = coord(cx - bar_w / 2.0),
-                        y = coord(top + plot_h - 6.0),
-                        w = coord(bar_w),
-                    ),
-                )
-            }
+        let (class, title) = match (p.reject, p.p_value) {
+            (Some(true), Some(pv)) => (
+                "differ",
+                format!(
+                    "{period}: the groups differ (p = {}); {flagged_words}",
+                    fmt_p(pv)
+                ),
+            ),
+            (Some(false), Some(pv)) => (
+                "same",
+                format!(
+                    "{period}: no significant difference (p = {}); {flagged_words}",
+                    fmt_p(pv)
+                ),
+            ),
+            _ => ("untestable", format!("{period}: {}", p.decision)),
         };
+        let mut body = format!(
+            r#"<title>{}</title><rect class="hit" x="{x}" y="{t}" width="{w}" height="{h}"/><rect class="cell" x="{x}" y="{t}" width="{w}" height="{vh}" rx="2"/>"#,
+            escape(&title),
+            x = coord(x0),
+            t = coord(top),
+            w = coord(cell_w),
+            h = coord(rows_bottom - top),
+            vh = coord(verdict_h),
+        );
+        for (r, name) in names.iter().enumerate() {
+            let cy = rows_top + row_h * (r as f64 + 0.5);
+            match p.flagged.iter().find(|f| f.name == *name).map(|f| f.flag) {
+                Some(Flag::Above) => {
+                    let _ = write!(
+                        body,
+                        r#"<path class="mark above" d="M{a},{b} L{c},{d} L{e},{d} Z"/>"#,
+                        a = coord(cx),
+                        b = coord(cy - mark),
+                        c = coord(cx - mark),
+                        d = coord(cy + mark * 0.8),
+                        e = coord(cx + mark),
+                    );
+                }
+                Some(Flag::Below) => {
+                    let _ = write!(
+                        body,
+                        r#"<path class="mark below" d="M{a},{b} L{c},{d} L{e},{d} Z"/>"#,
+                        a = coord(cx),
+                        b = coord(cy + mark),
+                        c = coord(cx - mark),
+                        d = coord(cy - mark * 0.8),
+                        e = coord(cx + mark),
+                    );
+                }
+                None => {
+                    let _ = write!(
+                        body,
+                        r#"<circle class="mark none" cx="{x}" cy="{y}" r="1.5"/>"#,
+                        x = coord(cx),
+                        y = coord(cy),
+                    );
+                }
+            }
+        }
         let label = if i % label_every == 0 {
             format!(
                 r#"<text class="tick" x="{x}" y="{y}" text-anchor="end" transform="rotate(-45 {x} {y})">{t}</text>"#,
                 x = coord(cx + 4.0),
-                y = coord(top + plot_h + 14.0),
+                y = coord(rows_bottom + 14.0),
                 t = escape(&period),
             )
         } else {

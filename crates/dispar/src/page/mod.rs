@@ -9,6 +9,7 @@
 //! | `POST /sign-out` | ends the session, clears the cookie, 303 to `/sign-in` |
 //! | `GET /report?period=&level=&site=` | the report page (default: the latest complete week with data, sites) |
 //! | `GET /series?from=&to=&level=&site=` | verdicts per period (default: the 12 weeks up to that week) |
+//! | `GET /favicon.svg` | the pages' icon |
 //!
 //! Modules: [`render`] (pure HTML), [`charts`] (pure SVG), [`format`] (escaping and
 //! numbers), [`session`] (cookie and session store), [`data`] (reports from the
@@ -84,6 +85,7 @@ pub fn router_with(config: PageConfig) -> Router<AppState> {
         .route("/sign-out", post(sign_out))
         .route("/report", get(report_page))
         .route("/series", get(series_page))
+        .route("/favicon.svg", get(favicon))
         .layer(Extension(pages))
 }
 
@@ -126,6 +128,23 @@ fn see_other(location: &str, cookie: Option<String>) -> Response {
         h.insert(header::SET_COOKIE, v);
     }
     response
+}
+
+async fn favicon() -> Response {
+    (
+        [
+            (
+                header::CONTENT_TYPE,
+                HeaderValue::from_static("image/svg+xml"),
+            ),
+            (
+                header::CACHE_CONTROL,
+                HeaderValue::from_static("public, max-age=86400"),
+            ),
+        ],
+        render::FAVICON,
+    )
+        .into_response()
 }
 
 async fn home() -> Response {

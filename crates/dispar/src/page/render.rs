@@ -32,6 +32,9 @@ pub fn style_hash() -> &'static str {
     })
 }
 
+/// The pages' icon: three dots at different heights around a line.
+pub const FAVICON: &str = "<svg xmlns=\"http://www.w3.org/2000/svg\" viewBox=\"0 0 32 32\"><rect width=\"32\" height=\"32\" rx=\"6\" fill=\"#24505a\"/><path d=\"M5 17h22\" stroke=\"#e9c46a\" stroke-width=\"2\"/><circle cx=\"9\" cy=\"12\" r=\"3\" fill=\"#fff\"/><circle cx=\"16\" cy=\"19\" r=\"3\" fill=\"#fff\"/><circle cx=\"23\" cy=\"9\" r=\"3\" fill=\"#f4a28c\"/></svg>";
+
 /// Standard base64 (RFC 4648 section 4, with padding).
 fn base64(bytes: &[u8]) -> String {
     const ALPHABET: &[u8; 64] = b"ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789+/";
@@ -159,7 +162,7 @@ fn document(title: &str, viewer: Option<&Viewer>, nav: Nav, body: &str) -> Strin
     let mut s = String::with_capacity(body.len() + STYLE.len() + 1024);
     let _ = write!(
         s,
-        "<!doctype html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n<meta name=\"referrer\" content=\"same-origin\">\n<title>{}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n<header class=\"top\"><a class=\"brand\" href=\"/report\">dispar</a>",
+        "<!doctype html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n<meta name=\"referrer\" content=\"same-origin\">\n<link rel=\"icon\" href=\"/favicon.svg\" type=\"image/svg+xml\">\n<title>{}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n<header class=\"top\"><a class=\"brand\" href=\"/report\">dispar</a>",
         escape(title)
     );
     if let Some(v) = viewer {
@@ -980,7 +983,7 @@ pub fn render_series(view: &SeriesView, ctx: &PageContext) -> String {
         .collect();
     body.push_str("<section><h2>Verdict per period</h2><figure>");
     body.push_str(&series_chart(&view.points, view.alpha, &links));
-    body.push_str("<figcaption>Bar height: \u{2212}log10 p (taller is stronger evidence). Red: the groups differ; green: no significant difference; grey: not testable. Each bar opens that period's report.</figcaption></figure></section>\n");
+    body.push_str("<figcaption>Top row: red where the groups differ, green where they do not, grey where the period could not be tested. Below: \u{25b2} flagged above, \u{25bc} flagged below that period's pooled rate (groups never flagged are not shown). Each column opens that period's report.</figcaption></figure></section>\n");
     body.push_str("<section><h2>Periods</h2><div class=\"scroll\"><table id=\"series\"><thead><tr><th scope=\"col\">Period</th><th scope=\"col\">Inspected</th><th scope=\"col\">Defective</th><th scope=\"col\">Rate</th><th scope=\"col\">Groups</th><th scope=\"col\">Test</th><th scope=\"col\">p</th><th scope=\"col\">Verdict</th><th scope=\"col\">Flagged</th></tr></thead><tbody>");
     for (p, href) in view.points.iter().zip(&links) {
         let period = p.period.map(|x| x.to_string()).unwrap_or_default();
