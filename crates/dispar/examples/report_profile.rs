@@ -1,0 +1,68 @@
+//! Where a report's time goes (not a test): the store's sums, the statistics and the
+//! JSON, timed separately, in process, on an existing database, e.g. the one
+//! `tests/examples/report_bench.rs --out DIR` leaves behind.
+//!
+//! ```text
+//! cargo run --release -p dispar --example report_profile -- DATABASE_URL [PERIOD] [ROUNDS]
+//! ```
+
+#![allow(clippy::unwrap_used, clippy::print_stderr)] // a benchmark driver: panics report failures
+
+use std::time::{Duration, Instant};
+
+use dispar::reports::compute::{self, Detail};
+use dispar::reports::spec::{RawQuery, ReportSpec};
+
+fn median(mut v: Vec<Duration>) -> f64 {
+    v.sort();
+    v[v.len() / 2].as_secs_f64() * 1e3
+}
+
+#[tokio::main]
+async fn main() {
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    let url = args.first().expect("DATABASE_URL").clone();
+    let period = args.get(1).cloned().unwrap_or_else(|| "2025-06".to_owned());
+    let rounds: usize = args.get(2).map_or(20, |r| r.parse().unwrap());
+    let store = dispar_store::open(&url).await.unwrap();
+    let raw = RawQuery {
+        period: Some(&period),
+        ..RawQuery::default()
+    };
+    let (spec, period) = ReportSpec::parse_report(&raw).unwrap();
+    let (mut version, mut sums, mut load, mut build, mut json) =
+        (Vec::new(), Vec::new(), Vec::new(), Vec::new(), Vec::new());
+    let mut bytes = 0;
+    for _ in 0..rounds {
+        let t = Instant::now();
+        store.data_version().await.unwrap();
+        version.push(t.elapsed());
+        let t = Instant::now();
+        store
+            .aggregate(&spec.aggregate_query(&period))
+            .await
+            .unwrap();
+        sums.push(t.elapsed());
+        let t = Instant::now();
+        let loaded = compute::load(store.as_ref(), &spec, &period, Detail::Report)
+            .await
+            .unwrap();
+        load.push(t.elapsed());
+        let t = Instant::now();
+        let report = compute::build(&spec, period, &loaded.groups);
+        build.push(t.elapsed());
+        let t = Instant::now();
+        bytes = serde_json::to_vec(&report).unwrap().len();
+        json.push(t.elapsed());
+    }
+    println!(
+        "period {period}, {rounds} rounds, medians: data_version {:.2} ms, aggregate {:.1} ms, load (aggregate + names) {:.1} ms, build_report {:.1} ms, JSON {:.1} ms ({:.1} MB)",
+        median(version),
+        median(sums),
+        median(load),
+        median(build),
+        median(json),
+        bytes as f64 / 1e6
+    );
+    store.close().await;
+}
