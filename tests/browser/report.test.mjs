@@ -270,6 +270,13 @@ async function main() {
   await page.locator('#verdict').waitFor();
   assert.equal(await page.locator('table#groups tbody tr').count(), 4, 'MRQ has four lines');
   assert.match(await page.locator('#flag-summary').innerText(), /MRQ\/L2 above/, 'the spike line is flagged');
+  await page.screenshot({ path: join(outDir, 'report-lines-MRQ-2026-W09.png'), fullPage: true });
+
+  // The small plant's two lines need the exact test.
+  await page.goto(`${base}/report?period=${DRIFT_WEEK}&level=line&site=SEM`);
+  await page.locator('#verdict').waitFor();
+  assert.equal(await page.locator('table#groups tbody tr').count(), 2, 'SEM has two lines');
+  assert.match(await page.locator('#verdict').innerText(), /Fisher's exact test/, 'SEM lines: exact test');
 
   // 7. The series page: one row and one bar per week.
   await page.goto(`${base}/series?from=2026-W10&to=${LAST_WEEK}&level=site`);

@@ -25,7 +25,7 @@ echo "== HTTP: dispar serve (release), fresh SQLite file"
     --sql-out "$work/rows.sql"
 
 echo "== ceiling: sqlite3 CLI, same rows, one transaction of 1000-row INSERTs"
-"$DISPAR_BIN" migrate --database "sqlite:$work/ceiling.db" 2>/dev/null
+"$DISPAR_BIN" migrate --database "sqlite:$work/ceiling.db"
 # The registry first, untimed (one small transaction).
 sed -n '/^BEGIN IMMEDIATE;$/q;p' "$work/rows.sql" > "$work/registry.sql"
 sed -n '/^BEGIN IMMEDIATE;$/,$p' "$work/rows.sql" > "$work/counts.sql"

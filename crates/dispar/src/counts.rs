@@ -721,14 +721,13 @@ async fn post_batch(
     let media = match body.media_type {
         Some(m) => m,
         None => {
-            return Err(unsupported(
-                body.content_type.as_deref(),
-                "application/json or text/csv",
-            )
-            .with_header(
-                HeaderName::from_static("accept-post"),
-                "application/json, text/csv",
-            ));
+            return Err(
+                unsupported(body.content_type.as_deref(), "application/json or text/csv")
+                    .with_header(
+                        HeaderName::from_static("accept-post"),
+                        "application/json, text/csv",
+                    ),
+            );
         }
     };
     let idem_key = idempotency_key(&headers)?;

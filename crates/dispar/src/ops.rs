@@ -103,7 +103,10 @@ pub const OPENAPI_YAML: &str = include_str!("../../../openapi.yaml");
 /// `GET /openapi.yaml`: the contract this server was built with (no key needed).
 async fn openapi_yaml() -> impl IntoResponse {
     (
-        [(header::CONTENT_TYPE, HeaderValue::from_static("application/yaml"))],
+        [(
+            header::CONTENT_TYPE,
+            HeaderValue::from_static("application/yaml"),
+        )],
         OPENAPI_YAML,
     )
 }
@@ -208,20 +211,23 @@ pub async fn timeout(State(state): State<AppState>, request: Request, next: Next
     }
 }
 
-/// Middleware: gives every error response a problem body. Our handlers already
-/// answer with `application/problem+json`; this catches the rest (axum's 405, a
-/// panic caught by `CatchPanicLayer`, a body-limit layer), keeping their headers.
+/// Middleware: gives error responses of the framework a problem body. Our handlers
+/// already answer with `application/problem+json` (and the HTML pages with HTML);
+/// this catches the rest — bodiless or `text/plain` errors such as axum's 405, a
+/// panic caught by `CatchPanicLayer`, a body-limit layer — keeping their headers.
 pub async fn problem_bodies(request: Request, next: Next) -> Response {
     let response = next.run(request).await;
     let status = response.status();
     if !(status.is_client_error() || status.is_server_error()) {
         return response;
     }
-    let is_problem = response
-        .headers()
-        .get(header::CONTENT_TYPE)
-        .is_some_and(|v| v.as_bytes().starts_with(PROBLEM_JSON.as_bytes()));
-    if is_problem {
+    // Framework and layer errors come without a body type or as text/plain; anything
+    // else (our problems, the HTML pages' own error pages) is already meant as it is.
+    let from_framework = match response.headers().get(header::CONTENT_TYPE) {
+        None => true,
+        Some(v) => v.as_bytes().starts_with(b"text/plain"),
+    };
+    if !from_framework {
         return response;
     }
     let kind = ProblemKind::for_status(status);

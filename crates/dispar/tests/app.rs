@@ -22,7 +22,9 @@ async fn state(dir: &tempfile::TempDir, limits: Limits) -> AppState {
 }
 
 async fn body_json(response: axum::response::Response) -> serde_json::Value {
-    let bytes = axum::body::to_bytes(response.into_body(), 1 << 20).await.unwrap();
+    let bytes = axum::body::to_bytes(response.into_body(), 1 << 20)
+        .await
+        .unwrap();
     serde_json::from_slice(&bytes).unwrap()
 }
 
@@ -44,14 +46,21 @@ async fn readyz_is_503_once_shutdown_has_begun() {
         .await
         .unwrap();
     assert_eq!(draining.status(), StatusCode::SERVICE_UNAVAILABLE);
-    assert_eq!(draining.headers()["content-type"], "application/problem+json");
+    assert_eq!(
+        draining.headers()["content-type"],
+        "application/problem+json"
+    );
     assert!(draining.headers().contains_key("retry-after"));
     assert_eq!(body_json(draining).await["type"], "/problems/unavailable");
     let live = app
         .oneshot(Request::get("/livez").body(Body::empty()).unwrap())
         .await
         .unwrap();
-    assert_eq!(live.status(), StatusCode::OK, "livez stays 200 while draining");
+    assert_eq!(
+        live.status(),
+        StatusCode::OK,
+        "livez stays 200 while draining"
+    );
 }
 
 #[tokio::test]
@@ -102,5 +111,8 @@ async fn serve_on_port_0_answers_and_stops_when_told() {
     assert!(reply.starts_with("HTTP/1.1 200"), "{reply}");
     stop.send(()).unwrap();
     let result = tokio::time::timeout(Duration::from_secs(10), server).await;
-    assert!(matches!(result, Ok(Ok(Ok(())))), "serve returns after shutdown: {result:?}");
+    assert!(
+        matches!(result, Ok(Ok(Ok(())))),
+        "serve returns after shutdown: {result:?}"
+    );
 }

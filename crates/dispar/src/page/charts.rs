@@ -332,9 +332,14 @@ pub fn funnel_chart(report: &Report) -> Option<String> {
                 b = coord(top + plot_h),
             );
             if major || hi_exp - lo_exp <= 2.0 {
+                let anchor = if xv > WIDTH - right - 20.0 {
+                    "end"
+                } else {
+                    "middle"
+                };
                 let _ = write!(
                     s,
-                    r#"<text class="tick" x="{x}" y="{y}" text-anchor="middle">{label}</text>"#,
+                    r#"<text class="tick" x="{x}" y="{y}" text-anchor="{anchor}">{label}</text>"#,
                     x = coord(xv),
                     y = coord(top + plot_h + 16.0),
                     label = fmt_count(n.round() as u64),

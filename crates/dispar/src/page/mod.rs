@@ -246,7 +246,16 @@ async fn sign_in(
     form: Result<Form<SignInForm>, axum::extract::rejection::FormRejection>,
 ) -> Response {
     let refuse = |status: StatusCode, message: &str, next: Option<&str>| {
-        html(status, render::render_sign_in(Some(message), next))
+        let mut response = html(status, render::render_sign_in(Some(message), next));
+        if status == StatusCode::UNAUTHORIZED {
+            // RFC 9110 section 15.5.2: a 401 names a scheme; browsers show no dialog
+            // for Bearer, so the form stays what the person sees.
+            response.headers_mut().insert(
+                header::WWW_AUTHENTICATE,
+                HeaderValue::from_static("Bearer realm=\"dispar\""),
+            );
+        }
+        response
     };
     if session::cross_site(&headers) {
         return refuse(

@@ -258,6 +258,16 @@ fn verdict(report: &Report, out: &mut String) {
     let site = report.filters.site.as_ref().map(|s| s.as_str());
     let (cap, plural, singular) = units(report.level, site);
     let (class, headline, detail) = match (&report.test, &report.not_testable) {
+        (None, _) if report.totals.inspected == 0 => (
+            "untestable",
+            "No data".to_owned(),
+            format!(
+                "No units were inspected in {}: there is nothing to compare.",
+                report
+                    .period
+                    .map_or_else(|| "this period".to_owned(), |p| p.to_string())
+            ),
+        ),
         (Some(t), _) if t.reject => (
             "differ",
             format!("{cap} differ in defect rate"),

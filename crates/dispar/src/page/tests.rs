@@ -281,6 +281,12 @@ mod flow {
     }
 
     async fn fixture() -> Fixture {
+        fixture_with(false).await
+    }
+
+    /// With `whole_app`, the routes are served by [`crate::app`], with every layer the
+    /// server has (problem bodies, limits, tracing), as in production.
+    async fn fixture_with(whole_app: bool) -> Fixture {
         static N: AtomicU64 = AtomicU64::new(0);
         let path = std::env::temp_dir().join(format!(
             "dispar-page-test-{}-{}.db",
@@ -291,7 +297,11 @@ mod flow {
             .await
             .unwrap();
         let state = AppState::new(store.clone(), Limits::default());
-        let app = crate::page::router().with_state(state);
+        let app = if whole_app {
+            crate::app(state)
+        } else {
+            crate::page::router().with_state(state)
+        };
         Fixture { app, store, path }
     }
 
@@ -554,8 +564,40 @@ mod flow {
         let (s, _, body) = send(&f.app, get("/report", Some(&cookie))).await;
         assert_eq!(s, StatusCode::OK);
         assert!(body.contains("class=\"untestable\""), "{body}");
+        assert!(body.contains("<h1>No data</h1>"), "{body}");
         assert!(body.contains("id=\"notice\""));
         let (s, _, body) = send(&f.app, get("/", None)).await;
         assert_eq!(s, StatusCode::SEE_OTHER, "{body}");
+    }
+
+    #[tokio::test]
+    async fn in_the_whole_application_refusals_stay_html_pages() {
+        let f = fixture_with(true).await;
+        let (_, token) = key(&f.store, KeyRole::Read).await;
+        let (s, headers, body) =
+            send(&f.app, post_form("/sign-in", form("dsp_1_00", None), &[])).await;
+        assert_eq!(s, StatusCode::UNAUTHORIZED);
+        assert!(
+            headers[header::CONTENT_TYPE]
+                .to_str()
+                .unwrap()
+                .starts_with("text/html"),
+            "the sign-in form again, not a problem body: {body}"
+        );
+        let (s, headers, _) = send(&f.app, post_form("/sign-in", form(&token, None), &[])).await;
+        assert_eq!(s, StatusCode::SEE_OTHER);
+        let cookie = cookie_pair(headers[header::SET_COOKIE].to_str().unwrap());
+        let (s, headers, body) = send(&f.app, get("/report?period=2026-13", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::UNPROCESSABLE_ENTITY);
+        assert!(
+            headers[header::CONTENT_TYPE]
+                .to_str()
+                .unwrap()
+                .starts_with("text/html"),
+            "{body}"
+        );
+        let (s, _, body) = send(&f.app, get("/favicon.svg", None)).await;
+        assert_eq!(s, StatusCode::OK);
+        assert!(body.starts_with("<svg"));
     }
 }

@@ -71,7 +71,8 @@ pub async fn load(
             g.defects.clear();
         }
     }
-    let names: HashMap<String, String> = if detail == Detail::Summary || aggregate.groups.is_empty() {
+    let names: HashMap<String, String> = if detail == Detail::Summary || aggregate.groups.is_empty()
+    {
         HashMap::new()
     } else {
         match &spec.level {

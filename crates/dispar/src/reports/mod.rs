@@ -33,7 +33,8 @@
 //! unreachable. `as_of` reports are keyed the same way (the registered groups and
 //! their names, which an `as_of` report also shows, are current, not historical).
 //! The counter `dispar_report_cache_total{result="hit|miss|not_modified"}` counts the
-//! outcomes.
+//! outcomes, and a `Server-Timing` header says where a computed answer spent its time
+//! (`db`, `stats`, `json`, in milliseconds) or that it came from the cache.
 
 pub mod cache;
 pub mod compute;
@@ -41,6 +42,7 @@ pub mod spec;
 
 use std::future::Future;
 use std::sync::Arc;
+use std::time::Instant;
 
 use axum::body::Bytes;
 use axum::extract::State;
@@ -193,6 +195,37 @@ struct Computed {
     body: Bytes,
     version: u64,
     cacheable: bool,
+    /// Milliseconds spent reading the sums and computing the body.
+    timing: Timing,
+}
+
+/// Where a cache miss spent its time, sent as `Server-Timing` (W3C Server Timing):
+/// `db` (sums and names from the store), `stats` (the report builder), `json`
+/// (serialization).
+#[derive(Debug, Clone, Copy, Default)]
+struct Timing {
+    db: f64,
+    stats: f64,
+    json: f64,
+}
+
+impl Timing {
+    fn header(&self) -> String {
+        format!(
+            "db;dur={:.2}, stats;dur={:.2}, json;dur={:.2}",
+            self.db, self.stats, self.json
+        )
+    }
+}
+
+fn ms_since(t: Instant) -> f64 {
+    t.elapsed().as_secs_f64() * 1e3
+}
+
+fn server_timing(response: &mut Response, value: &str) {
+    if let Ok(v) = HeaderValue::from_str(value) {
+        response.headers_mut().insert("server-timing", v);
+    }
 }
 
 /// The conditional-request and cache logic shared by both endpoints: 304 when the
@@ -222,14 +255,19 @@ where
     }
     if let Some(body) = cache.get(key, version) {
         count("hit");
-        return Ok(json_response(body, &tag));
+        let mut response = json_response(body, &tag);
+        server_timing(&mut response, "cache;desc=hit");
+        return Ok(response);
     }
     count("miss");
     let computed = compute().await?;
     if computed.cacheable {
         cache.insert(key, computed.version, computed.body.clone());
     }
-    Ok(json_response(computed.body, &etag(key, computed.version)))
+    let timing = computed.timing.header();
+    let mut response = json_response(computed.body, &etag(key, computed.version));
+    server_timing(&mut response, &timing);
+    Ok(response)
 }
 
 /// Runs CPU-bound work (statistics, serialization) off the async workers.
@@ -270,19 +308,26 @@ async fn get_report(
     let key = format!("report&period={period}&{}", spec.key());
     let store = state.store().clone();
     respond(&state, &cache, &headers, &key, || async move {
+        let started = Instant::now();
         let loaded = compute::load(store.as_ref(), &spec, &period, compute::Detail::Report)
             .await
             .map_err(crate::store_error)?;
+        let db = ms_since(started);
         let version = loaded.data_version;
-        let body = blocking(move || {
+        let (body, stats, json) = blocking(move || {
+            let started = Instant::now();
             let report = compute::build(&spec, period, &loaded.groups);
-            serde_json::to_vec(&report)
+            let stats = ms_since(started);
+            let started = Instant::now();
+            let body = serde_json::to_vec(&report)?;
+            Ok((body, stats, ms_since(started)))
         })
         .await?;
         Ok(Computed {
             body: Bytes::from(body),
             version,
             cacheable: true,
+            timing: Timing { db, stats, json },
         })
     })
     .await
@@ -337,6 +382,7 @@ async fn get_series(
     let key = format!("series&from={from}&to={to}&{}", spec.key());
     let store = state.store().clone();
     respond(&state, &cache, &headers, &key, || async move {
+        let started = Instant::now();
         let mut loads = Vec::with_capacity(periods.len());
         for p in &periods {
             loads.push(
@@ -349,13 +395,17 @@ async fn get_series(
         // Such a body is answered with the oldest version's tag and not cached.
         let version = loads.iter().map(|l| l.data_version).min().unwrap_or(0);
         let cacheable = loads.iter().all(|l| l.data_version == version);
-        let body = blocking(move || {
+        let db = ms_since(started);
+        let (body, stats, json) = blocking(move || {
+            let started = Instant::now();
             let points = periods
                 .iter()
                 .zip(&loads)
                 .map(|(p, l)| compute::summary(&spec, *p, &l.groups))
                 .collect();
-            serde_json::to_vec(&Series {
+            let stats = ms_since(started);
+            let started = Instant::now();
+            let body = serde_json::to_vec(&Series {
                 from,
                 to,
                 granularity: from.granularity(),
@@ -364,13 +414,15 @@ async fn get_series(
                 parameters: compute::echo(&spec),
                 periods: points,
                 cautions: compute::cautions(),
-            })
+            })?;
+            Ok((body, stats, ms_since(started)))
         })
         .await?;
         Ok(Computed {
             body: Bytes::from(body),
             version,
             cacheable,
+            timing: Timing { db, stats, json },
         })
     })
     .await
