@@ -148,6 +148,11 @@ impl<T: serde::Serialize> IntoResponse for ApiJson<T> {
 
 /// Parses `bytes` as JSON into `T`, turning errors into problems with JSON pointers.
 pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
+    // serde's derived structs also accept a JSON array of the fields in order; every
+    // body of this API is an object, so an array is refused before it can be read.
+    if bytes.trim_ascii_start().first() == Some(&b'[') {
+        return Err(not_an_object(String::new()));
+    }
     let mut de = serde_json::Deserializer::from_slice(bytes);
     let value = serde_path_to_error::deserialize(&mut de).map_err(|e| {
         let pointer = pointer_of(e.path());
@@ -170,10 +175,29 @@ pub fn from_value<T: DeserializeOwned>(
     value: serde_json::Value,
     prefix: &str,
 ) -> Result<T, Box<ErrorItem>> {
+    if value.is_array() {
+        return Err(Box::new(not_an_object_item(prefix.to_owned())));
+    }
     serde_path_to_error::deserialize(value).map_err(|e| {
         let pointer = format!("{prefix}{}", pointer_of(e.path()));
         Box::new(data_error_item(pointer, &e.into_inner()))
     })
+}
+
+/// The 422 problem for an array where the API takes an object.
+fn not_an_object(pointer: String) -> ApiError {
+    ApiError::validation(
+        "The request body has invalid fields.",
+        vec![not_an_object_item(pointer)],
+    )
+}
+
+fn not_an_object_item(pointer: String) -> ErrorItem {
+    ErrorItem::pointer(
+        pointer,
+        "invalid_type",
+        "invalid type: array, expected a JSON object",
+    )
 }
 
 /// The RFC 6901 pointer of a serde path (`""` for the root).
@@ -354,6 +378,22 @@ mod tests {
             Some("/records/0/inspected")
         );
         assert_eq!(e.errors()[0].reason, "invalid_type");
+    }
+
+    #[test]
+    fn arrays_in_place_of_objects_are_refused() {
+        #[derive(Debug, serde::Deserialize)]
+        #[allow(dead_code)]
+        struct Site {
+            name: String,
+        }
+        let e = err::<Site>(r#" ["Array Site"]"#);
+        assert_eq!(e.status(), axum::http::StatusCode::UNPROCESSABLE_ENTITY);
+        assert_eq!(e.errors()[0].reason, "invalid_type");
+        let item = from_value::<Site>(serde_json::json!(["x"]), "/records/2")
+            .expect_err("an array is not a record");
+        assert_eq!(item.reason, "invalid_type");
+        assert_eq!(item.pointer.as_deref(), Some("/records/2"));
     }
 
     #[test]
