@@ -302,3 +302,180 @@ fn invalid_utf8_a_missing_file_and_bad_options_exit_2() {
         );
     }
 }
+
+/// The five NIST lots as (defective, conforming) cells, for statistics computed here by
+/// their definitions.
+const NIST_CELLS: [(f64, f64); 5] = [
+    (36.0, 264.0),
+    (46.0, 254.0),
+    (42.0, 258.0),
+    (63.0, 237.0),
+    (38.0, 262.0),
+];
+
+fn pairs_of(v: &Value) -> Vec<Value> {
+    v["pairwise"].as_array().expect("pairwise").clone()
+}
+
+fn f(v: &Value) -> f64 {
+    v.as_f64().unwrap_or_else(|| panic!("not a number: {v}"))
+}
+
+#[test]
+fn effect_size_and_validity_follow_their_definitions() {
+    // Cramer's V = sqrt(X^2 / (N (min(r, c) - 1))) (Cramer 1946, Mathematical Methods of
+    // Statistics, 21.9) with the NIST 7.4.6 X^2 = 464 (1/45 + 1/255) and N = 1500; every
+    // expected count is 45 (defective) or 255 (conforming), so Cochran's rule holds.
+    let v = json_of(&analyze(&["--format", "json"], NIST_LOTS));
+    let x2: f64 = 464.0 * (1.0 / 45.0 + 1.0 / 255.0);
+    close(
+        &v["test"]["cramers_v"],
+        (x2 / 1500.0).sqrt(),
+        1e-12,
+        "Cramer's V",
+    );
+    close(
+        &v["validity"]["min_expected"],
+        45.0,
+        1e-12,
+        "smallest expected count",
+    );
+    close(&v["validity"]["share_below_5"], 0.0, 0.0, "share below 5");
+    assert_eq!(v["validity"]["cochran_holds"], true, "{}", v["validity"]);
+
+    // Pairwise differences are the rate differences; the default adjustment is Holm
+    // (Holm 1979, Scand. J. Statist. 6:65-70): step-down max of (m - i) p_(i), capped at 1.
+    let pairs = pairs_of(&v);
+    let lot14 = pairs
+        .iter()
+        .find(|p| p["a"] == "lot1" && p["b"] == "lot4")
+        .expect("pair lot1-lot4");
+    close(
+        &lot14["difference"],
+        0.12 - 0.21,
+        1e-12,
+        "difference lot1 - lot4",
+    );
+    let ci = &lot14["difference_ci"];
+    assert!(f(&ci["lower"]) < -0.09 && f(&ci["upper"]) > -0.09, "{ci}");
+    let raw: Vec<f64> = pairs.iter().map(|p| f(&p["p_value"])).collect();
+    let mut order: Vec<usize> = (0..raw.len()).collect();
+    order.sort_by(|&i, &j| raw[i].total_cmp(&raw[j]));
+    let m = raw.len() as f64;
+    let mut running: f64 = 0.0;
+    for (rank, &i) in order.iter().enumerate() {
+        running = running.max(((m - rank as f64) * raw[i]).min(1.0));
+        close(&pairs[i]["p_adjusted"], running, 1e-12, "Holm-adjusted p");
+    }
+}
+
+#[test]
+fn the_method_pairwise_and_adjust_options_are_honoured() {
+    // --method g: G^2 = 2 sum O ln(O / E) by its definition (Agresti, Categorical Data
+    // Analysis, 2nd ed., section 1.5.5 / 3.2; section numbers from memory), E = 45 and 255.
+    let v = json_of(&analyze(&["--format", "json", "--method", "g"], NIST_LOTS));
+    assert_eq!(v["test"]["method"], "g", "{}", v["test"]);
+    let g2: f64 = NIST_CELLS
+        .iter()
+        .map(|&(d, c)| 2.0 * (d * (d / 45.0).ln() + c * (c / 255.0).ln()))
+        .sum();
+    close(&v["test"]["statistic"], g2, 1e-9, "G^2");
+
+    // --adjust bonferroni: min(1, m p) with m = 10 pairs (Bonferroni; definition).
+    let v = json_of(&analyze(
+        &["--format", "json", "--adjust", "bonferroni"],
+        NIST_LOTS,
+    ));
+    for p in pairs_of(&v) {
+        let raw = f(&p["p_value"]);
+        close(&p["p_adjusted"], (10.0 * raw).min(1.0), 1e-12, "Bonferroni");
+    }
+
+    // --adjust bh: step-up min over j >= i of m p_(j) / j (Benjamini & Hochberg 1995,
+    // JRSS B 57:289-300).
+    let v = json_of(&analyze(&["--format", "json", "--adjust", "bh"], NIST_LOTS));
+    let pairs = pairs_of(&v);
+    let raw: Vec<f64> = pairs.iter().map(|p| f(&p["p_value"])).collect();
+    let m = raw.len();
+    for (i, p) in pairs.iter().enumerate() {
+        let expected = raw
+            .iter()
+            .filter(|&&q| q >= raw[i])
+            .map(|&q| {
+                let rank = raw.iter().filter(|&&r| r <= q).count();
+                q * m as f64 / rank as f64
+            })
+            .fold(1.0_f64, f64::min);
+        close(&p["p_adjusted"], expected, 1e-12, "Benjamini-Hochberg");
+    }
+
+    // --pairwise pearson-yates: X^2 = N (|ad - bc| - N/2)^2 / (R1 R2 C1 C2) (Yates 1934;
+    // definition) for every pair, named as such.
+    let v = json_of(&analyze(
+        &["--format", "json", "--pairwise", "pearson-yates"],
+        NIST_LOTS,
+    ));
+    let index = |name: &Value| -> usize {
+        let s = name.as_str().expect("group name");
+        s.trim_start_matches("lot").parse::<usize>().expect("lotN") - 1
+    };
+    for p in pairs_of(&v) {
+        assert_eq!(p["method"], "pearson-yates", "{p}");
+        let (a, b) = (NIST_CELLS[index(&p["a"])], NIST_CELLS[index(&p["b"])]);
+        let n = a.0 + a.1 + b.0 + b.1;
+        let det = (a.0 * b.1 - a.1 * b.0).abs();
+        let yates = n * (det - n / 2.0).max(0.0).powi(2)
+            / ((a.0 + a.1) * (b.0 + b.1) * (a.0 + b.0) * (a.1 + b.1));
+        close(&p["statistic"], yates, 1e-9, "Yates X^2");
+    }
+
+    // --pairwise fisher: every pair by the exact test (its p-values are checked against
+    // exact enumeration in crates/dispar-stats/tests/reference.rs).
+    let v = json_of(&analyze(
+        &["--format", "json", "--pairwise", "fisher"],
+        NIST_LOTS,
+    ));
+    for p in pairs_of(&v) {
+        assert_eq!(p["method"], "fisher", "{p}");
+        let raw = f(&p["p_value"]);
+        assert!(raw > 0.0 && raw <= 1.0, "{p}");
+    }
+}
+
+#[test]
+fn a_monte_carlo_p_is_reproducible_and_reports_its_resamples_and_error() {
+    // --method exact on a 5 x 2 table: the Monte Carlo conditional p = (1 + b) / (1 + B)
+    // with standard error sqrt(p (1 - p) / B) (Patefield 1981, Applied Statistics 30:91-97
+    // for the sampler; the estimator as in Davison & Hinkley 1997, section 4.2.1, from
+    // memory). Counts this large make the asymptotic p (0.0164052, see the module docs)
+    // a reference within a few standard errors.
+    let args = [
+        "--format",
+        "json",
+        "--method",
+        "exact",
+        "--resamples",
+        "2000",
+    ];
+    let first = json_of(&analyze(&args, NIST_LOTS));
+    let second = json_of(&analyze(&args, NIST_LOTS));
+    let t = &first["test"];
+    assert_eq!(t["method"], "monte-carlo", "{t}");
+    assert_eq!(t["resamples"], 2000, "{t}");
+    assert_eq!(
+        t["p_value"], second["test"]["p_value"],
+        "same table, same p"
+    );
+    let p = f(&t["p_value"]);
+    let b = p * 2001.0 - 1.0;
+    assert!(
+        (b - b.round()).abs() < 1e-9,
+        "p = (1 + b) / (1 + B): b = {b}"
+    );
+    let se = (p * (1.0 - p) / 2000.0).sqrt();
+    close(&t["p_std_error"], se, 1e-12, "standard error");
+    assert!(
+        (p - 0.016_405_221_988_903_654).abs() <= 4.0 * se + 1.0 / 2001.0,
+        "Monte Carlo p {p} far from the asymptotic 0.0164052 (se {se})"
+    );
+}

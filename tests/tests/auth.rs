@@ -312,3 +312,41 @@ fn a_plant_key_writing_another_plant_gets_403_and_nothing_is_written() {
     r.problem(403, "forbidden");
     assert_eq!(s.snapshot(), before);
 }
+
+#[test]
+fn the_database_keeps_only_a_hash_of_each_secret() {
+    // Issue #3: keys are 128+ random bits, stored as a hash. The token is
+    // `dsp_<id>_<64 hex digits>` (256 bits); neither the hex text nor the raw secret bytes
+    // may appear in the database file or its WAL.
+    let s = Server::start();
+    let token = s.key("read", &[]);
+    let hex = token.rsplit('_').next().unwrap();
+    assert_eq!(hex.len(), 64, "256-bit secret: {token}");
+    assert!(hex.bytes().all(|b| b.is_ascii_hexdigit()), "{token}");
+    let raw: Vec<u8> = (0..32)
+        .map(|i| u8::from_str_radix(&hex[2 * i..2 * i + 2], 16).unwrap())
+        .collect();
+    // The key works, so it was stored before we look.
+    assert_eq!(
+        s.request("GET", "/v1/sites", Some(&token), Body::None)
+            .status,
+        200
+    );
+    let db = s.database.trim_start_matches("sqlite:").to_owned();
+    let mut seen = 0;
+    for file in [db.clone(), format!("{db}-wal")] {
+        let Ok(bytes) = std::fs::read(&file) else {
+            continue;
+        };
+        seen += bytes.len();
+        assert!(
+            !bytes.windows(hex.len()).any(|w| w == hex.as_bytes()),
+            "{file} holds the secret in hex"
+        );
+        assert!(
+            !bytes.windows(raw.len()).any(|w| w == raw.as_slice()),
+            "{file} holds the raw secret"
+        );
+    }
+    assert!(seen > 0, "the database files were read");
+}

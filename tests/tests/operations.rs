@@ -256,3 +256,189 @@ fn sigterm_lets_an_in_flight_batch_finish_and_commit() {
         "the answered batch was committed"
     );
 }
+
+/// Starts `dispar serve` in `cwd` with only the given environment (no `--listen`, no
+/// `--database`), waits for its address, checks both probes, then stops it with SIGTERM.
+fn serve_from_env(cwd: &std::path::Path, env: &[(&str, String)]) {
+    use std::io::BufRead;
+    use std::process::{Command, Stdio};
+    let mut cmd = Command::new(dispar_system_tests::dispar_bin());
+    cmd.arg("serve")
+        .current_dir(cwd)
+        .env_remove("DATABASE_URL")
+        .env_remove("DISPAR_LISTEN")
+        .stdin(Stdio::null())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::null());
+    for (k, v) in env {
+        cmd.env(k, v);
+    }
+    let mut child = cmd.spawn().unwrap();
+    let stdout = child.stdout.take().unwrap();
+    let (tx, rx) = mpsc::channel();
+    std::thread::spawn(move || {
+        for line in std::io::BufReader::new(stdout).lines() {
+            let Ok(line) = line else { break };
+            if let Some(addr) = line.strip_prefix("listening on ") {
+                let _ = tx.send(addr.trim().to_owned());
+            }
+        }
+    });
+    let base = match rx.recv_timeout(Duration::from_secs(60)) {
+        Ok(base) => base,
+        Err(e) => {
+            let _ = child.kill();
+            let _ = child.wait();
+            panic!("no address reported: {e}");
+        }
+    };
+    let http = reqwest::blocking::Client::new();
+    for probe in ["/livez", "/readyz"] {
+        let r = http.get(format!("{base}{probe}")).send().unwrap();
+        assert_eq!(r.status().as_u16(), 200, "{probe}");
+    }
+    let killed = Command::new("kill")
+        .args(["-TERM", &child.id().to_string()])
+        .status()
+        .unwrap();
+    assert!(killed.success());
+    let status = child.wait().unwrap();
+    assert!(status.success(), "SIGTERM gives a clean exit: {status}");
+}
+
+#[test]
+fn serve_reads_its_address_and_database_from_the_environment_or_defaults() {
+    // Issue #3: `DISPAR_LISTEN` and `DATABASE_URL` configure `serve`; without a database
+    // the server creates and migrates `dispar.db` in the working directory; the lead's
+    // request: `sqlite:///abs/path` (three slashes) opens that absolute path.
+    let cwd = tempfile::tempdir().unwrap();
+    let elsewhere = tempfile::tempdir().unwrap();
+    let listen = ("DISPAR_LISTEN", "127.0.0.1:0".to_owned());
+
+    let absolute = elsewhere.path().join("env.db");
+    let url = format!("sqlite://{}", absolute.display());
+    assert!(url.starts_with("sqlite:///"), "{url}");
+    serve_from_env(cwd.path(), &[listen.clone(), ("DATABASE_URL", url)]);
+    assert!(absolute.exists(), "DATABASE_URL names the file it opens");
+    assert!(
+        !cwd.path().join("dispar.db").exists(),
+        "no default file when DATABASE_URL is set"
+    );
+
+    serve_from_env(cwd.path(), &[listen]);
+    assert!(
+        cwd.path().join("dispar.db").exists(),
+        "the default database is dispar.db in the working directory"
+    );
+}
+
+/// The sqlite3 shell holding the write lock of `file` (BEGIN IMMEDIATE) until the
+/// returned stdin is dropped; `None` when the shell is not installed.
+fn hold_write_lock(file: &str) -> Option<(std::process::Child, std::process::ChildStdin)> {
+    use std::io::Write;
+    use std::process::{Command, Stdio};
+    if Command::new("sqlite3").arg("-version").output().is_err() {
+        eprintln!("SKIPPED: the sqlite3 shell is not installed");
+        return None;
+    }
+    let mut holder = Command::new("sqlite3")
+        .arg(file)
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
+    let mut stdin = holder.stdin.take().unwrap();
+    // The SELECT after BEGIN IMMEDIATE prints once the lock is held.
+    stdin
+        .write_all(b"BEGIN IMMEDIATE;\nSELECT 'locked';\n")
+        .unwrap();
+    stdin.flush().unwrap();
+    let mut out = holder.stdout.take().unwrap();
+    let mut buf = [0u8; 6];
+    out.read_exact(&mut buf).unwrap();
+    assert_eq!(&buf, b"locked");
+    Some((holder, stdin))
+}
+
+const LOCKED_DAY: &str = "/v1/sites/S1/lines/L1/days/2026-03-02";
+
+#[test]
+fn a_write_while_another_process_holds_the_database_is_503_retryable_and_writes_nothing() {
+    // Issue #3: busy is mapped to a retryable error. Another process (the sqlite3 shell)
+    // holds the write lock past the store's 5 s busy timeout; the PUT gets 503
+    // `unavailable` with Retry-After, and nothing is written.
+    let s = Server::start();
+    s.site("S1", &["L1"]);
+    let ingest = s.key("ingest", &["S1"]);
+    let before = s.snapshot();
+    let Some((mut holder, stdin)) = hold_write_lock(s.database.trim_start_matches("sqlite:"))
+    else {
+        return;
+    };
+    let body = || Body::Json(json!({"inspected": 10, "defective": 1}));
+    let r = s.request("PUT", LOCKED_DAY, Some(&ingest), body());
+    drop(stdin); // the shell exits and its transaction rolls back
+    let _ = holder.wait();
+    r.problem(503, "unavailable");
+    assert!(
+        r.header("retry-after")
+            .is_some_and(|v| v.parse::<u32>().is_ok()),
+        "Retry-After in seconds: {:?}",
+        r.header("retry-after")
+    );
+    assert_eq!(s.snapshot(), before, "the refused write left nothing");
+    // Once the lock is gone the same request goes through.
+    let again = s.request("PUT", LOCKED_DAY, Some(&ingest), body());
+    assert_eq!(again.status, 201, "{}", again.text);
+}
+
+#[test]
+fn the_concurrency_limit_queues_v1_requests_but_not_the_probes() {
+    // `--max-concurrency 1`: while one /v1 write waits for the database lock (about 5 s,
+    // the busy timeout), a /v1 read waits its turn, and /livez (outside the limit) does not.
+    let s = Server::start_with(&["--max-concurrency", "1"]);
+    s.site("S1", &["L1"]);
+    let ingest = s.key("ingest", &["S1"]);
+    let reader = s.key("read", &[]);
+    let Some((mut holder, stdin)) = hold_write_lock(s.database.trim_start_matches("sqlite:"))
+    else {
+        return;
+    };
+    let started = Instant::now();
+    let (tx, rx) = mpsc::channel();
+    std::thread::scope(|scope| {
+        scope.spawn(|| {
+            let r = s.request(
+                "PUT",
+                LOCKED_DAY,
+                Some(&ingest),
+                Body::Json(json!({"inspected": 10, "defective": 1})),
+            );
+            tx.send(r.status).unwrap();
+        });
+        std::thread::sleep(Duration::from_millis(500));
+        let probe = s.request("GET", "/livez", None, Body::None);
+        assert_eq!(probe.status, 200);
+        let probe_done = started.elapsed();
+        let read = s.request("GET", "/v1/sites", Some(&reader), Body::None);
+        let read_done = started.elapsed();
+        assert_eq!(read.status, 200, "{}", read.text);
+        assert_eq!(
+            rx.recv().unwrap(),
+            503,
+            "the blocked write times out as busy"
+        );
+        assert!(
+            read_done >= Duration::from_secs(4),
+            "the read waited for the write's slot: {read_done:?}"
+        );
+        // Waiting for the slot would take until the write gives up (>= 5 s).
+        assert!(
+            probe_done < Duration::from_secs(4),
+            "the probe did not wait: {probe_done:?}"
+        );
+    });
+    drop(stdin);
+    let _ = holder.wait();
+}

@@ -482,6 +482,37 @@ mod tests {
     }
 
     #[test]
+    fn a_group_below_the_pooled_rate_is_flagged_below_with_its_share() {
+        // By hand from the definitions: pooled rate 440/5000 = 0.088, expected defective 88
+        // per group; Haberman's adjusted residual (40 - 88) / sqrt(88 (1 - 0.2) (1 - 0.088))
+        // = -5.99, beyond h(0.05, 5) (< 3); the other groups sit at +1.50. With equal group
+        // sizes each group's share of X^2 is d_i^2 / sum d^2: 2304 / 2880 = 0.8 for the low
+        // one, 144 / 2880 = 0.05 for each of the others.
+        let groups = [
+            (1000, 100),
+            (1000, 100),
+            (1000, 100),
+            (1000, 100),
+            (1000, 40),
+        ];
+        let r = analyze_rates(&groups, &Options::default()).expect("testable");
+        assert!(r.limit < 3.0, "h(0.05, 5) = {}", r.limit);
+        let low = &r.groups[4];
+        assert_rel(
+            low.adjusted_residual,
+            -48.0 / (88.0f64 * 0.8 * 0.912).sqrt(),
+            1e-13,
+            "adjusted residual",
+        );
+        assert_eq!(low.flag, Some(Flag::Below));
+        assert_rel(low.share_of_x2, 0.8, 1e-13, "share of X^2");
+        for g in &r.groups[..4] {
+            assert_eq!(g.flag, None);
+            assert_rel(g.share_of_x2, 0.05, 1e-13, "share of X^2");
+        }
+    }
+
+    #[test]
     fn zero_groups_are_dropped_and_indices_kept() {
         let r = analyze_rates(
             &[(300, 36), (0, 0), (300, 63), (300, 38)],

@@ -144,7 +144,14 @@ async fn report(args: &ReportArgs) -> Result<String, (u8, String)> {
     let (spec, period) = ReportSpec::parse_report(&raw).map_err(|errors| {
         let lines: Vec<String> = errors
             .iter()
-            .map(|e| format!("dispar report: {}: {}", flag(&e.field), e.message))
+            .map(|e| {
+                let message = if e.field == "site" && e.reason == "required" {
+                    "--level line compares the lines of one site; name it with --site"
+                } else {
+                    e.message.as_str()
+                };
+                format!("dispar report: {}: {message}", flag(&e.field))
+            })
             .collect();
         (EXIT_BAD_INPUT, lines.join("\n"))
     })?;

@@ -319,7 +319,7 @@ async fn get_report(
             let report = compute::build(&spec, period, &loaded.groups);
             let stats = ms_since(started);
             let started = Instant::now();
-            let body = serde_json::to_vec(&report)?;
+            let body = compute::to_json(&report)?;
             Ok((body, stats, ms_since(started)))
         })
         .await?;
