@@ -421,8 +421,12 @@ async fn list_counts(
 }
 
 fn parse_limit(s: &str) -> Result<u32, FieldError> {
-    match s.parse::<u32>() {
-        Ok(n) if (1..=MAX_PAGE).contains(&n) => Ok(n),
+    match s
+        .parse::<u32>()
+        .ok()
+        .filter(|_| s.bytes().all(|b| b.is_ascii_digit()))
+    {
+        Some(n) if (1..=MAX_PAGE).contains(&n) => Ok(n),
         _ => Err(FieldError::new(
             "limit",
             "out_of_range",

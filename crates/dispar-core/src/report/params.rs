@@ -310,7 +310,12 @@ impl Parameters {
         let mut c = Collector::new();
         let d = Parameters::default();
         let number = |c: &mut Collector, s: Option<&str>, field: &str, default: f64| -> f64 {
-            match s.map(|s| s.trim().parse::<f64>()) {
+            match s.map(|s| {
+                s.parse::<f64>()
+                    .ok()
+                    .filter(|x| x.is_finite() && !s.starts_with('+'))
+                    .ok_or(())
+            }) {
                 None => default,
                 Some(Ok(x)) => x,
                 Some(Err(_)) => {
@@ -327,7 +332,12 @@ impl Parameters {
         let min_difference = raw
             .min_difference
             .map(|s| number(&mut c, Some(s), "min_difference", 0.0));
-        let resamples = match raw.resamples.map(|s| s.trim().parse::<u64>()) {
+        let resamples = match raw.resamples.map(|s| {
+            s.parse::<u64>()
+                .ok()
+                .filter(|_| s.bytes().all(|b| b.is_ascii_digit()))
+                .ok_or(())
+        }) {
             None => d.resamples,
             Some(Ok(n)) => n,
             Some(Err(_)) => {

@@ -78,7 +78,7 @@ fn required(field: &str, example: &str) -> FieldError {
 }
 
 fn parse_period_field(s: Option<&str>, field: &str, example: &str) -> Result<Period, FieldError> {
-    match s.map(str::trim) {
+    match s {
         None | Some("") => Err(required(field, example)),
         Some(s) => s.parse::<Period>().map_err(|e| e.at(field)),
     }
@@ -87,7 +87,7 @@ fn parse_period_field(s: Option<&str>, field: &str, example: &str) -> Result<Per
 /// Reads an RFC 3339 timestamp (`2026-03-14T08:00:00Z`, any offset), truncated to
 /// microseconds in UTC.
 pub fn parse_as_of(s: &str) -> Result<OffsetDateTime, FieldError> {
-    let t = OffsetDateTime::parse(s.trim(), &time::format_description::well_known::Rfc3339)
+    let t = OffsetDateTime::parse(s, &time::format_description::well_known::Rfc3339)
         .map_err(|_| {
             FieldError::new(
                 "as_of",
@@ -110,7 +110,7 @@ impl ReportSpec {
     /// problem into `errors` (the period fields are checked by the callers).
     fn parse_into(raw: &RawQuery<'_>, errors: &mut Vec<FieldError>) -> Option<ReportSpec> {
         let site = match raw.site {
-            Some(s) => match SiteCode::parse_field(s.trim(), "site") {
+            Some(s) => match SiteCode::parse_field(s, "site") {
                 Ok(code) => Some(code),
                 Err(e) => {
                     errors.push(e);
@@ -120,7 +120,7 @@ impl ReportSpec {
             None => None,
         };
         let product = match raw.product {
-            Some(s) => match ProductCode::parse_field(s.trim(), "product") {
+            Some(s) => match ProductCode::parse_field(s, "product") {
                 Ok(code) => Some(code),
                 Err(e) => {
                     errors.push(e);
@@ -132,23 +132,23 @@ impl ReportSpec {
         // A bad site code was reported above; `level=line` with a bad site must not
         // also say "site is required".
         let level = if raw.site.is_some() && site.is_none() {
-            if let Some(Err(e)) = raw.level.map(|l| LevelKind::parse_field(l.trim(), "level")) {
+            if let Some(Err(e)) = raw.level.map(|l| LevelKind::parse_field(l, "level")) {
                 errors.push(e);
             }
             None
         } else {
-            Level::from_query(raw.level.map(str::trim), site.as_ref())
+            Level::from_query(raw.level, site.as_ref())
                 .map_err(|e| errors.push(e))
                 .ok()
         };
         let parameters = Parameters::from_raw(&RawParameters {
             alpha: raw.alpha,
-            method: raw.method.map(str::trim),
-            pairwise: raw.pairwise.map(str::trim),
-            adjust: raw.adjust.map(str::trim),
+            method: raw.method,
+            pairwise: raw.pairwise,
+            adjust: raw.adjust,
             resamples: raw.resamples,
             min_difference: raw.min_difference,
-            overdispersion: raw.overdispersion.map(str::trim),
+            overdispersion: raw.overdispersion,
         })
         .map_err(|e| errors.extend(e.into_errors()))
         .ok();
