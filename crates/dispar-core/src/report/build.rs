@@ -15,8 +15,8 @@ use dispar_stats::{NotTestable, NotTestableReason};
 
 use super::model::{
     CategoryReport, CategoryTotal, CellRow, Ci, Excluded, Flag, Flagged, GroupRow, Margin,
-    NotTestableNote, OverdispersionNote, PairRow, ParametersEcho, Report, TableAnalysis,
-    TableReport, Test, Totals, ValidityNotes,
+    NotTestableNote, OverdispersionNote, PairRow, ParametersEcho, Report, SeriesPoint,
+    TableAnalysis, TableReport, Test, Totals, ValidityNotes,
 };
 use super::params::{
     AdjustChoice, DispersionChoice, Filters, LevelKind, MethodChoice, PairwiseChoice, Parameters,
@@ -234,6 +234,24 @@ fn not_testable_words(e: &StatsError, between: &str, defective: u64, inspected: 
 /// produce). Fewer than two remaining groups, or no variation in outcome, gives
 /// `test: null` with `not_testable.reason`; the per-group table is still filled.
 pub fn build_report(request: &ReportRequest, groups: &[GroupCounts]) -> Report {
+    build(request, groups, Follow::Pairwise)
+}
+
+/// One period's verdict for a series: the same omnibus test, flags and totals as
+/// [`build_report`], without the pairwise follow-ups a summary does not show (they
+/// are most of the work for many groups).
+pub fn build_summary(request: &ReportRequest, groups: &[GroupCounts]) -> SeriesPoint {
+    build(request, groups, Follow::OmnibusOnly).summary()
+}
+
+/// Whether the pairwise follow-ups are computed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Follow {
+    Pairwise,
+    OmnibusOnly,
+}
+
+fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Report {
     let params = &request.parameters;
     let alpha = params.alpha;
     let between = match request.level {
@@ -273,6 +291,9 @@ pub fn build_report(request: &ReportRequest, groups: &[GroupCounts]) -> Report {
 
     let mut opts = options(params);
     let mut cautions: Vec<String> = CAUTIONS.iter().map(|s| (*s).to_owned()).collect();
+    if follow == Follow::OmnibusOnly {
+        opts.pairwise = PairMethod::Off;
+    }
     if used.len() > MAX_PAIRWISE_GROUPS {
         opts.pairwise = PairMethod::Off;
         cautions.push(format!(

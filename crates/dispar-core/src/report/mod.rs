@@ -13,7 +13,9 @@ pub mod model;
 pub mod params;
 pub mod text;
 
-pub use build::{GroupCounts, ReportRequest, analyze_rates, analyze_table, build_report};
+pub use build::{
+    GroupCounts, ReportRequest, analyze_rates, analyze_table, build_report, build_summary,
+};
 pub use model::{Report, SeriesPoint, TableReport};
 pub use params::{
     AdjustChoice, DispersionChoice, Filters, Level, LevelKind, MethodChoice, PairwiseChoice,

@@ -4,7 +4,9 @@ use std::collections::BTreeMap;
 
 use serde_json::Value;
 
-use super::build::{CAUTIONS, GroupCounts, NO_UNITS, ReportRequest, analyze_table, build_report};
+use super::build::{
+    CAUTIONS, GroupCounts, NO_UNITS, ReportRequest, analyze_table, build_report, build_summary,
+};
 use super::model::Flag;
 use super::params::{DispersionChoice, LevelKind, Parameters};
 use crate::tabular::CountTable;
@@ -473,4 +475,20 @@ mod properties {
             let _ = r.to_text();
         }
     }
+}
+
+#[test]
+fn a_series_summary_equals_the_summary_of_the_full_report() {
+    // The series path skips the pairwise follow-ups; its verdict, flags and totals must
+    // be exactly those of the full report.
+    let req = ReportRequest {
+        period: Some("2026-W11".parse().unwrap()),
+        level: Some(LevelKind::Site),
+        ..ReportRequest::default()
+    };
+    let mut groups = nist_lots();
+    groups.push(group("Z", 0, 0));
+    let full = build_report(&req, &groups);
+    assert!(!full.pairwise.is_empty(), "the full report has pairs");
+    assert_eq!(build_summary(&req, &groups), full.summary());
 }

@@ -7,7 +7,7 @@ use std::collections::{BTreeMap, HashMap};
 use dispar_core::period::Period;
 use dispar_core::report::build::CAUTIONS;
 use dispar_core::report::model::ParametersEcho;
-use dispar_core::report::{GroupCounts, Level, Report, SeriesPoint, build_report};
+use dispar_core::report::{GroupCounts, Level, Report, SeriesPoint, build_report, build_summary};
 use dispar_store::{GroupTotals, Store, StoreError};
 
 use super::spec::{ReportSpec, format_as_of};
@@ -118,7 +118,7 @@ pub fn build(spec: &ReportSpec, period: Period, groups: &[GroupCounts]) -> Repor
 
 /// One period's verdict for a series.
 pub fn summary(spec: &ReportSpec, period: Period, groups: &[GroupCounts]) -> SeriesPoint {
-    build(spec, period, groups).summary()
+    build_summary(&spec.request(period), groups)
 }
 
 /// The parameters as a report echoes them.
