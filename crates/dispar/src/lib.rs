@@ -104,6 +104,7 @@ where
             metrics.run_upkeep();
         }
     });
+    let purge = tokio::spawn(purge_idempotency(state.clone()));
     let flag = state.clone();
     let result = axum::serve(listener, router)
         .with_graceful_shutdown(async move {
@@ -113,9 +114,29 @@ where
         })
         .await;
     upkeep.abort();
+    purge.abort();
     state.store().close().await;
     tracing::info!("server stopped");
     result
+}
+
+/// Hourly: forgets batch answers older than the retention, so the idempotency table
+/// does not grow without bound. A failed purge is logged and tried again next hour.
+async fn purge_idempotency(state: AppState) {
+    let retention = state.limits().idempotency_retention;
+    let mut tick = tokio::time::interval(std::time::Duration::from_secs(3600));
+    loop {
+        tick.tick().await;
+        let Ok(age) = time::Duration::try_from(retention) else {
+            return;
+        };
+        let before = time::OffsetDateTime::now_utc() - age;
+        match state.store().purge_idempotency(before).await {
+            Ok(0) => {}
+            Ok(n) => tracing::info!(purged = n, "forgot old idempotency answers"),
+            Err(e) => tracing::warn!(error = %e, "idempotency purge failed"),
+        }
+    }
 }
 
 /// Completes on SIGTERM or Ctrl-C (SIGINT).

@@ -139,6 +139,10 @@ struct ServeArgs {
     #[arg(long, env = "DISPAR_MAX_BATCH_RECORDS", default_value_t = Limits::default().max_batch_records,
           value_parser = parse_positive)]
     max_batch_records: usize,
+    /// How long a batch answer can be replayed with its `Idempotency-Key`, e.g. `7d`,
+    /// `24h`; older answers are purged hourly.
+    #[arg(long, env = "DISPAR_IDEMPOTENCY_RETENTION", default_value = "7d", value_parser = parse_duration)]
+    idempotency_retention: Duration,
 }
 
 /// A whole number of at least 1.
@@ -158,12 +162,18 @@ fn parse_duration(s: &str) -> Result<Duration, String> {
     };
     let n: u64 = number
         .parse()
-        .map_err(|_| format!("{s:?} is not a duration like 500ms, 30s or 2m"))?;
+        .map_err(|_| format!("{s:?} is not a duration like 500ms, 30s, 2m, 24h or 7d"))?;
     let d = match unit {
         "ms" => Duration::from_millis(n),
         "s" => Duration::from_secs(n),
         "m" => Duration::from_secs(n.saturating_mul(60)),
-        _ => return Err(format!("{s:?} is not a duration like 500ms, 30s or 2m")),
+        "h" => Duration::from_secs(n.saturating_mul(3600)),
+        "d" => Duration::from_secs(n.saturating_mul(86_400)),
+        _ => {
+            return Err(format!(
+                "{s:?} is not a duration like 500ms, 30s, 2m, 24h or 7d"
+            ));
+        }
     };
     if d.is_zero() {
         return Err("the duration must be above zero".to_owned());
@@ -245,6 +255,7 @@ async fn serve(args: ServeArgs) -> CliResult {
         request_timeout: args.request_timeout,
         max_concurrency: args.max_concurrency,
         max_batch_records: args.max_batch_records,
+        idempotency_retention: args.idempotency_retention,
     };
     tracing::info!(database = %redact_url(&args.database.url), ?limits, "starting");
     let store = open(&args.database).await?;
@@ -403,7 +414,9 @@ mod tests {
         assert_eq!(parse_duration("2m"), Ok(Duration::from_secs(120)));
         assert_eq!(parse_duration("7"), Ok(Duration::from_secs(7)));
         assert!(parse_duration("0s").is_err());
-        assert!(parse_duration("1h").is_err());
+        assert_eq!(parse_duration("24h"), Ok(Duration::from_secs(86_400)));
+        assert_eq!(parse_duration("7d"), Ok(Duration::from_secs(604_800)));
+        assert!(parse_duration("1w").is_err());
         assert!(parse_duration("").is_err());
     }
 

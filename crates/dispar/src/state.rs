@@ -19,6 +19,9 @@ pub struct Limits {
     pub max_concurrency: usize,
     /// Most records in one batch (422 above it).
     pub max_batch_records: usize,
+    /// How long a batch answer stays replayable under its `Idempotency-Key`; older
+    /// answers are purged hourly, after which the same key starts afresh.
+    pub idempotency_retention: Duration,
 }
 
 impl Default for Limits {
@@ -28,6 +31,7 @@ impl Default for Limits {
             request_timeout: Duration::from_secs(30),
             max_concurrency: 64,
             max_batch_records: 10_000,
+            idempotency_retention: Duration::from_secs(7 * 24 * 3600),
         }
     }
 }
