@@ -244,6 +244,12 @@ fn the_demo_loads_the_scenario_and_gives_the_readme_verdicts() {
             "{needle:?} missing from:\n{banner}"
         );
     }
+    // Progress of the load on standard error (plain lines when it is not a terminal).
+    let log = demo.log();
+    assert!(
+        log.contains("loading counts: week 25/25 (2026-W26), 2052/2052 records"),
+        "no final progress line in:\n{log}"
+    );
     let database = PathBuf::from(demo.line("database: ").split(" (").next().unwrap());
     assert!(database.is_file(), "{}", database.display());
     assert_ne!(database.file_name().unwrap(), "dispar.db");
@@ -424,4 +430,54 @@ fn the_demo_refuses_an_existing_database_file() {
         String::from_utf8_lossy(&out.stdout)
     );
     assert_eq!(std::fs::read(file).unwrap(), b"someone's data");
+}
+
+#[test]
+fn demo_generate_rewrites_the_committed_files_byte_for_byte() {
+    // demo-data/README.md: `dispar demo generate --seed 7 --out demo-data/` rewrites
+    // sites.csv, lines.csv and counts.csv byte for byte; another seed keeps the
+    // calendar, plants and lines but draws other counts.
+    let committed = Path::new(env!("CARGO_MANIFEST_DIR")).join("../demo-data");
+    let dir = tempfile::tempdir().unwrap();
+    let generate = |seed: &str, out: &Path| {
+        let o = dispar_system_tests::run_cli(&[
+            "demo",
+            "generate",
+            "--seed",
+            seed,
+            "--out",
+            out.to_str().unwrap(),
+        ]);
+        assert!(
+            o.status.success(),
+            "demo generate --seed {seed}: {}",
+            String::from_utf8_lossy(&o.stderr)
+        );
+    };
+    let seven = dir.path().join("seven");
+    generate("7", &seven);
+    for file in ["sites.csv", "lines.csv", "counts.csv"] {
+        let made = std::fs::read(seven.join(file)).unwrap();
+        let kept = std::fs::read(committed.join(file)).unwrap();
+        assert!(made == kept, "{file} differs from demo-data/{file}");
+    }
+    assert!(
+        !seven.join("README.md").exists(),
+        "generate writes no README"
+    );
+
+    let eight = dir.path().join("eight");
+    generate("8", &eight);
+    let read = |d: &Path, f: &str| std::fs::read_to_string(d.join(f)).unwrap();
+    assert_eq!(read(&eight, "sites.csv"), read(&seven, "sites.csv"));
+    assert_eq!(read(&eight, "lines.csv"), read(&seven, "lines.csv"));
+    let (c7, c8) = (read(&seven, "counts.csv"), read(&eight, "counts.csv"));
+    assert_ne!(c7, c8, "another seed draws other counts");
+    // Same calendar: the same (site, line, date) keys in the same order.
+    let keys = |c: &str| -> Vec<String> {
+        c.lines()
+            .map(|l| l.splitn(4, ',').take(3).collect::<Vec<_>>().join(","))
+            .collect()
+    };
+    assert_eq!(keys(&c7), keys(&c8), "another seed keeps the calendar");
 }

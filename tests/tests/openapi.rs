@@ -628,3 +628,83 @@ fn the_server_serves_this_very_openapi_yaml() {
     let v: Value = serde_norway::from_str(&reply.text).unwrap();
     assert_eq!(v["openapi"], "3.1.0");
 }
+
+// ------------------------------------------------------------- query parameters
+
+/// The field names of `struct NAME { ... }` in a source file (one field a line; the
+/// query structs are plain `name: Option<String>` lists with `deny_unknown_fields`).
+fn struct_fields(file: &str, name: &str) -> BTreeSet<String> {
+    let code = std::fs::read_to_string(root().join(file)).expect("source file");
+    let start = code
+        .find(&format!("struct {name} {{"))
+        .unwrap_or_else(|| panic!("struct {name} not found in {file}"));
+    let body = &code[start..];
+    let body = &body[body.find('{').expect("{")..body.find('}').expect("}")];
+    assert!(
+        !body.contains("rename"),
+        "{file}: {name} renames a field; teach this reader serde's rename"
+    );
+    body.lines()
+        .filter_map(|l| l.trim().split_once(':'))
+        .map(|(field, _)| field.trim().trim_start_matches("pub ").to_owned())
+        .filter(|f| !f.is_empty() && !f.starts_with("//"))
+        .collect()
+}
+
+#[test]
+fn the_query_parameters_the_server_reads_are_the_documented_ones() {
+    // Each struct below refuses unknown fields (`deny_unknown_fields`), so its field
+    // names are exactly the query parameters the server accepts.
+    let spec = spec();
+    let mut drift = Vec::new();
+    for (method, path, file, name) in [
+        (
+            "get",
+            "/v1/reports",
+            "crates/dispar/src/reports/mod.rs",
+            "ReportQuery",
+        ),
+        (
+            "get",
+            "/v1/reports/series",
+            "crates/dispar/src/reports/mod.rs",
+            "SeriesQuery",
+        ),
+        (
+            "get",
+            "/v1/counts",
+            "crates/dispar/src/counts.rs",
+            "ListQuery",
+        ),
+        (
+            "get",
+            "/v1/sites/{site}/lines/{line}/days/{date}",
+            "crates/dispar/src/counts.rs",
+            "ProductQuery",
+        ),
+        (
+            "put",
+            "/v1/sites/{site}/lines/{line}/days/{date}",
+            "crates/dispar/src/counts.rs",
+            "ProductQuery",
+        ),
+    ] {
+        let read = struct_fields(file, name);
+        assert!(!read.is_empty(), "{name}: no fields found");
+        let documented: BTreeSet<String> = parameters(&spec, path, method)
+            .into_iter()
+            .filter(|p| p["in"] == "query")
+            .map(|p| p["name"].as_str().expect("parameter name").to_owned())
+            .collect();
+        if read != documented {
+            drift.push(format!(
+                "{method} {path}: the server reads {read:?} ({file}, {name}); openapi.yaml documents {documented:?}"
+            ));
+        }
+    }
+    assert!(
+        drift.is_empty(),
+        "query parameters drift:\n  {}",
+        drift.join("\n  ")
+    );
+}

@@ -590,7 +590,27 @@ fn an_unknown_site_is_a_clear_problem() {
         assert_eq!(v["errors"][0]["parameter"], "site", "{path}: {v}");
         assert_eq!(v["errors"][0]["reason"], "unknown_site", "{path}: {v}");
         assert!(v["detail"].as_str().unwrap().contains("NOPE"), "{v}");
+        // `If-None-Match: *` holds only when there is a current representation (RFC 9110
+        // section 13.1.2), so it does not turn the problem into a 304.
+        let star = s.request_with(
+            "GET",
+            path,
+            Some(&read),
+            Body::None,
+            &[("if-none-match", "*")],
+        );
+        star.problem(422, "validation");
     }
+    // A valid report exists, so `*` matches it.
+    let star = s.request_with(
+        "GET",
+        "/v1/reports?period=2026-03",
+        Some(&read),
+        Body::None,
+        &[("if-none-match", "*")],
+    );
+    assert_eq!(star.status, 304, "{}", star.text);
+    assert!(star.header("etag").unwrap().starts_with("W/\""));
 }
 
 #[test]
@@ -740,4 +760,291 @@ fn dispar_report_prints_the_same_report_as_the_api() {
         "{}",
         String::from_utf8_lossy(&missing.stderr)
     );
+}
+
+#[test]
+fn the_method_pairwise_adjust_and_min_difference_choices_reach_the_report() {
+    // The NIST/SEMATECH 7.4.6 lots (week 2026-W11) with every choice away from its
+    // default. Expected values: scipy 1.17.1 stats.chi2_contingency(correction=False,
+    // lambda_="log-likelihood") for G^2; scipy 1.17.1 stats.fisher_exact per pair;
+    // statsmodels 0.15.0 multipletests(method="bonferroni") and
+    // confint_proportions_2indep(method="newcomb", compare="diff") (computed for this
+    // audit; practically different = the whole interval beyond 0.02).
+    const G2: f64 = 11.551_089_890_640_506;
+    const G2_P: f64 = 0.021_021_172_244_048_18;
+    /// a, b, Fisher p, Bonferroni p, reject, Newcombe lower, upper, practically different.
+    type Pair = (&'static str, &'static str, f64, f64, bool, f64, f64, bool);
+    #[rustfmt::skip]
+    const PAIRS: [Pair; 10] = [
+        ("S1", "S2", 0.2847261078756684, 1.0, false, -0.08868774717419937, 0.02196519354918408, false),
+        ("S1", "S3", 0.5440885217000156, 1.0, false, -0.07429879024557973, 0.03423517480380217, false),
+        ("S1", "S4", 0.004077796424194261, 0.04077796424194261, true, -0.14906277900838388, -0.030646654802943735, true),
+        ("S1", "S5", 0.9012779123629354, 1.0, false, -0.0598281045520527, 0.046462286914035276, false),
+        ("S2", "S3", 0.7293586911191922, 1.0, false, -0.04362071712678793, 0.07028105922268657, false),
+        ("S2", "S4", 0.0899334099688922, 0.899334099688922, false, -0.11817940604538209, 0.005175138643744977, false),
+        ("S2", "S5", 0.41029285672867244, 1.0, false, -0.029204110307726065, 0.08256188118947103, false),
+        ("S3", "S4", 0.03130766987888349, 0.31307669878883493, false, -0.1305586015071042, -0.009101261306013408, false),
+        ("S3", "S5", 0.7188202608258479, 1.0, false, -0.04148519300899741, 0.06818333330614937, false),
+        ("S4", "S5", 0.008598140830264075, 0.08598140830264075, false, 0.02344647141498972, 0.1429032564412042, true),
+    ];
+    let s = loaded();
+    let read = s.key("read", &[]);
+    let r = get(
+        &s,
+        &read,
+        "/v1/reports?period=2026-W11&method=g&pairwise=fisher&adjust=bonferroni&min_difference=0.02",
+    );
+    assert_eq!(r.status, 200, "{}", r.text);
+    let v = r.json();
+    let p = &v["parameters"];
+    assert_eq!(
+        (
+            &p["method"],
+            &p["pairwise"],
+            &p["adjust"],
+            &p["min_difference"]
+        ),
+        (
+            &json!("g"),
+            &json!("fisher"),
+            &json!("bonferroni"),
+            &json!(0.02)
+        ),
+        "{p}"
+    );
+    let t = &v["test"];
+    assert_eq!(t["method"], "g", "{t}");
+    assert_eq!(t["df"], 4);
+    close(&t["statistic"], &json!(G2), "G^2 (scipy log-likelihood)");
+    close(&t["p_value"], &json!(G2_P), "G^2 p (scipy)");
+    let pairs = v["pairwise"].as_array().unwrap();
+    assert_eq!(pairs.len(), PAIRS.len());
+    for (got, (a, b, raw, adjusted, reject, lower, upper, practical)) in pairs.iter().zip(PAIRS) {
+        let at = format!("pair {a} - {b}");
+        assert_eq!((got["a"].as_str(), got["b"].as_str()), (Some(a), Some(b)));
+        assert_eq!(got["method"], "fisher", "{at}: {got}");
+        close(
+            &got["p_value"],
+            &json!(raw),
+            &format!("{at} Fisher p (scipy)"),
+        );
+        close(
+            &got["p_adjusted"],
+            &json!(adjusted),
+            &format!("{at} Bonferroni p (statsmodels)"),
+        );
+        assert_eq!(got["reject"], reject, "{at}: {got}");
+        interval(
+            &got["difference_ci"],
+            &json!({"lower": lower, "upper": upper}),
+            &format!("{at} difference_ci (Newcombe, statsmodels)"),
+        );
+        assert_eq!(
+            got["practically_different"], practical,
+            "{at}: min_difference 0.02: {got}"
+        );
+    }
+}
+
+#[test]
+fn a_series_honours_the_level_and_filters_of_its_reports() {
+    // Issue 4: the series takes the same level and filter parameters as a report. A
+    // one-month series must give the verdict of that month's report, whose values are
+    // the fixture's (scipy / statsmodels, see `sources()`).
+    let s = loaded();
+    let read = s.key("read", &[]);
+    for (series, report) in [
+        (
+            "from=2026-04&to=2026-04&level=line&site=P1",
+            "period=2026-04&level=line&site=P1",
+        ),
+        (
+            "from=2026-04&to=2026-04&level=all-lines",
+            "period=2026-04&level=all-lines",
+        ),
+        (
+            "from=2026-04&to=2026-04&level=site&product=CAP-28",
+            "period=2026-04&level=site&product=CAP-28",
+        ),
+    ] {
+        let case = cases("initial")
+            .into_iter()
+            .find(|c| c["query"] == report)
+            .unwrap();
+        let e = &case["expected"];
+        let r = get(&s, &read, &format!("/v1/reports/series?{series}"));
+        assert_eq!(r.status, 200, "{series}: {}", r.text);
+        let v = r.json();
+        assert_eq!(v["level"], case["level"], "{series}: {v}");
+        let points = v["periods"].as_array().unwrap();
+        assert_eq!(points.len(), 1, "{series}: {v}");
+        let p = &points[0];
+        same(&p["period"], &e["period"], &format!("{series}: period"));
+        for k in ["groups", "inspected", "defective"] {
+            same(&p[k], &e["totals"][k], &format!("{series}: {k}"));
+        }
+        same(
+            &p["method"],
+            &e["test"]["method"],
+            &format!("{series}: method"),
+        );
+        same(
+            &p["reject"],
+            &e["test"]["reject"],
+            &format!("{series}: reject"),
+        );
+        close(
+            &p["p_value"],
+            &e["test"]["p_value"],
+            &format!("{series}: p_value"),
+        );
+        let flagged: Vec<Value> = p["flagged"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|f| json!({"name": f["name"], "flag": f["flag"]}))
+            .collect();
+        same(
+            &json!(flagged),
+            &e["flagged"],
+            &format!("{series}: flagged"),
+        );
+    }
+}
+
+#[test]
+fn overdispersion_widen_multiplies_the_flag_limit_by_the_root_of_phi() {
+    // Spiegelhalter (2005), "Funnel plots for comparing institutional performance",
+    // Stat. Med. 24: with phi > 1 the control limits widen by sqrt(phi); phi <= 1
+    // leaves them alone. phi and h(alpha, k) come from the fixture (see `sources()`).
+    let s = loaded();
+    let read = s.key("read", &[]);
+    for query in [
+        "period=2026-W11&level=site",
+        "period=2026-03&level=site",
+        "period=2026-03-11&level=site",
+    ] {
+        let case = cases("initial")
+            .into_iter()
+            .find(|c| c["query"] == query)
+            .unwrap();
+        let e = &case["expected"];
+        let phi = e["overdispersion"]["phi"].as_f64().unwrap();
+        let h = e["overdispersion"]["anom_critical"].as_f64().unwrap();
+        let limit = h * phi.max(1.0).sqrt();
+
+        let v = get(
+            &s,
+            &read,
+            &format!("/v1/reports?{query}&overdispersion=widen"),
+        )
+        .json();
+        assert_eq!(v["parameters"]["overdispersion"], "widen", "{query}");
+        let o = &v["overdispersion"];
+        close(&o["phi"], &json!(phi), &format!("{query}: phi"));
+        close(
+            &o["flag_limit"],
+            &json!(limit),
+            &format!("{query}: flag_limit = h * sqrt(phi)"),
+        );
+        assert_eq!(o["applied"], phi > 1.0, "{query}: {o}");
+        // The flags follow the widened limit: |adjusted residual| beyond it.
+        let mut expected: Vec<(f64, &str)> = e["groups"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .filter(|g| g["adjusted_residual"].as_f64().unwrap().abs() > limit)
+            .map(|g| {
+                (
+                    g["share_of_statistic"].as_f64().unwrap(),
+                    g["name"].as_str().unwrap(),
+                )
+            })
+            .collect();
+        expected.sort_by(|a, b| b.0.total_cmp(&a.0));
+        let flagged: Vec<&str> = v["flagged"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|f| f["name"].as_str().unwrap())
+            .collect();
+        let expected: Vec<&str> = expected.into_iter().map(|(_, n)| n).collect();
+        assert_eq!(flagged, expected, "{query}: flags beyond {limit}");
+        // Without the choice the limit is h itself (W11 then flags S4, see above).
+        let plain = get(&s, &read, &format!("/v1/reports?{query}")).json();
+        close(
+            &plain["overdispersion"]["flag_limit"],
+            &json!(h),
+            &format!("{query}: default flag_limit = h"),
+        );
+    }
+}
+
+#[test]
+fn a_report_past_the_time_limit_is_a_503_and_stops_using_the_cpu() {
+    // An exact test forced on counts of 10^12 with a million resamples would run for
+    // many minutes; the request limit (1 s here) must end the answer and the work.
+    let s = Server::start_with(&["--request-timeout", "1s"]);
+    for site in ["A", "B", "C"] {
+        s.site(site, &["L1"]);
+    }
+    let csv = "site,line,date,inspected,defective\r\n\
+               A,L1,2026-03-02,1000000000000,10000000000\r\n\
+               B,L1,2026-03-02,1000000000000,10000100000\r\n\
+               C,L1,2026-03-02,1000000000000,9999900000\r\n";
+    assert_eq!(
+        s.as_admin("POST", "/v1/counts", Body::Csv(csv.to_owned()))
+            .status,
+        201
+    );
+    let read = s.key("read", &[]);
+    let started = std::time::Instant::now();
+    let slow = s.request(
+        "GET",
+        "/v1/reports?period=2026-03-02&method=exact&resamples=1000000",
+        Some(&read),
+        Body::None,
+    );
+    slow.problem(503, "timeout");
+    assert!(started.elapsed() < std::time::Duration::from_secs(10));
+    // Linux only: the server's CPU time over the next second stays near zero once the
+    // abandoned work has stopped (it would grow by up to 2 s on 2 cores otherwise).
+    if let Some(before) = cpu_seconds(s.pid()) {
+        std::thread::sleep(std::time::Duration::from_millis(300));
+        let before = cpu_seconds(s.pid()).unwrap_or(before);
+        std::thread::sleep(std::time::Duration::from_secs(1));
+        let after = cpu_seconds(s.pid()).unwrap_or(before);
+        assert!(
+            after - before < 0.3,
+            "the server kept computing: {:.2} s of CPU in 1 s",
+            after - before
+        );
+    }
+    // The statistics gave up at the deadline: an ordinary report is answered at once,
+    // not after the abandoned one (both cores would still be busy otherwise).
+    let started = std::time::Instant::now();
+    let quick = s.request(
+        "GET",
+        "/v1/reports?period=2026-03-02",
+        Some(&read),
+        Body::None,
+    );
+    assert_eq!(quick.status, 200, "{}", quick.json());
+    assert_eq!(quick.json()["test"]["method"], "pearson");
+    assert!(
+        started.elapsed() < std::time::Duration::from_secs(1),
+        "the ordinary report waited {:?}",
+        started.elapsed()
+    );
+}
+
+/// User + system CPU seconds of a process, from /proc (None where there is no /proc).
+fn cpu_seconds(pid: u32) -> Option<f64> {
+    let stat = std::fs::read_to_string(format!("/proc/{pid}/stat")).ok()?;
+    // Fields after the parenthesised command name; utime and stime are the 14th and
+    // 15th fields of the line, in clock ticks (100 per second on Linux).
+    let rest = stat.rsplit_once(')')?.1;
+    let fields: Vec<&str> = rest.split_whitespace().collect();
+    let ticks: f64 = fields.get(11)?.parse::<f64>().ok()? + fields.get(12)?.parse::<f64>().ok()?;
+    Some(ticks / 100.0)
 }

@@ -10,7 +10,7 @@ use crate::effect::{cramers_v, cramers_v_corrected};
 use crate::error::{StatsError, check_open_unit};
 use crate::exact::{Fisher, fisher};
 use crate::interval::{Interval, wilson_z, z_for_confidence};
-use crate::montecarlo::{MonteCarlo, conditional_p, table_seed};
+use crate::montecarlo::{MonteCarlo, conditional_p_until, table_seed};
 use crate::overdispersion::{Overdispersion, spiegelhalter, tau_squared};
 use crate::pairwise::{Pair, PairMethod, PairwiseOptions, pairwise};
 use crate::residuals::{Cell, cells};
@@ -76,6 +76,9 @@ pub struct Options {
     pub winsor_fraction: f64,
     /// Whether overdispersion widens the flag limit (default Report: it does not).
     pub dispersion: Dispersion,
+    /// Abandon the work with [`StatsError::DeadlineExceeded`] once this instant has
+    /// passed (checked between Monte Carlo chunks and pairwise rows); `None` never does.
+    pub deadline: Option<std::time::Instant>,
 }
 
 impl Default for Options {
@@ -89,6 +92,7 @@ impl Default for Options {
             min_difference: None,
             winsor_fraction: 0.1,
             dispersion: Dispersion::Report,
+            deadline: None,
         }
     }
 }
@@ -317,7 +321,7 @@ pub fn analyze(table: &Table, options: &Options) -> Result<Analysis, StatsError>
             (x2, f.p_two_sided, f.log10_p)
         }
         TestUsed::MonteCarlo => {
-            let mc = conditional_p(t, options.resamples, table_seed(t))?;
+            let mc = conditional_p_until(t, options.resamples, table_seed(t), options.deadline)?;
             monte_carlo = Some(mc);
             (x2, mc.p, mc.p.log10())
         }
@@ -430,6 +434,7 @@ pub fn analyze_rates(groups: &[(u64, u64)], options: &Options) -> Result<RateAna
             method: options.pairwise,
             adjust: options.adjust,
             min_difference: options.min_difference,
+            deadline: options.deadline,
         },
     )?;
     for pair in &mut pairs {

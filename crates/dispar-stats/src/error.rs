@@ -6,6 +6,10 @@ use std::fmt;
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 #[non_exhaustive]
 pub enum StatsError {
+    /// The work passed the caller's deadline ([`crate::analysis::Options::deadline`])
+    /// and was abandoned; no partial result is given.
+    #[error("the computation passed its deadline and was abandoned")]
+    DeadlineExceeded,
     /// A table needs at least one row and one column.
     #[error("a table needs at least one row and one column")]
     EmptyTable,

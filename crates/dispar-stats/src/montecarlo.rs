@@ -284,6 +284,18 @@ fn x2_of(counts: &[u64], expected: &[f64], inv_expected: &[f64]) -> f64 {
 /// # Ok::<(), dispar_stats::StatsError>(())
 /// ```
 pub fn conditional_p(table: &Table, resamples: u64, seed: u64) -> Result<MonteCarlo, StatsError> {
+    conditional_p_until(table, resamples, seed, None)
+}
+
+/// [`conditional_p`] that gives up with [`StatsError::DeadlineExceeded`] once
+/// `deadline` has passed (checked between chunks of resamples), so a server can bound
+/// the CPU time of one request. With `None` it is exactly [`conditional_p`].
+pub fn conditional_p_until(
+    table: &Table,
+    resamples: u64,
+    seed: u64,
+    deadline: Option<std::time::Instant>,
+) -> Result<MonteCarlo, StatsError> {
     if resamples == 0 {
         return Err(StatsError::InvalidParameter {
             name: "resamples",
@@ -323,16 +335,29 @@ pub fn conditional_p(table: &Table, resamples: u64, seed: u64) -> Result<MonteCa
     let sampler = PatefieldSampler::new(&row_totals, &col_totals)?;
 
     let chunks = resamples.div_ceil(CHUNK);
+    let late = std::sync::atomic::AtomicBool::new(false);
     let run_chunks = |first: u64, step: u64| -> u64 {
         let mut out = vec![0u64; r * c];
         let mut cols = vec![0u64; c];
         let mut hits = 0u64;
         let mut j = first;
         while j < chunks {
+            if late.load(std::sync::atomic::Ordering::Relaxed)
+                || deadline.is_some_and(|d| std::time::Instant::now() >= d)
+            {
+                late.store(true, std::sync::atomic::Ordering::Relaxed);
+                return hits;
+            }
             let mut rng = ChaCha8Rng::seed_from_u64(seed);
             rng.set_stream(j);
             let n = CHUNK.min(resamples - j * CHUNK);
-            for _ in 0..n {
+            for i in 0..n {
+                // Tables of huge counts take milliseconds each: look at the clock
+                // within a chunk too (every 16 tables costs nothing measurable).
+                if i % 16 == 15 && deadline.is_some_and(|d| std::time::Instant::now() >= d) {
+                    late.store(true, std::sync::atomic::Ordering::Relaxed);
+                    return hits;
+                }
                 sampler.fill(&mut rng, &mut out, &mut cols);
                 if x2_of(&out, &expected, &inv_expected) >= threshold {
                     hits += 1;
@@ -367,6 +392,9 @@ pub fn conditional_p(table: &Table, resamples: u64, seed: u64) -> Result<MonteCa
                 .sum::<u64>()
         })
     };
+    if late.load(std::sync::atomic::Ordering::Relaxed) {
+        return Err(StatsError::DeadlineExceeded);
+    }
     let p = (1 + hits) as f64 / (1 + resamples) as f64;
     Ok(MonteCarlo {
         statistic: observed,
@@ -381,6 +409,22 @@ pub fn conditional_p(table: &Table, resamples: u64, seed: u64) -> Result<MonteCa
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_passed_deadline_abandons_the_simulation() {
+        let t = Table::from_rows(&[vec![3, 1, 0], vec![1, 3, 2], vec![0, 2, 4]]).expect("valid");
+        let past = std::time::Instant::now();
+        assert_eq!(
+            conditional_p_until(&t, 10_000, 1, Some(past)),
+            Err(StatsError::DeadlineExceeded)
+        );
+        let later = std::time::Instant::now() + std::time::Duration::from_secs(3600);
+        assert_eq!(
+            conditional_p_until(&t, 10_000, 1, Some(later)),
+            conditional_p(&t, 10_000, 1),
+            "a deadline that is not reached changes nothing"
+        );
+    }
 
     #[test]
     fn sampled_tables_keep_the_margins() {

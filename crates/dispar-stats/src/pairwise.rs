@@ -48,6 +48,9 @@ pub struct PairwiseOptions {
     /// Smallest difference of rates that matters (a proportion, e.g. 0.005 for half a
     /// percentage point); `None` leaves `practically_different` unset.
     pub min_difference: Option<f64>,
+    /// Abandon the work with [`StatsError::DeadlineExceeded`] once this instant has
+    /// passed (checked once per group), so a server can bound a request's CPU time.
+    pub deadline: Option<std::time::Instant>,
 }
 
 impl Default for PairwiseOptions {
@@ -57,6 +60,7 @@ impl Default for PairwiseOptions {
             method: PairMethod::Auto,
             adjust: Adjustment::Holm,
             min_difference: None,
+            deadline: None,
         }
     }
 }
@@ -162,7 +166,7 @@ pub fn pairwise(groups: &[(u64, u64)], options: &PairwiseOptions) -> Result<Vec<
             .min(8)
     };
     let mut pairs = if threads <= 1 {
-        pairs_for_rows(&data, 0, k, options)
+        pairs_for_rows(&data, 0, k, options)?
     } else {
         // Split the rows so that each thread gets about the same number of pairs.
         let mut bounds = vec![0usize];
@@ -175,7 +179,7 @@ pub fn pairwise(groups: &[(u64, u64)], options: &PairwiseOptions) -> Result<Vec<
         }
         bounds.push(k);
         bounds.dedup();
-        let parts: Vec<Vec<Pair>> = std::thread::scope(|s| {
+        let parts: Vec<Result<Vec<Pair>, StatsError>> = std::thread::scope(|s| {
             let handles: Vec<_> = bounds
                 .windows(2)
                 .map(|w| {
@@ -191,7 +195,7 @@ pub fn pairwise(groups: &[(u64, u64)], options: &PairwiseOptions) -> Result<Vec<
         });
         let mut all = Vec::with_capacity(total);
         for part in parts {
-            all.extend(part);
+            all.extend(part?);
         }
         all
     };
@@ -205,17 +209,36 @@ pub fn pairwise(groups: &[(u64, u64)], options: &PairwiseOptions) -> Result<Vec<
 }
 
 /// The pairs (i, j), from <= i < to, i < j < k.
-fn pairs_for_rows(data: &[Group], from: usize, to: usize, options: &PairwiseOptions) -> Vec<Pair> {
+fn pairs_for_rows(
+    data: &[Group],
+    from: usize,
+    to: usize,
+    options: &PairwiseOptions,
+) -> Result<Vec<Pair>, StatsError> {
     let k = data.len();
     let count: usize = (from..to).map(|i| k - 1 - i).sum();
     let mut out = Vec::with_capacity(count);
     for i in from..to {
+        if options
+            .deadline
+            .is_some_and(|d| std::time::Instant::now() >= d)
+        {
+            return Err(StatsError::DeadlineExceeded);
+        }
         let g1 = data[i];
         for (j, g2) in data.iter().enumerate().skip(i + 1) {
+            // Exact tests on huge counts take a millisecond each: check within a row.
+            if j % 16 == 0
+                && options
+                    .deadline
+                    .is_some_and(|d| std::time::Instant::now() >= d)
+            {
+                return Err(StatsError::DeadlineExceeded);
+            }
             out.push(one_pair(i, g1, j, *g2, options));
         }
     }
-    out
+    Ok(out)
 }
 
 fn one_pair(i: usize, g1: Group, j: usize, g2: Group, options: &PairwiseOptions) -> Pair {
@@ -269,6 +292,18 @@ fn one_pair(i: usize, g1: Group, j: usize, g2: Group, options: &PairwiseOptions)
 mod tests {
     use super::*;
     use crate::testutil::assert_rel;
+
+    #[test]
+    fn a_passed_deadline_abandons_the_pairs() {
+        let opts = PairwiseOptions {
+            deadline: Some(std::time::Instant::now()),
+            ..PairwiseOptions::default()
+        };
+        assert_eq!(
+            pairwise(&[(100, 3), (100, 9), (100, 5)], &opts),
+            Err(StatsError::DeadlineExceeded)
+        );
+    }
 
     #[test]
     fn each_pair_matches_the_two_by_two_functions() {
@@ -351,7 +386,8 @@ mod tests {
             0,
             260,
             &PairwiseOptions::default(),
-        );
+        )
+        .expect("no deadline");
         for (x, y) in all.iter().zip(&single) {
             assert_eq!(x.p, y.p);
             assert_eq!(x.difference_ci, y.difference_ci);

@@ -64,6 +64,10 @@ pub struct ReportRequest {
     pub parameters: Parameters,
     /// The `as_of` timestamp the data were read at, echoed.
     pub as_of: Option<String>,
+    /// A server's bound on the CPU time of this report: exact tests and pairwise
+    /// follow-ups give up once it has passed (the report then says it could not be
+    /// done). `None` (the CLI) never gives up.
+    pub deadline: Option<std::time::Instant>,
 }
 
 /// The fixed cautions every report carries.
@@ -290,6 +294,7 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
     };
 
     let mut opts = options(params);
+    opts.deadline = request.deadline;
     let mut cautions: Vec<String> = CAUTIONS.iter().map(|s| (*s).to_owned()).collect();
     if follow == Follow::OmnibusOnly {
         opts.pairwise = PairMethod::Off;

@@ -97,13 +97,16 @@ pub fn parse_period(text: &str, field: &str) -> Result<Period, ApiError> {
 /// The report of `q.period`, exactly as `GET /v1/reports` computes it.
 pub async fn report(state: &AppState, q: PageQuery<'_>) -> Result<Report, ApiError> {
     let (spec, period) = ReportSpec::parse_report(&q.raw()).map_err(params_error)?;
+    let spec = spec.until(state.limits().request_timeout);
     let loaded = compute::load(state.store().as_ref(), &spec, &period, Detail::Report)
         .await
         .map_err(crate::store_error)?;
     // The statistics are CPU-bound: off the async workers, as the JSON endpoint does.
-    tokio::task::spawn_blocking(move || compute::build(&spec, period, &loaded.groups))
-        .await
-        .map_err(ApiError::internal)
+    let deadline = spec.deadline;
+    crate::reports::heavy(deadline, move || {
+        compute::build(&spec, period, &loaded.groups)
+    })
+    .await
 }
 
 /// The verdicts from `q.from` to `q.to`, exactly as `GET /v1/reports/series`
@@ -113,6 +116,7 @@ pub async fn series(
     q: PageQuery<'_>,
 ) -> Result<(Vec<SeriesPoint>, f64), ApiError> {
     let (spec, periods) = ReportSpec::parse_series(&q.raw()).map_err(params_error)?;
+    let spec = spec.until(state.limits().request_timeout);
     let alpha = spec.parameters.alpha;
     let mut loads = Vec::with_capacity(periods.len());
     for p in &periods {
@@ -122,15 +126,15 @@ pub async fn series(
                 .map_err(crate::store_error)?,
         );
     }
-    let points = tokio::task::spawn_blocking(move || {
+    let deadline = spec.deadline;
+    let points = crate::reports::heavy(deadline, move || {
         periods
             .iter()
             .zip(&loads)
             .map(|(p, l)| compute::summary(&spec, *p, &l.groups))
             .collect::<Vec<_>>()
     })
-    .await
-    .map_err(ApiError::internal)?;
+    .await?;
     Ok((points, alpha))
 }
 

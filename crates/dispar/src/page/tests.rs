@@ -116,6 +116,53 @@ fn the_page_opens_with_the_verdict_then_the_table_and_both_charts() {
 }
 
 #[test]
+fn the_defect_categories_are_shown_between_the_flags_and_the_sample_sizes() {
+    let mix = [
+        ("KES", 300, 1_500),
+        ("MRQ", 700, 350),
+        ("ODW", 900, 500),
+        ("TLG", 2_000, 1_300),
+        ("VAL", 70, 50),
+    ];
+    let mut groups = five_sites();
+    for (g, (name, flash, seal)) in groups.iter_mut().zip(mix) {
+        assert_eq!(g.name, name);
+        g.defects = BTreeMap::from([("flash".to_owned(), flash), ("seal-leak".to_owned(), seal)]);
+    }
+    let html = render_report(&report_of(&groups, Parameters::default()), &ctx());
+    let flagged = html.find("id=\"flagged\"").expect("flagged section");
+    let section = html
+        .find("<section id=\"categories-section\">")
+        .expect("category section");
+    let samples = html.find("id=\"samples\"").expect("sample sizes");
+    assert!(
+        flagged < section && section < samples,
+        "{flagged} {section} {samples}"
+    );
+    // Totals by hand: flash 300 + 700 + 900 + 2,000 + 70 = 3,970 of 7,670 defects
+    // (51.8%); seal-leak 1,500 + 350 + 500 + 1,300 + 50 = 3,700 (48.2%).
+    for row in [
+        "<tr><th scope=\"row\">flash</th><td>3,970</td><td>51.8%</td></tr>",
+        "<tr><th scope=\"row\">seal-leak</th><td>3,700</td><td>48.2%</td></tr>",
+    ] {
+        assert!(html.contains(row), "{row} missing");
+    }
+    // KES's mix (83% seal-leak against 48% overall) makes the association obvious.
+    assert!(html.contains("The defect mix differs between the groups ("));
+    let table = &html[html.find("<table id=\"category-mix\"").expect("mix table")..];
+    let table = &table[..table.find("</table>").expect("end of mix table")];
+    assert_eq!(count(table, "<th scope=\"row\">"), 5, "{table}");
+    assert!(
+        table.contains(">1,500 <span class=\"res\">(+"),
+        "KES seal-leak above: {table}"
+    );
+
+    // No category counts, no section.
+    let plain = render_report(&report_of(&five_sites(), Parameters::default()), &ctx());
+    assert!(!plain.contains("categories-section"));
+}
+
+#[test]
 fn names_from_users_are_escaped_everywhere() {
     let mut groups = five_sites();
     groups[0].name = "<script>alert(1)</script>".to_owned();

@@ -27,7 +27,8 @@
 //! as parsed, so `alpha=0.05` and `alpha=0.050` are one request) and the store's data
 //! version, which every write bumps, and `Cache-Control: private, no-cache`. A request
 //! whose `If-None-Match` holds the current tag gets 304 after one cheap read of the
-//! data version: no sums, no statistics. Rendered bodies are kept in a bounded
+//! data version: no sums, no statistics (`If-None-Match: *` is answered 304 only once the
+//! request proved valid, RFC 9110 section 13.1.2). Rendered bodies are kept in a bounded
 //! in-memory [`cache::ReportCache`] (per server instance) under the same key, so a
 //! repeated request is served without recomputing; a write makes every older entry
 //! unreachable. `as_of` reports are keyed the same way (the registered groups and
@@ -148,17 +149,43 @@ pub fn etag(key: &str, version: u64) -> String {
     format!("W/\"{}\"", hex::encode(&digest[..16]))
 }
 
-/// True when `If-None-Match` lists `tag` (weak comparison, RFC 9110 section 13.1.2)
-/// or is `*`.
-fn none_match_hits(headers: &HeaderMap, tag: &str) -> bool {
+/// What `If-None-Match` asks for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum NoneMatch {
+    /// No header, or no listed tag matches.
+    No,
+    /// The header lists `tag` (weak comparison, RFC 9110 section 13.1.2).
+    Tag,
+    /// The header is `*`: true only when the request has a current representation,
+    /// so it is answered 304 only after the request proved valid.
+    Any,
+}
+
+/// Compares `If-None-Match` with `tag`.
+fn none_match(headers: &HeaderMap, tag: &str) -> NoneMatch {
     let opaque = tag.trim_start_matches("W/");
-    headers
+    let mut any = false;
+    for t in headers
         .get_all(header::IF_NONE_MATCH)
         .iter()
         .filter_map(|v| v.to_str().ok())
         .flat_map(|v| v.split(','))
         .map(str::trim)
-        .any(|t| t == "*" || t.trim_start_matches("W/") == opaque)
+    {
+        if t.trim_start_matches("W/") == opaque {
+            return NoneMatch::Tag;
+        }
+        any |= t == "*";
+    }
+    if any { NoneMatch::Any } else { NoneMatch::No }
+}
+
+/// `304 Not Modified` with the cache headers of `tag`.
+fn not_modified(tag: &str) -> Response {
+    count("not_modified");
+    let mut response = StatusCode::NOT_MODIFIED.into_response();
+    cache_headers(&mut response, tag);
+    response
 }
 
 fn cache_headers(response: &mut Response, tag: &str) {
@@ -247,13 +274,14 @@ where
         .await
         .map_err(crate::store_error)?;
     let tag = etag(key, version);
-    if none_match_hits(headers, &tag) {
-        count("not_modified");
-        let mut response = StatusCode::NOT_MODIFIED.into_response();
-        cache_headers(&mut response, &tag);
-        return Ok(response);
+    let wanted = none_match(headers, &tag);
+    if wanted == NoneMatch::Tag {
+        return Ok(not_modified(&tag));
     }
     if let Some(body) = cache.get(key, version) {
+        if wanted == NoneMatch::Any {
+            return Ok(not_modified(&tag));
+        }
         count("hit");
         let mut response = json_response(body, &tag);
         server_timing(&mut response, "cache;desc=hit");
@@ -264,6 +292,9 @@ where
     if computed.cacheable {
         cache.insert(key, computed.version, computed.body.clone());
     }
+    if wanted == NoneMatch::Any {
+        return Ok(not_modified(&etag(key, computed.version)));
+    }
     let timing = computed.timing.header();
     let mut response = json_response(computed.body, &etag(key, computed.version));
     server_timing(&mut response, &timing);
@@ -272,12 +303,44 @@ where
 
 /// Runs CPU-bound work (statistics, serialization) off the async workers.
 async fn blocking<T: Send + 'static>(
+    deadline: Option<Instant>,
     work: impl FnOnce() -> serde_json::Result<T> + Send + 'static,
 ) -> Result<T> {
-    tokio::task::spawn_blocking(work)
+    heavy(deadline, work).await?.map_err(ApiError::internal)
+}
+
+/// Runs CPU-bound report work on the blocking pool, at most one job per core at a
+/// time (a queue of expensive requests waits here, cancellably, instead of piling up
+/// threads), and answers 503 `timeout` when the work ended past its deadline: the
+/// statistics give up at the deadline, and a cut-short report is never shown or cached.
+pub(crate) async fn heavy<T: Send + 'static>(
+    deadline: Option<Instant>,
+    work: impl FnOnce() -> T + Send + 'static,
+) -> Result<T> {
+    static SLOTS: std::sync::OnceLock<Arc<tokio::sync::Semaphore>> = std::sync::OnceLock::new();
+    let slots = SLOTS.get_or_init(|| {
+        let cores = std::thread::available_parallelism().map_or(2, std::num::NonZeroUsize::get);
+        Arc::new(tokio::sync::Semaphore::new(cores))
+    });
+    let permit = slots
+        .clone()
+        .acquire_owned()
         .await
-        .map_err(ApiError::internal)?
-        .map_err(ApiError::internal)
+        .map_err(ApiError::internal)?;
+    let out = tokio::task::spawn_blocking(move || {
+        let out = work();
+        drop(permit);
+        out
+    })
+    .await
+    .map_err(ApiError::internal)?;
+    if deadline.is_some_and(|d| Instant::now() >= d) {
+        return Err(ApiError::new(
+            crate::error::ProblemKind::Timeout,
+            "The report took longer than this server allows; ask for a shorter period, fewer resamples or method=auto.",
+        ));
+    }
+    Ok(out)
 }
 
 async fn get_report(
@@ -305,6 +368,7 @@ async fn get_report(
         as_of: q.as_of.as_deref(),
     };
     let (spec, period) = ReportSpec::parse_report(&raw).map_err(params_error)?;
+    let spec = spec.until(state.limits().request_timeout);
     let key = format!("report&period={period}&{}", spec.key());
     let store = state.store().clone();
     respond(&state, &cache, &headers, &key, || async move {
@@ -314,7 +378,8 @@ async fn get_report(
             .map_err(crate::store_error)?;
         let db = ms_since(started);
         let version = loaded.data_version;
-        let (body, stats, json) = blocking(move || {
+        let deadline = spec.deadline;
+        let (body, stats, json) = blocking(deadline, move || {
             let started = Instant::now();
             let report = compute::build(&spec, period, &loaded.groups);
             let stats = ms_since(started);
@@ -372,6 +437,7 @@ async fn get_series(
         as_of: q.as_of.as_deref(),
     };
     let (spec, periods) = ReportSpec::parse_series(&raw).map_err(params_error)?;
+    let spec = spec.until(state.limits().request_timeout);
     let (Some(&from), Some(&to)) = (periods.first(), periods.last()) else {
         return Err(params_error(vec![FieldError::new(
             "to",
@@ -396,7 +462,8 @@ async fn get_series(
         let version = loads.iter().map(|l| l.data_version).min().unwrap_or(0);
         let cacheable = loads.iter().all(|l| l.data_version == version);
         let db = ms_since(started);
-        let (body, stats, json) = blocking(move || {
+        let deadline = spec.deadline;
+        let (body, stats, json) = blocking(deadline, move || {
             let started = Instant::now();
             let points = periods
                 .iter()
@@ -437,23 +504,25 @@ mod tests {
         let tag = etag("k", 7);
         assert!(tag.starts_with("W/\"") && tag.ends_with('"'), "{tag}");
         let strong = tag.trim_start_matches("W/").to_owned();
-        for sent in [
-            tag.clone(),
-            strong.clone(),
-            format!("\"other\", {tag}"),
-            "*".to_owned(),
+        for (sent, expected) in [
+            (tag.clone(), NoneMatch::Tag),
+            (strong.clone(), NoneMatch::Tag),
+            (format!("\"other\", {tag}"), NoneMatch::Tag),
+            (format!("*, {tag}"), NoneMatch::Tag),
+            ("*".to_owned(), NoneMatch::Any),
+            ("\"other\", *".to_owned(), NoneMatch::Any),
         ] {
             let mut h = HeaderMap::new();
             h.insert(header::IF_NONE_MATCH, HeaderValue::from_str(&sent).unwrap());
-            assert!(none_match_hits(&h, &tag), "{sent}");
+            assert_eq!(none_match(&h, &tag), expected, "{sent}");
         }
         let mut h = HeaderMap::new();
         h.insert(
             header::IF_NONE_MATCH,
             HeaderValue::from_str(&etag("k", 8)).unwrap(),
         );
-        assert!(!none_match_hits(&h, &tag));
-        assert!(!none_match_hits(&HeaderMap::new(), &tag));
+        assert_eq!(none_match(&h, &tag), NoneMatch::No);
+        assert_eq!(none_match(&HeaderMap::new(), &tag), NoneMatch::No);
     }
 
     #[test]

@@ -67,6 +67,8 @@ pub struct ReportSpec {
     pub parameters: Parameters,
     /// Read the data as it stood at this instant (UTC, whole microseconds).
     pub as_of: Option<OffsetDateTime>,
+    /// When the statistics give up (the request's time limit); not part of the key.
+    pub deadline: Option<std::time::Instant>,
 }
 
 fn required(field: &str, example: &str) -> FieldError {
@@ -167,6 +169,7 @@ impl ReportSpec {
             filters: Filters { site, product },
             parameters: parameters?,
             as_of: as_of?,
+            deadline: None,
         })
     }
 
@@ -255,7 +258,15 @@ impl ReportSpec {
             filters: self.filters.clone(),
             parameters: self.parameters.clone(),
             as_of: self.as_of.map(format_as_of),
+            deadline: self.deadline,
         }
+    }
+
+    /// This spec with its statistics bounded to `limit` from now, so a report that
+    /// outlives its request stops using the CPU.
+    pub fn until(mut self, limit: std::time::Duration) -> Self {
+        self.deadline = std::time::Instant::now().checked_add(limit);
+        self
     }
 }
 
