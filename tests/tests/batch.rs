@@ -442,3 +442,42 @@ fn a_batch_above_the_record_limit_is_refused() {
     assert_eq!(p["errors"][0]["pointer"], "/records", "{p}");
     assert!(s.snapshot().is_empty());
 }
+
+#[test]
+fn a_body_of_millions_of_tiny_records_is_counted_not_held() {
+    // 1,500,000 records of one byte each fit in the body limit; they are counted past
+    // the hard cap of 100,000 and refused with their number, nothing written.
+    let s = Server::start();
+    s.site("S1", &["L1"]);
+    let mut body = String::with_capacity(3_000_020);
+    body.push_str("{\"records\":[0");
+    for _ in 1..1_500_000 {
+        body.push_str(",0");
+    }
+    body.push_str("]}");
+    let p = s
+        .as_admin(
+            "POST",
+            "/v1/counts",
+            Body::Raw {
+                content_type: Some("application/json"),
+                bytes: body.into_bytes(),
+            },
+        )
+        .problem(422, "validation");
+    assert_eq!(p["errors"][0]["reason"], "too_many", "{p}");
+    assert!(
+        p["errors"][0]["message"]
+            .as_str()
+            .is_some_and(|m| m.contains("1500000")),
+        "{p}"
+    );
+    assert!(s.snapshot().is_empty());
+}
+
+#[test]
+fn the_batch_limit_cannot_be_configured_above_the_hard_cap() {
+    let out = dispar_system_tests::run_cli(&["serve", "--max-batch-records", "100001"]);
+    assert!(!out.status.success());
+    assert!(String::from_utf8_lossy(&out.stderr).contains("100000"));
+}

@@ -580,18 +580,61 @@ fn batch_validation(e: ValidationError, place: &Place) -> ApiError {
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields)]
 struct RawBatch {
-    records: Vec<serde_json::Value>,
+    records: Records,
+}
+
+/// Most records a batch may be configured to accept (`--max-batch-records`).
+pub const MAX_BATCH_RECORDS: usize = 100_000;
+
+/// A JSON batch's records: at most [`MAX_BATCH_RECORDS`] + 1 are kept as parsed values
+/// and the rest only counted, so a body of millions of tiny values costs no memory.
+struct Records {
+    values: Vec<serde_json::Value>,
+    count: usize,
+}
+
+impl<'de> Deserialize<'de> for Records {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> std::result::Result<Self, D::Error> {
+        struct Visit;
+        impl<'de> serde::de::Visitor<'de> for Visit {
+            type Value = Records;
+            fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+                f.write_str("an array of records")
+            }
+            fn visit_seq<A: serde::de::SeqAccess<'de>>(
+                self,
+                mut seq: A,
+            ) -> std::result::Result<Records, A::Error> {
+                let mut values = Vec::new();
+                while values.len() <= MAX_BATCH_RECORDS {
+                    match seq.next_element::<serde_json::Value>()? {
+                        Some(v) => values.push(v),
+                        None => {
+                            let count = values.len();
+                            return Ok(Records { values, count });
+                        }
+                    }
+                }
+                let mut count = values.len();
+                while seq.next_element::<serde::de::IgnoredAny>()?.is_some() {
+                    count += 1;
+                }
+                Ok(Records { values, count })
+            }
+        }
+        d.deserialize_seq(Visit)
+    }
 }
 
 /// Reads a JSON batch into raw records, reporting every record's shape errors.
 fn json_records(bytes: &[u8], max: usize) -> Result<Vec<CountRecordInput>> {
     let raw: RawBatch = parse_json(bytes)?;
-    check_batch_size(raw.records.len(), max, || {
+    check_batch_size(raw.records.count, max, || {
         ErrorItem::pointer("/records", "", "")
     })?;
-    let mut out = Vec::with_capacity(raw.records.len());
+    let mut out = Vec::with_capacity(raw.records.count);
     let mut errors = Vec::new();
-    for (i, value) in raw.records.into_iter().enumerate() {
+    for (i, value) in raw.records.values.into_iter().enumerate() {
         match from_value::<CountRecordInput>(value, &format!("/records/{i}")) {
             Ok(r) => out.push(r),
             Err(item) => errors.push(*item),

@@ -135,14 +135,25 @@ struct ServeArgs {
     #[arg(long, env = "DISPAR_MAX_CONCURRENCY", default_value_t = Limits::default().max_concurrency,
           value_parser = parse_positive)]
     max_concurrency: usize,
-    /// Most records in one batch.
+    /// Most records in one batch (1 to 100,000).
     #[arg(long, env = "DISPAR_MAX_BATCH_RECORDS", default_value_t = Limits::default().max_batch_records,
-          value_parser = parse_positive)]
+          value_parser = parse_batch_limit)]
     max_batch_records: usize,
     /// How long a batch answer can be replayed with its `Idempotency-Key`, e.g. `7d`,
     /// `24h`; older answers are purged hourly.
     #[arg(long, env = "DISPAR_IDEMPOTENCY_RETENTION", default_value = "7d", value_parser = parse_duration)]
     idempotency_retention: Duration,
+}
+
+/// A batch limit: 1 to [`dispar::counts::MAX_BATCH_RECORDS`].
+fn parse_batch_limit(s: &str) -> Result<usize, String> {
+    match parse_positive(s)? {
+        n if n <= dispar::counts::MAX_BATCH_RECORDS => Ok(n),
+        _ => Err(format!(
+            "{s:?} is above the most a batch may hold ({})",
+            dispar::counts::MAX_BATCH_RECORDS
+        )),
+    }
 }
 
 /// A whole number of at least 1.
