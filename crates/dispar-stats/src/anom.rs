@@ -64,6 +64,7 @@ pub struct AnomCritical {
 /// # Ok::<(), dispar_stats::StatsError>(())
 /// ```
 pub fn critical(alpha: f64, k: usize) -> Result<AnomCritical, StatsError> {
+    const CACHE_LIMIT: usize = 4096;
     check_open_unit("alpha", alpha)?;
     if k < 2 {
         return Err(StatsError::InvalidParameter {
@@ -82,6 +83,11 @@ pub fn critical(alpha: f64, k: usize) -> Result<AnomCritical, StatsError> {
     }
     let result = compute(alpha, k);
     if let Ok(mut map) = cache.lock() {
+        // Callers choose alpha freely; a bound keeps the cache from growing with every
+        // new value (it is refilled from the common ones in milliseconds).
+        if map.len() >= CACHE_LIMIT {
+            map.clear();
+        }
         map.insert(key, result);
     }
     Ok(result)

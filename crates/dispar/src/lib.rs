@@ -194,7 +194,8 @@ pub fn store_error(e: StoreError) -> ApiError {
             tracing::warn!(constraint = %name, "a database constraint refused a value the domain accepted");
             ApiError::validation(
                 "A value was refused by the database.",
-                vec![ErrorItem::general("constraint", format!("constraint {name} refused the value"))],
+                // The constraint's name is logged above, not shown: it is internal.
+                vec![ErrorItem::general("constraint", "a stored value broke a database rule")],
             )
         }
         StoreError::Busy => ApiError::unavailable("The database is busy; retry shortly.", 1),

@@ -130,7 +130,7 @@ fn params_error(errors: Vec<FieldError>) -> ApiError {
 /// its sites.
 fn authorize(caller: &Caller, site: Option<&str>) -> Result<()> {
     match site {
-        Some(site) => caller.require_read_site(site.trim()),
+        Some(site) => caller.require_read_site(site),
         None => caller.require_read_all().map_err(|_| {
             ApiError::forbidden(
                 "An ingest key may read reports of its own sites only: name one with `site=`.",
