@@ -70,6 +70,11 @@ pub struct ReportRequest {
     pub deadline: Option<std::time::Instant>,
 }
 
+/// Sum that stops at `u64::MAX` instead of wrapping (release) or panicking (debug).
+fn saturating_sum(values: impl Iterator<Item = u64>) -> u64 {
+    values.fold(0, u64::saturating_add)
+}
+
 /// The fixed cautions every report carries.
 pub const CAUTIONS: [&str; 4] = [
     "A statistically significant difference is evidence that the groups differ, not a root cause; find the cause before acting.",
@@ -283,8 +288,10 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
             used.push(g);
         }
     }
-    let inspected: u64 = used.iter().map(|g| g.inspected).sum();
-    let defective: u64 = used.iter().map(|g| g.defective).sum();
+    // Saturating: totals beyond u64 (absurd but postable over a long range) show as the
+    // maximum while the statistics refuse the table with an overflow note, never wrap.
+    let inspected = saturating_sum(used.iter().map(|g| g.inspected));
+    let defective = saturating_sum(used.iter().map(|g| g.defective));
     let pooled = ratio(defective, inspected);
     let totals = Totals {
         groups: used.len(),
@@ -482,10 +489,11 @@ fn categories(used: &[&GroupCounts], opts: &Options, between: &str) -> Option<Ca
     let mut totals: BTreeMap<&str, u64> = BTreeMap::new();
     for g in used {
         for (c, n) in &g.defects {
-            *totals.entry(c.as_str()).or_insert(0) += n;
+            let t = totals.entry(c.as_str()).or_insert(0);
+            *t = t.saturating_add(*n);
         }
     }
-    let all: u64 = totals.values().sum();
+    let all = saturating_sum(totals.values().copied());
     if all == 0 {
         return None;
     }
@@ -529,11 +537,14 @@ fn table_analysis(
     between: &str,
     subject: &str,
 ) -> TableAnalysis {
-    let row_totals: Vec<u64> = rows.iter().map(|r| r.iter().sum()).collect();
-    let col_totals: Vec<u64> = (0..col_names.len())
-        .map(|c| rows.iter().map(|r| r.get(c).copied().unwrap_or(0)).sum())
+    let row_totals: Vec<u64> = rows
+        .iter()
+        .map(|r| saturating_sum(r.iter().copied()))
         .collect();
-    let total: u64 = row_totals.iter().sum();
+    let col_totals: Vec<u64> = (0..col_names.len())
+        .map(|c| saturating_sum(rows.iter().map(|r| r.get(c).copied().unwrap_or(0))))
+        .collect();
+    let total = saturating_sum(row_totals.iter().copied());
     let margin = |names: &[String], totals: &[u64], keep: &[usize]| -> Vec<Margin> {
         keep.iter()
             .map(|&i| Margin {

@@ -492,3 +492,15 @@ fn a_series_summary_equals_the_summary_of_the_full_report() {
     assert!(!full.pairwise.is_empty(), "the full report has pairs");
     assert_eq!(build_summary(&req, &groups), full.summary());
 }
+
+#[test]
+fn totals_beyond_u64_are_not_testable_instead_of_wrapping() {
+    // Three groups of 10^19 units each add up past u64::MAX (1.8 * 10^19).
+    let big = 10_000_000_000_000_000_000u64;
+    let groups = [group("A", big, 1), group("B", big, 2), group("C", big, 3)];
+    let r = build_report(&ReportRequest::default(), &groups);
+    assert_eq!(r.totals.inspected, u64::MAX, "saturated, not wrapped");
+    assert!(r.test.is_none());
+    let reason = &r.not_testable.as_ref().expect("a note").reason;
+    assert!(reason.contains("overflow"), "{reason}");
+}
