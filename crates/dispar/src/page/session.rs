@@ -25,6 +25,9 @@ pub const SESSION_TTL: Duration = Duration::from_secs(12 * 60 * 60);
 /// Most sessions held at once; signing in beyond it ends the oldest session.
 pub const MAX_SESSIONS: usize = 10_000;
 
+/// Most live sessions of one API key (people sharing a read key on a few screens).
+pub const MAX_SESSIONS_PER_KEY: usize = 50;
+
 /// When to mark the session cookie `Secure`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub enum SecureCookies {
@@ -111,6 +114,18 @@ impl Sessions {
         let now = Instant::now();
         let mut map = self.lock();
         map.retain(|_, s| s.expires > now);
+        // One key signing in again and again only pushes out its own oldest sessions,
+        // so it cannot sign everybody else out by filling the table.
+        let own: Vec<(&String, &Session)> =
+            map.iter().filter(|(_, s)| s.key_id == key_id).collect();
+        if own.len() >= MAX_SESSIONS_PER_KEY
+            && let Some(oldest) = own
+                .iter()
+                .min_by_key(|(_, s)| s.expires)
+                .map(|(k, _)| (*k).clone())
+        {
+            map.remove(&oldest);
+        }
         if map.len() >= MAX_SESSIONS
             && let Some(oldest) = map
                 .iter()
@@ -240,6 +255,26 @@ mod tests {
             h.append(*k, HeaderValue::from_static(v));
         }
         h
+    }
+
+    #[test]
+    fn one_key_signing_in_repeatedly_pushes_out_only_its_own_sessions() {
+        let sessions = Sessions::new();
+        let other = sessions.create(2, KeyRole::Read).expect("random bytes");
+        let first = sessions.create(1, KeyRole::Read).expect("random bytes");
+        for _ in 0..MAX_SESSIONS_PER_KEY + 5 {
+            sessions.create(1, KeyRole::Read).expect("random bytes");
+        }
+        assert!(
+            sessions.get(&other).is_some(),
+            "another key's session survives"
+        );
+        assert!(
+            sessions.get(&first).is_none(),
+            "key 1's oldest session was ended"
+        );
+        let live_for_1 = sessions.lock().values().filter(|s| s.key_id == 1).count();
+        assert_eq!(live_for_1, MAX_SESSIONS_PER_KEY);
     }
 
     #[test]
