@@ -324,29 +324,39 @@ impl Server {
 
     /// Sends SIGTERM and waits (up to 30 s) for the process to exit.
     pub fn terminate(&mut self) -> ExitStatus {
-        let status = Command::new("kill")
-            .args(["-TERM", &self.pid().to_string()])
-            .status()
-            .expect("kill runs");
-        assert!(status.success(), "kill -TERM failed");
+        send_sigterm(self.pid());
         self.wait_exit()
     }
 
     /// Waits (up to 30 s) for the process to exit by itself.
     pub fn wait_exit(&mut self) -> ExitStatus {
-        let mut child = self.child.take().expect("running");
-        let deadline = Instant::now() + Duration::from_secs(30);
-        loop {
-            if let Some(status) = child.try_wait().expect("wait") {
-                return status;
-            }
-            if Instant::now() > deadline {
-                let _ = child.kill();
-                let _ = child.wait();
-                panic!("dispar did not exit within 30 s; log:\n{}", self.log());
-            }
-            std::thread::sleep(Duration::from_millis(20));
+        let child = self.child.take().expect("running");
+        wait_for_exit(child, &|| self.log())
+    }
+}
+
+/// Sends SIGTERM to `pid` (through `kill`, so the tests need no libc bindings).
+pub fn send_sigterm(pid: u32) {
+    let status = Command::new("kill")
+        .args(["-TERM", &pid.to_string()])
+        .status()
+        .expect("kill runs");
+    assert!(status.success(), "kill -TERM failed");
+}
+
+/// Waits up to 30 s for `child` to exit; past that kills it and fails with `log()`.
+pub fn wait_for_exit(mut child: Child, log: &dyn Fn() -> String) -> ExitStatus {
+    let deadline = Instant::now() + Duration::from_secs(30);
+    loop {
+        if let Some(status) = child.try_wait().expect("wait") {
+            return status;
         }
+        if Instant::now() > deadline {
+            let _ = child.kill();
+            let _ = child.wait();
+            panic!("dispar did not exit within 30 s; log:\n{}", log());
+        }
+        std::thread::sleep(Duration::from_millis(20));
     }
 }
 

@@ -13,9 +13,9 @@ use std::io::{BufRead, BufReader};
 use std::path::{Path, PathBuf};
 use std::process::{Child, Command, ExitStatus, Stdio};
 use std::sync::mpsc;
-use std::time::{Duration, Instant};
+use std::time::Duration;
 
-use dispar_system_tests::{Value, dispar_bin};
+use dispar_system_tests::{Value, dispar_bin, send_sigterm, wait_for_exit};
 
 /// A running `dispar demo`.
 struct Demo {
@@ -150,24 +150,9 @@ impl Demo {
 
     /// SIGTERM, then wait up to 30 s.
     fn terminate(&mut self) -> ExitStatus {
-        let status = Command::new("kill")
-            .args(["-TERM", &self.pid().to_string()])
-            .status()
-            .unwrap();
-        assert!(status.success(), "kill -TERM failed");
-        let mut child = self.child.take().unwrap();
-        let deadline = Instant::now() + Duration::from_secs(30);
-        loop {
-            if let Some(status) = child.try_wait().unwrap() {
-                return status;
-            }
-            if Instant::now() > deadline {
-                let _ = child.kill();
-                let _ = child.wait();
-                panic!("dispar demo did not stop within 30 s; log:\n{}", self.log());
-            }
-            std::thread::sleep(Duration::from_millis(20));
-        }
+        send_sigterm(self.pid());
+        let child = self.child.take().unwrap();
+        wait_for_exit(child, &|| self.log())
     }
 }
 
