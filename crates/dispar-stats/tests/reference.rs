@@ -772,41 +772,45 @@ fn fisher_exact_matches_exact_enumeration_and_scipy() {
 // ---------------------------------------------------------------------------------------
 // intervals
 
+/// Both ends of `got` against a reference `(lower, upper, source, absolute tolerance)`.
+fn check_interval(
+    ck: &mut Checker,
+    name: &str,
+    got: dispar_stats::interval::Interval,
+    (lower, upper, source, tolerance): (f64, f64, &str, f64),
+) {
+    ck.close(
+        || format!("{name} lower [{source}]"),
+        got.lower,
+        lower,
+        0.0,
+        tolerance,
+    );
+    ck.close(
+        || format!("{name} upper [{source}]"),
+        got.upper,
+        upper,
+        0.0,
+        tolerance,
+    );
+}
+
 #[test]
 fn wilson_intervals_match_the_closed_form_and_statsmodels() {
     let fx = fixture::<WilsonCase>("wilson.json");
     let mut ck = Checker::new();
     for c in &fx.cases {
         let ci = wilson(c.x, c.n, c.confidence).unwrap_or_else(|e| panic!("{}: {e}", c.name));
-        ck.close(
-            || format!("{} lower [{}]", c.name, c.source),
-            ci.lower,
-            c.lower,
-            0.0,
-            tol::INTERVAL_ABS,
-        );
-        ck.close(
-            || format!("{} upper [{}]", c.name, c.source),
-            ci.upper,
-            c.upper,
-            0.0,
-            tol::INTERVAL_ABS,
-        );
+        let closed_form = (c.lower, c.upper, c.source.as_str(), tol::INTERVAL_ABS);
+        check_interval(&mut ck, &c.name, ci, closed_form);
         let s = &c.statsmodels;
-        ck.close(
-            || format!("{} lower [{}]", c.name, s.source),
-            ci.lower,
+        let library = (
             s.lower,
-            0.0,
-            tol::INTERVAL_ABS_STATSMODELS,
-        );
-        ck.close(
-            || format!("{} upper [{}]", c.name, s.source),
-            ci.upper,
             s.upper,
-            0.0,
+            s.source.as_str(),
             tol::INTERVAL_ABS_STATSMODELS,
         );
+        check_interval(&mut ck, &c.name, ci, library);
     }
     ck.finish("Wilson intervals");
 }
@@ -818,35 +822,16 @@ fn newcombe_difference_intervals_match_the_closed_form_and_statsmodels() {
     for c in &fx.cases {
         let ci = newcombe_difference(c.x1, c.n1, c.x2, c.n2, c.confidence)
             .unwrap_or_else(|e| panic!("{}: {e}", c.name));
-        ck.close(
-            || format!("{} lower [{}]", c.name, c.source),
-            ci.lower,
-            c.lower,
-            0.0,
-            tol::INTERVAL_ABS,
-        );
-        ck.close(
-            || format!("{} upper [{}]", c.name, c.source),
-            ci.upper,
-            c.upper,
-            0.0,
-            tol::INTERVAL_ABS,
-        );
+        let closed_form = (c.lower, c.upper, c.source.as_str(), tol::INTERVAL_ABS);
+        check_interval(&mut ck, &c.name, ci, closed_form);
         let s = &c.statsmodels;
-        ck.close(
-            || format!("{} lower [{}]", c.name, s.source),
-            ci.lower,
+        let library = (
             s.lower,
-            0.0,
-            tol::INTERVAL_ABS_STATSMODELS,
-        );
-        ck.close(
-            || format!("{} upper [{}]", c.name, s.source),
-            ci.upper,
             s.upper,
-            0.0,
+            s.source.as_str(),
             tol::INTERVAL_ABS_STATSMODELS,
         );
+        check_interval(&mut ck, &c.name, ci, library);
     }
     ck.finish("Newcombe difference intervals");
 }
