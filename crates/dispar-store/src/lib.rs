@@ -33,7 +33,7 @@
 //!
 //! Reports over the current data read monthly sums (kept up to date by every write)
 //! for the whole months of a range and the daily rows for the days at its edges;
-//! `as_of` reports read the history. The schema is in `migrations/sqlite`.
+//! `as_of` reports read the history. The schema is in this crate's `migrations/sqlite`.
 
 mod counts;
 mod error;

@@ -32,8 +32,8 @@ use crate::reports::{Aggregate, AggregateQuery};
 use crate::sites::{SiteWithLines, Upserted};
 use crate::store::{Backend, Store, StoreStats};
 
-/// The embedded SQLite migrations (`migrations/sqlite`).
-pub static MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("../../migrations/sqlite");
+/// The embedded SQLite migrations (this crate's `migrations/sqlite`).
+pub static MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("migrations/sqlite");
 
 /// A dispar store in one SQLite file.
 #[derive(Debug, Clone)]
