@@ -14,7 +14,7 @@ use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::reports::{Aggregate, AggregateQuery};
 use crate::sites::{SiteWithLines, Upserted};
 
-/// Which database a store talks to.
+/// Which database a URL names (see [`crate::backend_of`]).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Backend {
     /// An SQLite file (or memory).
@@ -45,9 +45,6 @@ pub struct StoreStats {
 /// on any error nothing of it is kept.
 #[async_trait]
 pub trait Store: Send + Sync + std::fmt::Debug {
-    /// Which backend this is.
-    fn backend(&self) -> Backend;
-
     /// Checks that the database answers (for `/readyz`).
     async fn ping(&self) -> Result<(), StoreError>;
 

@@ -30,7 +30,7 @@ use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::reports::{Aggregate, AggregateQuery};
 use crate::sites::{SiteWithLines, Upserted};
-use crate::store::{Backend, Store, StoreStats};
+use crate::store::{Store, StoreStats};
 
 /// The embedded SQLite migrations (this crate's `migrations/sqlite`).
 pub static MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("migrations/sqlite");
@@ -121,10 +121,6 @@ where
 
 #[async_trait]
 impl Store for SqliteStore {
-    fn backend(&self) -> Backend {
-        Backend::Sqlite
-    }
-
     async fn ping(&self) -> Result<(), StoreError> {
         sqlx::query("SELECT 1").fetch_one(&self.reader).await?;
         Ok(())
