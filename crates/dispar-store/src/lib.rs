@@ -38,6 +38,7 @@
 mod counts;
 mod error;
 mod keys;
+mod plan;
 mod reports;
 mod sites;
 mod sqlite;
