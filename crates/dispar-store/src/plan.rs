@@ -475,3 +475,519 @@ pub(crate) fn plan_batch<'a>(
             .collect(),
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use std::collections::BTreeMap;
+
+    use dispar_core::code::{CategoryCode, LineCode, ProductCode, SiteCode};
+    use dispar_core::record::{Counts, RecordKey};
+    use time::macros::date;
+
+    use super::*;
+
+    const D1: Date = date!(2026 - 03 - 02);
+    const D2: Date = date!(2026 - 03 - 03);
+    const APRIL: Date = date!(2026 - 04 - 01);
+    /// The first id the tests hand out, far from any stored id below.
+    const FIRST: i64 = 100;
+
+    fn rec(
+        site: &str,
+        d: Date,
+        inspected: u64,
+        defective: u64,
+        defects: &[(&str, u64)],
+        revision: Option<u64>,
+    ) -> CountRecord {
+        let defects: BTreeMap<CategoryCode, u64> = defects
+            .iter()
+            .map(|(c, n)| (CategoryCode::parse(c).expect("category"), *n))
+            .collect();
+        CountRecord {
+            key: RecordKey::new(
+                SiteCode::parse(site).expect("site"),
+                LineCode::parse("L1").expect("line"),
+                None,
+                d,
+            )
+            .expect("key"),
+            counts: Counts::new(inspected, defective, defects).expect("counts"),
+            revision,
+        }
+    }
+
+    fn stored(
+        revision_id: i64,
+        inspected: i64,
+        defective: i64,
+        defects: &[(&str, i64)],
+        plant_revision: Option<i64>,
+    ) -> Current {
+        let mut c =
+            Current::new(revision_id, inspected, defective, plant_revision).expect("current");
+        for (cat, n) in defects {
+            c.add_defect((*cat).to_owned(), *n);
+        }
+        c
+    }
+
+    fn statuses(plan: &Plan<'_>) -> Vec<WriteStatus> {
+        plan.outcome.outcomes.iter().map(|o| o.status).collect()
+    }
+
+    fn month(site: &str) -> MonthKey<'_> {
+        MonthKey {
+            month: date!(2026 - 03 - 01),
+            site,
+            line: "L1",
+            product: "",
+        }
+    }
+
+    enum Want {
+        Status(WriteStatus),
+        Conflict { current_revision: u64 },
+    }
+
+    /// (inspected, defective, defects)
+    type Values = (u64, u64, &'static [(&'static str, u64)]);
+    /// (case, stored value and plant revision, incoming value and plant revision, want)
+    type Case = (
+        &'static str,
+        Option<(Values, Option<i64>)>,
+        (Values, Option<u64>),
+        Want,
+    );
+
+    #[test]
+    fn one_record_against_a_stored_value_follows_the_revision_rules() {
+        use WriteStatus::{Corrected, Created, Unchanged};
+        let counts: Values = (10, 1, &[("a", 1)]);
+        let other: Values = (10, 2, &[("a", 2)]);
+        let cases: [Case; 12] = [
+            ("a new key", None, (counts, None), Want::Status(Created)),
+            (
+                "a new key with a plant revision",
+                None,
+                (counts, Some(3)),
+                Want::Status(Created),
+            ),
+            (
+                "the same counts again",
+                Some((counts, None)),
+                (counts, None),
+                Want::Status(Unchanged),
+            ),
+            (
+                "the same counts and revision again",
+                Some((counts, Some(3))),
+                (counts, Some(3)),
+                Want::Status(Unchanged),
+            ),
+            (
+                "the same counts, no revision, over a revision",
+                Some((counts, Some(3))),
+                (counts, None),
+                Want::Status(Unchanged),
+            ),
+            (
+                "the same counts under an older revision",
+                Some((counts, Some(3))),
+                (counts, Some(2)),
+                Want::Status(Unchanged),
+            ),
+            (
+                "the same counts under a newer revision",
+                Some((counts, Some(3))),
+                (counts, Some(4)),
+                Want::Status(Corrected),
+            ),
+            (
+                "the same counts now carrying a revision",
+                Some((counts, None)),
+                (counts, Some(1)),
+                Want::Status(Corrected),
+            ),
+            (
+                "other counts without revision (last writer wins)",
+                Some((counts, Some(3))),
+                (other, None),
+                Want::Status(Corrected),
+            ),
+            (
+                "other counts under a newer revision",
+                Some((counts, Some(3))),
+                (other, Some(4)),
+                Want::Status(Corrected),
+            ),
+            (
+                "other counts under the same revision",
+                Some((counts, Some(3))),
+                (other, Some(3)),
+                Want::Conflict {
+                    current_revision: 3,
+                },
+            ),
+            (
+                "other counts under an older revision",
+                Some((counts, Some(3))),
+                (other, Some(1)),
+                Want::Conflict {
+                    current_revision: 3,
+                },
+            ),
+        ];
+        for (case, before, ((i, d, defects), revision), want) in cases {
+            let records = [rec("S1", D1, i, d, defects, revision)];
+            let batch = Batch::new(&records).expect("batch");
+            let current = before.map(|((i, d, defects), r)| {
+                let defects: Vec<(&str, i64)> =
+                    defects.iter().map(|(c, n)| (*c, *n as i64)).collect();
+                stored(7, i as i64, d as i64, &defects, r)
+            });
+            let result = plan_batch(&batch, vec![current], FIRST);
+            match want {
+                Want::Status(status) => {
+                    let plan = result.unwrap_or_else(|e| panic!("{case}: refused {e:?}"));
+                    let written = status != Unchanged;
+                    assert_eq!(statuses(&plan), [status], "{case}");
+                    let o = plan.outcome.outcomes[0];
+                    assert_eq!(o.revision_id, if written { FIRST } else { 7 }, "{case}");
+                    let current_plant = before.and_then(|(_, r)| r).map(i64::unsigned_abs);
+                    let want_plant = if written { revision } else { current_plant };
+                    assert_eq!(o.plant_revision, want_plant, "{case}");
+                    assert_eq!(plan.revisions.len(), usize::from(written), "{case}");
+                    assert_eq!(plan.current.len(), usize::from(written), "{case}");
+                    if !written {
+                        assert!(plan.month_totals.is_empty(), "{case}");
+                        assert!(plan.month_defects.is_empty(), "{case}");
+                    }
+                }
+                Want::Conflict { current_revision } => {
+                    let errors = result.err().unwrap_or_else(|| panic!("{case}: accepted"));
+                    assert_eq!(
+                        errors,
+                        [RecordError {
+                            index: 0,
+                            problem: RecordProblem::Conflict {
+                                current_revision,
+                                revision_id: 7
+                            }
+                        }],
+                        "{case}"
+                    );
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn a_new_key_plans_one_revision_its_current_value_and_its_month() {
+        let records = [rec(
+            "S1",
+            D1,
+            10,
+            3,
+            &[("dent", 1), ("scratch", 2)],
+            Some(1),
+        )];
+        let batch = Batch::new(&records).expect("batch");
+        let plan = plan_batch(&batch, vec![None], FIRST).expect("plan");
+        let row = &batch.rows()[0];
+        assert_eq!(plan.revisions, [NewRevision { id: FIRST, row }]);
+        assert_eq!(
+            plan.current,
+            [NewCurrent {
+                revision_id: FIRST,
+                row,
+                replaces_defects: false
+            }]
+        );
+        assert_eq!(
+            plan.month_totals,
+            [MonthTotalChange {
+                key: month("S1"),
+                inspected: 10,
+                defective: 3
+            }]
+        );
+        let defects: Vec<(&str, i64)> = plan
+            .month_defects
+            .iter()
+            .map(|d| (d.category.as_str(), d.count))
+            .collect();
+        assert_eq!(defects, [("dent", 1), ("scratch", 2)]);
+    }
+
+    #[test]
+    fn a_correction_replaces_stored_defects_and_adds_only_the_difference_to_the_month() {
+        // Stored: 10 inspected, 3 defective, dent 1 + scratch 2. New: 12, 3, scratch 3.
+        let records = [rec("S1", D1, 12, 3, &[("scratch", 3)], None)];
+        let batch = Batch::new(&records).expect("batch");
+        let before = stored(7, 10, 3, &[("scratch", 2), ("dent", 1)], None);
+        let plan = plan_batch(&batch, vec![Some(before)], FIRST).expect("plan");
+        assert_eq!(statuses(&plan), [WriteStatus::Corrected]);
+        assert!(plan.current[0].replaces_defects);
+        assert_eq!(
+            plan.month_totals,
+            [MonthTotalChange {
+                key: month("S1"),
+                inspected: 2,
+                defective: 0
+            }]
+        );
+        let defects: Vec<(&str, i64)> = plan
+            .month_defects
+            .iter()
+            .map(|d| (d.category.as_str(), d.count))
+            .collect();
+        assert_eq!(defects, [("dent", -1), ("scratch", 1)]);
+    }
+
+    #[test]
+    fn month_changes_that_cancel_out_are_left_out() {
+        // Same totals, defects moved from one category to another.
+        let records = [rec("S1", D1, 10, 2, &[("dent", 2)], None)];
+        let batch = Batch::new(&records).expect("batch");
+        let before = stored(7, 10, 2, &[("scratch", 2)], None);
+        let plan = plan_batch(&batch, vec![Some(before)], FIRST).expect("plan");
+        assert!(plan.month_totals.is_empty(), "{:?}", plan.month_totals);
+        assert_eq!(plan.month_defects.len(), 2);
+        // A correction without defects over a value without defects deletes nothing.
+        let records = [rec("S1", D1, 11, 2, &[], None)];
+        let batch = Batch::new(&records).expect("batch");
+        let plan =
+            plan_batch(&batch, vec![Some(stored(7, 10, 2, &[], None))], FIRST).expect("plan");
+        assert!(!plan.current[0].replaces_defects);
+        assert!(plan.month_defects.is_empty());
+    }
+
+    #[test]
+    fn stored_defects_compare_by_category_whatever_order_they_were_loaded_in() {
+        let records = [rec("S1", D1, 10, 3, &[("dent", 1), ("scratch", 2)], None)];
+        let batch = Batch::new(&records).expect("batch");
+        let before = stored(7, 10, 3, &[("scratch", 2), ("dent", 1)], None);
+        let plan = plan_batch(&batch, vec![Some(before)], FIRST).expect("plan");
+        assert_eq!(statuses(&plan), [WriteStatus::Unchanged]);
+    }
+
+    #[test]
+    fn a_key_repeated_in_a_batch_is_decided_against_the_rows_before_it() {
+        let records = [
+            rec("S1", D1, 10, 1, &[], Some(1)),
+            rec("S1", D1, 10, 1, &[], Some(1)),
+            rec("S1", D1, 10, 2, &[("a", 2)], Some(2)),
+        ];
+        let batch = Batch::new(&records).expect("batch");
+        assert_eq!(batch.key_rows().count(), 1);
+        let plan = plan_batch(&batch, vec![None], FIRST).expect("plan");
+        assert_eq!(
+            statuses(&plan),
+            [
+                WriteStatus::Created,
+                WriteStatus::Unchanged,
+                WriteStatus::Corrected
+            ]
+        );
+        let ids: Vec<i64> = plan
+            .outcome
+            .outcomes
+            .iter()
+            .map(|o| o.revision_id)
+            .collect();
+        assert_eq!(ids, [FIRST, FIRST, FIRST + 1]);
+        let revision_rows: Vec<usize> = plan.revisions.iter().map(|r| r.row.index).collect();
+        assert_eq!(revision_rows, [0, 2]);
+        // One current value: the last row, under the last id.
+        assert_eq!(plan.current.len(), 1);
+        assert_eq!(plan.current[0].row.index, 2);
+        assert_eq!(plan.current[0].revision_id, FIRST + 1);
+        // The month gets the final value once, not each row.
+        assert_eq!(
+            plan.month_totals,
+            [MonthTotalChange {
+                key: month("S1"),
+                inspected: 10,
+                defective: 2
+            }]
+        );
+    }
+
+    #[test]
+    fn an_older_revision_after_a_newer_one_in_the_same_batch_is_refused() {
+        let records = [
+            rec("S1", D1, 10, 1, &[], Some(5)),
+            rec("S1", D1, 10, 2, &[], Some(3)),
+        ];
+        let batch = Batch::new(&records).expect("batch");
+        let errors = plan_batch(&batch, vec![None], FIRST).expect_err("refused");
+        assert_eq!(
+            errors,
+            [RecordError {
+                index: 1,
+                problem: RecordProblem::Conflict {
+                    current_revision: 5,
+                    revision_id: FIRST
+                }
+            }]
+        );
+    }
+
+    #[test]
+    fn every_refusal_is_listed_in_input_order_and_nothing_is_planned() {
+        let records = [
+            rec("S1", D1, 10, 9, &[], Some(2)),
+            rec("S2", D1, 10, 1, &[], None),
+            rec("S1", D1, 10, 8, &[], Some(1)),
+        ];
+        let batch = Batch::new(&records).expect("batch");
+        let current = vec![Some(stored(7, 10, 1, &[], Some(2))), None];
+        let errors = plan_batch(&batch, current, FIRST).expect_err("refused");
+        let indexes: Vec<usize> = errors.iter().map(|e| e.index).collect();
+        assert_eq!(indexes, [0, 2]);
+    }
+
+    #[test]
+    fn the_outcome_counts_each_status() {
+        let records = [
+            rec("S1", D1, 10, 1, &[], None), // stored, same: unchanged
+            rec("S1", D2, 10, 1, &[], None), // new: created
+            rec("S2", D1, 10, 2, &[], None), // stored, other counts: corrected
+            rec("S3", D1, 10, 1, &[], None), // new: created
+            rec("S3", D1, 10, 1, &[], None), // as the row before: unchanged
+        ];
+        let batch = Batch::new(&records).expect("batch");
+        let current = vec![
+            Some(stored(1, 10, 1, &[], None)),
+            None,
+            Some(stored(2, 10, 1, &[], None)),
+            None,
+        ];
+        let plan = plan_batch(&batch, current, FIRST).expect("plan");
+        let o = &plan.outcome;
+        assert_eq!((o.created, o.corrected, o.unchanged), (2, 1, 2));
+        assert_eq!(o.outcomes.len(), 5);
+        let ids: Vec<i64> = o.outcomes.iter().map(|o| o.revision_id).collect();
+        assert_eq!(ids, [1, FIRST, FIRST + 1, FIRST + 2, FIRST + 2]);
+        assert_eq!(plan.revisions.len(), 3);
+        assert_eq!(plan.current.len(), 3);
+    }
+
+    #[test]
+    fn months_group_keys_by_month_site_line_and_product() {
+        let records = [
+            rec("S1", D1, 10, 1, &[], None),
+            rec("S1", D2, 20, 2, &[], None),
+            rec("S1", APRIL, 5, 0, &[], None),
+            rec("S2", D1, 7, 1, &[], None),
+        ];
+        let batch = Batch::new(&records).expect("batch");
+        let plan = plan_batch(&batch, vec![None; 4], FIRST).expect("plan");
+        let got: Vec<(Date, &str, i64, i64)> = plan
+            .month_totals
+            .iter()
+            .map(|t| (t.key.month, t.key.site, t.inspected, t.defective))
+            .collect();
+        assert_eq!(
+            got,
+            [
+                (date!(2026 - 03 - 01), "S1", 30, 3),
+                (date!(2026 - 03 - 01), "S2", 7, 1),
+                (APRIL, "S1", 5, 0),
+            ]
+        );
+    }
+
+    #[test]
+    fn numbers_beyond_i64_are_refused_for_every_record_at_once() {
+        let records = [
+            rec("S1", D1, 10, 1, &[], Some(u64::MAX)),
+            rec("S1", D2, 10, 1, &[], Some(1)),
+            rec("S2", D1, 10, 1, &[], Some(i64::MAX as u64 + 1)),
+        ];
+        let errors = Batch::new(&records).expect_err("refused");
+        let out_of_range = RecordProblem::OutOfRange {
+            field: "revision".to_owned(),
+        };
+        assert_eq!(
+            errors,
+            [
+                RecordError {
+                    index: 0,
+                    problem: out_of_range.clone()
+                },
+                RecordError {
+                    index: 2,
+                    problem: out_of_range
+                },
+            ]
+        );
+        let largest = [rec("S1", D1, 10, 1, &[], Some(i64::MAX as u64))];
+        assert!(Batch::new(&largest).is_ok());
+    }
+
+    #[test]
+    fn a_batch_lists_its_distinct_keys_sites_and_lines() {
+        let mut with_product = rec("S1", D1, 10, 1, &[], None);
+        with_product.key = RecordKey::new(
+            SiteCode::parse("S1").expect("site"),
+            LineCode::parse("L1").expect("line"),
+            Some(ProductCode::parse("P1").expect("product")),
+            D1,
+        )
+        .expect("key");
+        let records = [
+            rec("S2", D1, 10, 1, &[], None),
+            rec("S1", D1, 10, 1, &[], None),
+            rec("S2", D1, 10, 2, &[], None),
+            with_product,
+        ];
+        let batch = Batch::new(&records).expect("batch");
+        let first_rows: Vec<usize> = batch.key_rows().map(|r| r.index).collect();
+        assert_eq!(first_rows, [0, 1, 3]);
+        assert_eq!(batch.rows()[1].key.product, "");
+        assert_eq!(batch.rows()[3].key.product, "P1");
+        assert_eq!(batch.sites(), ["S1", "S2"]);
+        assert_eq!(batch.lines(), [("S1", "L1"), ("S2", "L1")]);
+    }
+
+    #[test]
+    fn an_unknown_site_is_reported_before_its_line() {
+        let records = [
+            rec("S1", D1, 10, 1, &[], None),
+            rec("S9", D1, 10, 1, &[], None),
+            rec("S2", D1, 10, 1, &[], None),
+        ];
+        let batch = Batch::new(&records).expect("batch");
+        let errors = batch.unregistered(|s| s != "S9", |s, _| s == "S1");
+        assert_eq!(
+            errors,
+            [
+                RecordError {
+                    index: 1,
+                    problem: RecordProblem::UnknownSite {
+                        site: "S9".to_owned()
+                    }
+                },
+                RecordError {
+                    index: 2,
+                    problem: RecordProblem::UnknownLine {
+                        site: "S2".to_owned(),
+                        line: "L1".to_owned()
+                    }
+                },
+            ]
+        );
+        assert!(batch.unregistered(|_| true, |_, _| true).is_empty());
+    }
+
+    #[test]
+    fn a_negative_stored_plant_revision_is_an_internal_error() {
+        assert!(matches!(
+            Current::new(1, 10, 1, Some(-1)),
+            Err(StoreError::Internal(_))
+        ));
+        assert!(Current::new(1, 10, 1, Some(0)).is_ok());
+    }
+}
