@@ -14,15 +14,6 @@ use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::reports::{Aggregate, AggregateQuery};
 use crate::sites::{SiteWithLines, Upserted};
 
-/// Which database a URL names (see [`crate::backend_of`]).
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Backend {
-    /// An SQLite file (or memory).
-    Sqlite,
-    /// A PostgreSQL server (not built yet).
-    Postgres,
-}
-
 /// Row counts, for metrics and tests.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub struct StoreStats {

@@ -22,12 +22,12 @@ use sqlx::sqlite::{
 use sqlx::{Sqlite, Transaction};
 use time::OffsetDateTime;
 
-use crate::OpenOptions;
 use crate::counts::{
     BatchResult, CountFilter, CountPage, Idempotency, StoredAnswer, StoredRecord, WriteOutcome,
 };
 use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
+use crate::options::OpenOptions;
 use crate::reports::{Aggregate, AggregateQuery};
 use crate::sites::{SiteWithLines, Upserted};
 use crate::store::{Store, StoreStats};
