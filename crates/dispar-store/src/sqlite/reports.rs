@@ -12,7 +12,7 @@ use std::collections::BTreeMap;
 use dispar_core::code::{CategoryCode, LineCode, SiteCode};
 use sqlx::{QueryBuilder, Sqlite};
 
-use super::{SqliteStore, parse_code, to_u64};
+use super::db::{SqliteStore, parse_code, to_u64};
 use crate::error::StoreError;
 use crate::reports::{Aggregate, AggregateQuery, GroupTotals, Level};
 use crate::timestamp::{format_date, format_instant, format_month};

@@ -5,6 +5,3 @@ mod read;
 mod write;
 
 pub(super) use write::find_idempotent;
-
-/// Distinct keys (5 binds each) or ids per lookup query.
-const LOOKUP_CHUNK: usize = 500;

@@ -7,10 +7,9 @@ use dispar_core::record::{CountRecord, Counts, RecordKey};
 use sqlx::sqlite::SqliteConnection;
 use sqlx::{QueryBuilder, Sqlite};
 
-use super::LOOKUP_CHUNK;
 use crate::counts::{CountFilter, CountPage, MAX_PAGE, StoredRecord};
 use crate::error::StoreError;
-use crate::sqlite::{SqliteStore, parse_code, to_u64};
+use crate::sqlite::db::{LOOKUP_CHUNK, SqliteStore, parse_code, to_u64};
 use crate::timestamp::{format_date, parse_date, parse_instant};
 
 impl SqliteStore {

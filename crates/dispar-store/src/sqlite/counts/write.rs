@@ -17,12 +17,11 @@ use sqlx::sqlite::SqliteConnection;
 use sqlx::{QueryBuilder, Sqlite};
 use time::OffsetDateTime;
 
-use super::LOOKUP_CHUNK;
 use crate::counts::{BatchResult, Idempotency, StoredAnswer};
 use crate::error::{RecordError, StoreError};
 use crate::keys::KeyId;
 use crate::plan::{Batch, Current, Plan, plan_batch};
-use crate::sqlite::{SqliteStore, WriteTx, bump_data_version};
+use crate::sqlite::db::{LOOKUP_CHUNK, SqliteStore, WriteTx, bump_data_version};
 use crate::timestamp::{format_date, format_instant, format_month, next_instant, parse_instant};
 
 /// Rows per multi-row insert into `count_revisions` (10 binds each) and
