@@ -22,6 +22,9 @@
 //! `Unchanged` writes nothing. Within one batch a key may appear more than once; each
 //! record is checked against the state the earlier ones left.
 //!
+//! These rules belong to no backend: a private planner applies them to a batch and the
+//! current values a backend loaded, and the backend writes the plan.
+//!
 //! # SQLite
 //!
 //! WAL journal, `synchronous=FULL`, foreign keys on, a busy timeout, statement
@@ -33,11 +36,13 @@
 //!
 //! Reports over the current data read monthly sums (kept up to date by every write)
 //! for the whole months of a range and the daily rows for the days at its edges;
-//! `as_of` reports read the history. The schema is in `migrations/sqlite`.
+//! `as_of` reports read the history. The schema is in this crate's `migrations/sqlite`.
 
 mod counts;
 mod error;
 mod keys;
+mod options;
+mod plan;
 mod reports;
 mod sites;
 mod sqlite;
@@ -45,7 +50,6 @@ mod store;
 mod timestamp;
 
 use std::sync::Arc;
-use std::time::Duration;
 
 pub use crate::counts::{
     BatchOutcome, BatchResult, CountFilter, CountPage, Idempotency, MAX_PAGE, RenderAnswer,
@@ -53,37 +57,11 @@ pub use crate::counts::{
 };
 pub use crate::error::{RecordError, RecordProblem, StoreError};
 pub use crate::keys::{ApiKey, KeyId, KeyRole, UnknownRole};
+pub use crate::options::{Backend, OpenOptions, backend_of};
 pub use crate::reports::{Aggregate, AggregateQuery, GroupTotals, Level};
 pub use crate::sites::{SiteWithLines, Upserted};
 pub use crate::sqlite::SqliteStore;
-pub use crate::store::{Backend, Store, StoreStats};
-
-/// How to open a store.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct OpenOptions {
-    /// `sqlite:PATH`, `sqlite://PATH`, a plain file path, or `postgres://...`.
-    pub url: String,
-    /// Size of the read pool (SQLite).
-    pub read_connections: u32,
-    /// How long a statement waits for a lock held by another process before
-    /// [`StoreError::Busy`].
-    pub busy_timeout: Duration,
-    /// How long a write waits for the single writer connection before
-    /// [`StoreError::Busy`].
-    pub write_wait: Duration,
-}
-
-impl OpenOptions {
-    /// Defaults for `url`: 4 readers, 5 s busy timeout, 30 s wait for the writer.
-    pub fn new(url: impl Into<String>) -> Self {
-        Self {
-            url: url.into(),
-            read_connections: 4,
-            busy_timeout: Duration::from_secs(5),
-            write_wait: Duration::from_secs(30),
-        }
-    }
-}
+pub use crate::store::{Store, StoreStats};
 
 /// Opens (creating and migrating if needed) the store named by `url` with default
 /// options. See [`open_with`].
@@ -101,49 +79,5 @@ pub async fn open_with(options: &OpenOptions) -> Result<Arc<dyn Store>, StoreErr
         Backend::Postgres => Err(StoreError::Unsupported(
             "the PostgreSQL backend is not built yet; use an SQLite path or sqlite: URL".to_owned(),
         )),
-    }
-}
-
-/// Which backend a database URL names.
-pub fn backend_of(url: &str) -> Result<Backend, StoreError> {
-    let lower = url.to_ascii_lowercase();
-    if lower.starts_with("postgres://") || lower.starts_with("postgresql://") {
-        return Ok(Backend::Postgres);
-    }
-    if lower.starts_with("sqlite:") {
-        return Ok(Backend::Sqlite);
-    }
-    if let Some((scheme, _)) = lower.split_once("://") {
-        return Err(StoreError::Unsupported(format!(
-            "unknown database scheme {scheme:?}; use an SQLite path, sqlite: or postgres:// URL"
-        )));
-    }
-    if url.trim().is_empty() {
-        return Err(StoreError::Unsupported(
-            "the database URL is empty".to_owned(),
-        ));
-    }
-    Ok(Backend::Sqlite)
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn the_backend_is_chosen_by_url_scheme() {
-        let cases = [
-            ("dispar.db", Some(Backend::Sqlite)),
-            ("/var/lib/dispar/dispar.db", Some(Backend::Sqlite)),
-            ("sqlite:dispar.db", Some(Backend::Sqlite)),
-            ("sqlite:///tmp/x.db", Some(Backend::Sqlite)),
-            ("postgres://u@h/db", Some(Backend::Postgres)),
-            ("postgresql://u@h/db", Some(Backend::Postgres)),
-            ("mysql://u@h/db", None),
-            ("", None),
-        ];
-        for (url, want) in cases {
-            assert_eq!(backend_of(url).ok(), want, "{url}");
-        }
     }
 }

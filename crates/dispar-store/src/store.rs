@@ -14,15 +14,6 @@ use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::reports::{Aggregate, AggregateQuery};
 use crate::sites::{SiteWithLines, Upserted};
 
-/// Which database a store talks to.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Backend {
-    /// An SQLite file (or memory).
-    Sqlite,
-    /// A PostgreSQL server (not built yet).
-    Postgres,
-}
-
 /// Row counts, for metrics and tests.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub struct StoreStats {
@@ -45,9 +36,6 @@ pub struct StoreStats {
 /// on any error nothing of it is kept.
 #[async_trait]
 pub trait Store: Send + Sync + std::fmt::Debug {
-    /// Which backend this is.
-    fn backend(&self) -> Backend;
-
     /// Checks that the database answers (for `/readyz`).
     async fn ping(&self) -> Result<(), StoreError>;
 

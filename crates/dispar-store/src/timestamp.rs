@@ -49,6 +49,11 @@ pub(crate) fn format_date(d: Date) -> String {
     dispar_core::date::format_date(d)
 }
 
+/// Formats the month of a date as `YYYY-MM` (the key of the monthly sums).
+pub(crate) fn format_month(d: Date) -> String {
+    format!("{:04}-{:02}", d.year(), u8::from(d.month()))
+}
+
 /// Parses a stored production date.
 pub(crate) fn parse_date(s: &str) -> Result<Date, StoreError> {
     dispar_core::date::parse_iso_date(s)

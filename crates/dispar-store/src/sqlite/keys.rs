@@ -7,7 +7,7 @@ use sqlx::QueryBuilder;
 use sqlx::Sqlite;
 use time::OffsetDateTime;
 
-use super::{SqliteStore, parse_code};
+use super::db::{SqliteStore, parse_code};
 use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::timestamp::{format_instant, parse_instant};

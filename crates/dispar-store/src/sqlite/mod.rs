@@ -4,25 +4,25 @@
 //! WAL file. Every write transaction begins with `BEGIN IMMEDIATE`, so it takes the
 //! write lock before reading what it will decide on; another process holding the lock
 //! longer than the busy timeout gives [`StoreError::Busy`].
+//!
+//! [`db`] holds the pools and the helpers every table module shares; each table
+//! module adds the methods of its subject to [`SqliteStore`], and this module puts
+//! them behind the [`Store`] trait.
 
 mod counts;
+mod db;
 mod keys;
 mod reports;
 mod sites;
-
-use std::str::FromStr;
 
 use async_trait::async_trait;
 use dispar_core::code::SiteCode;
 use dispar_core::record::{CountRecord, RecordKey};
 use dispar_core::site::{Line, Site};
-use sqlx::sqlite::{
-    SqliteConnectOptions, SqliteJournalMode, SqlitePool, SqlitePoolOptions, SqliteSynchronous,
-};
-use sqlx::{Sqlite, Transaction};
 use time::OffsetDateTime;
 
-use crate::OpenOptions;
+pub use self::db::SqliteStore;
+use self::db::to_u64;
 use crate::counts::{
     BatchResult, CountFilter, CountPage, Idempotency, StoredAnswer, StoredRecord, WriteOutcome,
 };
@@ -30,101 +30,10 @@ use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::reports::{Aggregate, AggregateQuery};
 use crate::sites::{SiteWithLines, Upserted};
-use crate::store::{Backend, Store, StoreStats};
-
-/// The embedded SQLite migrations (`migrations/sqlite`).
-pub static MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("../../migrations/sqlite");
-
-/// A dispar store in one SQLite file.
-#[derive(Debug, Clone)]
-pub struct SqliteStore {
-    writer: SqlitePool,
-    reader: SqlitePool,
-}
-
-type WriteTx = Transaction<'static, Sqlite>;
-
-impl SqliteStore {
-    /// Opens (creating if missing) and migrates the database at `options.url` (a
-    /// `sqlite:` URL or a plain path). In-memory databases are refused: the writer and
-    /// the readers must share one file.
-    pub async fn open(options: &OpenOptions) -> Result<Self, StoreError> {
-        let url = options.url.trim();
-        if url.contains(":memory:") || url.contains("mode=memory") {
-            return Err(StoreError::Unsupported(
-                "in-memory SQLite is not supported (the writer and readers share one file); use a file path"
-                    .to_owned(),
-            ));
-        }
-        let base = if url.to_ascii_lowercase().starts_with("sqlite:") {
-            SqliteConnectOptions::from_str(url)?
-        } else {
-            SqliteConnectOptions::new().filename(url)
-        };
-        let base = base
-            .journal_mode(SqliteJournalMode::Wal)
-            .synchronous(SqliteSynchronous::Full)
-            .foreign_keys(true)
-            .busy_timeout(options.busy_timeout)
-            .pragma("temp_store", "MEMORY");
-        let writer = SqlitePoolOptions::new()
-            .max_connections(1)
-            .min_connections(1)
-            .acquire_timeout(options.write_wait)
-            .connect_with(base.clone().create_if_missing(true))
-            .await?;
-        MIGRATOR.run(&writer).await?;
-
-        let reader = SqlitePoolOptions::new()
-            .max_connections(options.read_connections.max(1))
-            .acquire_timeout(options.write_wait)
-            .connect_with(base.create_if_missing(false).pragma("query_only", "ON"))
-            .await?;
-        Ok(Self { writer, reader })
-    }
-
-    /// The read pool, for tests and diagnostics (`EXPLAIN QUERY PLAN`). Its
-    /// connections are `query_only`.
-    pub fn read_pool(&self) -> &SqlitePool {
-        &self.reader
-    }
-
-    /// Starts a write transaction with `BEGIN IMMEDIATE` on the single writer
-    /// connection.
-    async fn begin_write(&self) -> Result<WriteTx, StoreError> {
-        Ok(self.writer.begin_with("BEGIN IMMEDIATE").await?)
-    }
-}
-
-/// Bumps the data version (inside a write transaction that changed report input).
-async fn bump_data_version(tx: &mut WriteTx) -> Result<(), StoreError> {
-    sqlx::query("UPDATE store_state SET data_version = data_version + 1 WHERE id = 1")
-        .execute(&mut **tx)
-        .await?;
-    Ok(())
-}
-
-/// Converts a stored non-negative integer.
-fn to_u64(v: i64, what: &str) -> Result<u64, StoreError> {
-    u64::try_from(v).map_err(|_| StoreError::internal(format!("stored {what} {v} is negative")))
-}
-
-/// Parses a stored code of type `T`.
-fn parse_code<T>(s: &str) -> Result<T, StoreError>
-where
-    T: FromStr,
-    T::Err: std::fmt::Display,
-{
-    T::from_str(s)
-        .map_err(|e| StoreError::internal(format!("stored code {s:?} is unreadable: {e}")))
-}
+use crate::store::{Store, StoreStats};
 
 #[async_trait]
 impl Store for SqliteStore {
-    fn backend(&self) -> Backend {
-        Backend::Sqlite
-    }
-
     async fn ping(&self) -> Result<(), StoreError> {
         sqlx::query("SELECT 1").fetch_one(&self.reader).await?;
         Ok(())

@@ -12,10 +12,10 @@ use std::collections::BTreeMap;
 use dispar_core::code::{CategoryCode, LineCode, SiteCode};
 use sqlx::{QueryBuilder, Sqlite};
 
-use super::{SqliteStore, parse_code, to_u64};
+use super::db::{SqliteStore, parse_code, to_u64};
 use crate::error::StoreError;
 use crate::reports::{Aggregate, AggregateQuery, GroupTotals, Level};
-use crate::timestamp::{format_date, format_instant};
+use crate::timestamp::{format_date, format_instant, format_month};
 use time::{Date, Duration};
 
 /// Where one part of a date range is summed from.
@@ -57,10 +57,6 @@ fn split_range(from: Date, to: Date) -> Vec<Part> {
         parts.push(Part::Days(end + Duration::days(1), to));
     }
     parts
-}
-
-fn format_month(d: Date) -> String {
-    format!("{:04}-{:02}", d.year(), u8::from(d.month()))
 }
 
 /// The selected group columns and the GROUP BY columns of a level, qualified by

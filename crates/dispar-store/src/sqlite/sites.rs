@@ -3,7 +3,7 @@
 use dispar_core::code::SiteCode;
 use dispar_core::site::{Line, LineName, Site, SiteName, TimeZoneName};
 
-use super::{SqliteStore, bump_data_version, parse_code};
+use super::db::{SqliteStore, bump_data_version, parse_code};
 use crate::error::StoreError;
 use crate::sites::{SiteWithLines, Upserted};
 

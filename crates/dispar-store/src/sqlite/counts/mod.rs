@@ -1,0 +1,7 @@
+//! Count records in SQLite: batch writes (with the idempotency answers stored beside
+//! them) in [`write`], reads of current records and history in [`read`].
+
+mod read;
+mod write;
+
+pub(super) use write::find_idempotent;

@@ -1,0 +1,101 @@
+//! The connection pools of an SQLite store, and what every table module shares.
+
+use std::str::FromStr;
+
+use sqlx::sqlite::{
+    SqliteConnectOptions, SqliteJournalMode, SqlitePool, SqlitePoolOptions, SqliteSynchronous,
+};
+use sqlx::{Sqlite, Transaction};
+
+use crate::error::StoreError;
+use crate::options::OpenOptions;
+
+/// Distinct keys (5 binds each) or ids per lookup query.
+pub(super) const LOOKUP_CHUNK: usize = 500;
+
+/// The embedded SQLite migrations (this crate's `migrations/sqlite`).
+pub static MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("migrations/sqlite");
+
+/// A dispar store in one SQLite file.
+#[derive(Debug, Clone)]
+pub struct SqliteStore {
+    pub(super) writer: SqlitePool,
+    pub(super) reader: SqlitePool,
+}
+
+pub(super) type WriteTx = Transaction<'static, Sqlite>;
+
+impl SqliteStore {
+    /// Opens (creating if missing) and migrates the database at `options.url` (a
+    /// `sqlite:` URL or a plain path). In-memory databases are refused: the writer and
+    /// the readers must share one file.
+    pub async fn open(options: &OpenOptions) -> Result<Self, StoreError> {
+        let url = options.url.trim();
+        if url.contains(":memory:") || url.contains("mode=memory") {
+            return Err(StoreError::Unsupported(
+                "in-memory SQLite is not supported (the writer and readers share one file); use a file path"
+                    .to_owned(),
+            ));
+        }
+        let base = if url.to_ascii_lowercase().starts_with("sqlite:") {
+            SqliteConnectOptions::from_str(url)?
+        } else {
+            SqliteConnectOptions::new().filename(url)
+        };
+        let base = base
+            .journal_mode(SqliteJournalMode::Wal)
+            .synchronous(SqliteSynchronous::Full)
+            .foreign_keys(true)
+            .busy_timeout(options.busy_timeout)
+            .pragma("temp_store", "MEMORY");
+        let writer = SqlitePoolOptions::new()
+            .max_connections(1)
+            .min_connections(1)
+            .acquire_timeout(options.write_wait)
+            .connect_with(base.clone().create_if_missing(true))
+            .await?;
+        MIGRATOR.run(&writer).await?;
+
+        let reader = SqlitePoolOptions::new()
+            .max_connections(options.read_connections.max(1))
+            .acquire_timeout(options.write_wait)
+            .connect_with(base.create_if_missing(false).pragma("query_only", "ON"))
+            .await?;
+        Ok(Self { writer, reader })
+    }
+
+    /// The read pool, for tests and diagnostics (`EXPLAIN QUERY PLAN`). Its
+    /// connections are `query_only`.
+    pub fn read_pool(&self) -> &SqlitePool {
+        &self.reader
+    }
+
+    /// Starts a write transaction with `BEGIN IMMEDIATE` on the single writer
+    /// connection.
+    pub(super) async fn begin_write(&self) -> Result<WriteTx, StoreError> {
+        Ok(self.writer.begin_with("BEGIN IMMEDIATE").await?)
+    }
+}
+
+/// Bumps the data version (inside a write transaction that changed report input).
+pub(super) async fn bump_data_version(tx: &mut WriteTx) -> Result<(), StoreError> {
+    sqlx::query("UPDATE store_state SET data_version = data_version + 1 WHERE id = 1")
+        .execute(&mut **tx)
+        .await?;
+    Ok(())
+}
+
+/// Converts a stored non-negative integer.
+pub(super) fn to_u64(v: i64, what: &str) -> Result<u64, StoreError> {
+    u64::try_from(v).map_err(|_| StoreError::internal(format!("stored {what} {v} is negative")))
+}
+
+/// Parses a stored code of type `T`.
+pub(super) fn parse_code<T>(s: &str) -> Result<T, StoreError>
+where
+    T: FromStr,
+    T::Err: std::fmt::Display,
+{
+    T::from_str(s)
+        .map_err(|e| StoreError::internal(format!("stored code {s:?} is unreadable: {e}")))
+}
