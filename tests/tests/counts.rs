@@ -120,7 +120,7 @@ fn plant_revisions_out_of_order_are_refused_with_the_current_revision() {
     let p = late.problem(409, "stale-revision");
     assert_eq!(p["current_revision"], 2, "{p}");
     assert_eq!(p["errors"][0]["pointer"], "/revision", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "stale_revision", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "stale-revision", "{p}");
     assert_eq!(s.snapshot(), before, "a refused write changes nothing");
 
     // The same revision again with other counts: refused too.
@@ -175,7 +175,7 @@ fn a_record_for_an_unregistered_site_or_line_is_refused_naming_it() {
     );
     let p = r.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "site", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "unknown_site", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "unknown-site", "{p}");
     assert!(
         p["errors"][0]["message"].as_str().unwrap().contains("S9"),
         "{p}"
@@ -187,7 +187,7 @@ fn a_record_for_an_unregistered_site_or_line_is_refused_naming_it() {
     );
     let p = r.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "line", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "unknown_line", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "unknown-line", "{p}");
     assert!(
         p["errors"][0]["message"].as_str().unwrap().contains("L7"),
         "{p}"
@@ -205,7 +205,7 @@ fn bad_counts_are_refused_naming_every_field() {
         (
             "defective above inspected",
             json!({"inspected": 10, "defective": 11}),
-            vec![("/defective", "exceeds_inspected")],
+            vec![("/defective", "exceeds-inspected")],
         ),
         (
             "negative and missing",
@@ -215,7 +215,7 @@ fn bad_counts_are_refused_naming_every_field() {
         (
             "fraction",
             json!({"inspected": 10.5, "defective": 1}),
-            vec![("/inspected", "not_an_integer")],
+            vec![("/inspected", "not-an-integer")],
         ),
         (
             "bad category count",
@@ -225,12 +225,12 @@ fn bad_counts_are_refused_naming_every_field() {
         (
             "wrong type",
             json!({"inspected": [1], "defective": 1}),
-            vec![("/inspected", "invalid_type")],
+            vec![("/inspected", "invalid-type")],
         ),
         (
             "unknown field",
             json!({"inspected": 10, "defective": 1, "shift": "night"}),
-            vec![("/shift", "unknown_field")],
+            vec![("/shift", "unknown-field")],
         ),
     ];
     for (name, body, expected) in cases {
@@ -261,7 +261,7 @@ fn bad_counts_are_refused_naming_every_field() {
     );
     let p = bad_date.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "date", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "invalid_date", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "invalid-date", "{p}");
     assert_eq!(s.snapshot(), before);
 }
 
@@ -330,20 +330,20 @@ fn listing_parameters_are_checked() {
     let s = plant();
     let read = s.key("read", &[]);
     let cases = [
-        ("/v1/counts?limit=0", "limit", "out_of_range"),
-        ("/v1/counts?limit=1001", "limit", "out_of_range"),
-        ("/v1/counts?limit=ten", "limit", "out_of_range"),
-        ("/v1/counts?from=2026-13-01", "from", "invalid_date"),
+        ("/v1/counts?limit=0", "limit", "out-of-range"),
+        ("/v1/counts?limit=1001", "limit", "out-of-range"),
+        ("/v1/counts?limit=ten", "limit", "out-of-range"),
+        ("/v1/counts?from=2026-13-01", "from", "invalid-date"),
         (
             "/v1/counts?from=2026-03-05&to=2026-03-01",
             "to",
-            "before_from",
+            "before-from",
         ),
-        ("/v1/counts?cursor=not-a-cursor", "cursor", "invalid_cursor"),
+        ("/v1/counts?cursor=not-a-cursor", "cursor", "invalid-cursor"),
         (
             "/v1/counts?site=S1&colour=red",
             "colour",
-            "unknown_parameter",
+            "unknown-parameter",
         ),
     ];
     for (path, parameter, reason) in cases {

@@ -573,7 +573,7 @@ fn bad_parameters_are_one_422_naming_each_parameter() {
     assert_eq!(params(&r), ["site"]);
     let r = get(&s, &read, "/v1/reports?period=2026-03&colour=red");
     assert_eq!(params(&r), ["colour"]);
-    assert_eq!(r.json()["errors"][0]["reason"], "unknown_parameter");
+    assert_eq!(r.json()["errors"][0]["reason"], "unknown-parameter");
 }
 
 #[test]
@@ -588,7 +588,7 @@ fn an_unknown_site_is_a_clear_problem() {
         let r = get(&s, &read, path);
         let v = r.problem(422, "validation");
         assert_eq!(v["errors"][0]["parameter"], "site", "{path}: {v}");
-        assert_eq!(v["errors"][0]["reason"], "unknown_site", "{path}: {v}");
+        assert_eq!(v["errors"][0]["reason"], "unknown-site", "{path}: {v}");
         assert!(v["detail"].as_str().unwrap().contains("NOPE"), "{v}");
         // `If-None-Match: *` holds only when there is a current representation (RFC 9110
         // section 13.1.2), so it does not turn the problem into a 304.
@@ -702,17 +702,17 @@ fn a_series_gives_each_weeks_verdict() {
     bad(
         "/v1/reports/series?from=2026-W01&to=2026-06",
         "to",
-        "mixed_granularity",
+        "mixed-granularity",
     );
     bad(
         "/v1/reports/series?from=2026-W10&to=2026-W02",
         "to",
-        "reversed_range",
+        "reversed-range",
     );
     bad(
         "/v1/reports/series?from=2025-01-01&to=2026-06-30",
         "to",
-        "too_many_periods",
+        "too-many-periods",
     );
     let months = get(&s, &read, "/v1/reports/series?from=2026-01&to=2026-12").json();
     assert_eq!(months["granularity"], "month");
