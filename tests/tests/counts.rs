@@ -1,4 +1,4 @@
-//! One day's counts at its natural key, plant revisions in and out of order, the
+//! One day's counts at its natural key, client revisions in and out of order, the
 //! history, and the paginated listing.
 
 #![allow(clippy::unwrap_used)] // tests: a panic is the failure report
@@ -32,11 +32,9 @@ fn a_put_creates_a_record_then_reports_unchanged_and_corrected() {
     let same = s.request("PUT", DAY, Some(&ingest), Body::Json(body));
     assert_eq!(same.status, 200, "{}", same.text);
     assert_eq!(same.json()["outcome"], "unchanged");
-    assert_eq!(
-        same.json()["revision_id"],
-        v["revision_id"],
-        "no new revision"
-    );
+    assert!(v["sequence"].as_i64().is_some_and(|n| n >= 1), "{v}");
+    assert!(v.get("revision_id").is_none(), "renamed to sequence: {v}");
+    assert_eq!(same.json()["sequence"], v["sequence"], "no new revision");
 
     let fixed = s.request(
         "PUT",
@@ -46,6 +44,11 @@ fn a_put_creates_a_record_then_reports_unchanged_and_corrected() {
     );
     assert_eq!(fixed.status, 200, "{}", fixed.text);
     assert_eq!(fixed.json()["outcome"], "corrected");
+    let fixed_seq = fixed.json()["sequence"].as_i64().unwrap();
+    assert!(
+        fixed_seq > v["sequence"].as_i64().unwrap(),
+        "a correction gets a later sequence"
+    );
 
     let read = s.key("read", &[]);
     let current = s.request("GET", DAY, Some(&read), Body::None);
@@ -64,6 +67,11 @@ fn a_put_creates_a_record_then_reports_unchanged_and_corrected() {
     assert_eq!(revs[0]["defective"], 31);
     assert_eq!(revs[1]["number"], 2);
     assert_eq!(revs[1]["defective"], 30);
+    assert_eq!(revs[1]["sequence"], fixed_seq);
+    assert_eq!(
+        c["sequence"], fixed_seq,
+        "the current record is the correction"
+    );
 }
 
 #[test]
@@ -105,7 +113,7 @@ fn products_are_part_of_the_natural_key() {
 }
 
 #[test]
-fn plant_revisions_out_of_order_are_refused_with_the_current_revision() {
+fn client_revisions_out_of_order_are_refused_with_the_current_revision() {
     let s = plant();
     let ingest = s.key("ingest", &["S1"]);
     let put = |body: Value| s.request("PUT", DAY, Some(&ingest), Body::Json(body));
