@@ -455,6 +455,7 @@ fn the_text_layout_shows_every_group_under_the_glossary_headings() {
     let r = build_report(&req, &nist_lots());
     let text = r.to_text();
     for needle in [
+        "adjust holm, overdispersion estimate, min_difference 0.50 pp\n",
         "Verdict: Significant at α = 0.05: the defect rates differ",
         "Cramér's V",
         "lot4",

@@ -90,8 +90,8 @@ fn table(out: &mut String, header: &[&str], rows: &[Vec<String>]) {
 fn params_line(out: &mut String, p: &ParametersEcho) {
     let _ = write!(
         out,
-        "alpha {}, method {}, pairwise {}, adjust {}",
-        p.alpha, p.method, p.pairwise, p.adjust
+        "alpha {}, method {}, pairwise {}, adjust {}, overdispersion {}",
+        p.alpha, p.method, p.pairwise, p.adjust, p.overdispersion
     );
     if let Some(d) = p.min_difference {
         let _ = write!(out, ", min_difference {:.2} pp", d * 100.0);
