@@ -33,7 +33,7 @@ const bin = process.env.DISPAR_BIN || join(targetDir, 'release', 'dispar');
 const chromiumPath = process.env.CHROMIUM || '/usr/bin/chromium';
 const outDir = resolve(process.env.TEST_OUTPUT || join(root, 'test-output', 'browser'));
 
-// The demo scenario (demo-data/README.md): six plants; KES is flagged above the
+// The demo scenario (demo-data/README.md): six sites; KES is flagged above the
 // pooled rate in 2026-W15..W18 only, and the data end in 2026-W26.
 const SITES = ['KES', 'MRQ', 'ODW', 'SEM', 'TLG', 'VAL'];
 const DRIFT_WEEK = '2026-W16';
@@ -272,7 +272,7 @@ async function main() {
   assert.match(await page.locator('#flag-summary').innerText(), /MRQ\/L2 above/, 'the spike line is flagged');
   await page.screenshot({ path: join(outDir, 'report-lines-MRQ-2026-W09.png'), fullPage: true });
 
-  // The small plant's two lines need the exact test.
+  // The small site's two lines need the exact test.
   await page.goto(`${base}/report?period=${DRIFT_WEEK}&level=line&site=SEM`);
   await page.locator('#verdict').waitFor();
   assert.equal(await page.locator('table#groups tbody tr').count(), 2, 'SEM has two lines');

@@ -265,7 +265,7 @@ impl Server {
         self.request(method, path, Some(&admin), body)
     }
 
-    /// Every current record (all pages), as `(key, revision_id, inspected,
+    /// Every current record (all pages), as `(key, sequence, inspected,
     /// defective)` strings, to compare before and after a refused request.
     pub fn snapshot(&self) -> Vec<String> {
         let mut out = Vec::new();
@@ -280,12 +280,12 @@ impl Server {
             let v = page.json();
             for r in v["records"].as_array().expect("records") {
                 out.push(format!(
-                    "{}/{}/{}/{} rev {} = {} {} {} {}",
+                    "{}/{}/{}/{} seq {} = {} {} {} {}",
                     r["site"],
                     r["line"],
                     r["date"],
                     r["product"],
-                    r["revision_id"],
+                    r["sequence"],
                     r["inspected"],
                     r["defective"],
                     r["defects"],

@@ -36,7 +36,7 @@ fn malformed_json_is_400_with_the_position() {
             },
         );
         let p = r.problem(400, "malformed-body");
-        assert_eq!(p["errors"][0]["reason"], "invalid_json", "{p}");
+        assert_eq!(p["errors"][0]["reason"], "invalid-json", "{p}");
         assert!(
             p["errors"][0]["message"]
                 .as_str()
@@ -126,7 +126,7 @@ fn a_body_above_the_limit_is_413() {
     let p = s
         .as_admin("POST", "/v1/counts", Body::Csv(csv))
         .problem(413, "payload-too-large");
-    assert_eq!(p["errors"][0]["reason"], "too_large", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "too-large", "{p}");
     let big_json = json!({"inspected": 1, "defective": 0, "defects": {"x": "9".repeat(3000)}});
     s.as_admin("PUT", DAY, Body::Json(big_json))
         .problem(413, "payload-too-large");
@@ -175,7 +175,7 @@ fn unknown_fields_are_refused_naming_the_field() {
             .problem(422, "validation");
         assert_eq!(p["errors"][0]["pointer"], pointer, "{method} {path}: {p}");
         assert_eq!(
-            p["errors"][0]["reason"], "unknown_field",
+            p["errors"][0]["reason"], "unknown-field",
             "{method} {path}: {p}"
         );
     }

@@ -88,7 +88,7 @@ fn one_bad_row_rolls_back_the_whole_batch() {
     let r = s.as_admin("POST", "/v1/counts", Body::Json(bad));
     let p = r.problem(422, "validation");
     assert_eq!(p["errors"][0]["pointer"], "/records/1/defective", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "exceeds_inspected", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "exceeds-inspected", "{p}");
     assert_eq!(s.snapshot(), before, "no record of the batch was written");
 
     // Every record valid, but one names a line that is not registered.
@@ -114,8 +114,8 @@ fn one_bad_row_rolls_back_the_whole_batch() {
     assert_eq!(
         errors,
         vec![
-            ("/records/2/line".to_owned(), "unknown_line".to_owned()),
-            ("/records/3/site".to_owned(), "unknown_site".to_owned())
+            ("/records/2/line".to_owned(), "unknown-line".to_owned()),
+            ("/records/3/site".to_owned(), "unknown-site".to_owned())
         ],
         "{p}"
     );
@@ -166,9 +166,9 @@ fn shape_errors_name_every_bad_record() {
         .as_admin("POST", "/v1/counts", Body::Json(body))
         .problem(422, "validation");
     assert_eq!(p["errors"][0]["pointer"], "/records/1/colour", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "unknown_field", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "unknown-field", "{p}");
     assert_eq!(p["errors"][1]["pointer"], "/records/2/site", "{p}");
-    assert_eq!(p["errors"][1]["reason"], "invalid_type", "{p}");
+    assert_eq!(p["errors"][1]["reason"], "invalid-type", "{p}");
 
     let top = s.as_admin(
         "POST",
@@ -245,7 +245,7 @@ fn a_csv_batch_with_quoted_fields_crlf_and_defect_columns_is_read() {
     for (i, line) in [(0, 2), (1, 3)] {
         assert_eq!(p["errors"][i]["line"], line, "{p}");
         assert_eq!(p["errors"][i]["column"], "product", "{p}");
-        assert_eq!(p["errors"][i]["reason"], "invalid_character", "{p}");
+        assert_eq!(p["errors"][i]["reason"], "invalid-character", "{p}");
     }
     assert_eq!(s.snapshot(), before);
 }
@@ -278,9 +278,9 @@ fn csv_errors_name_the_file_line_and_column() {
     assert_eq!(
         errors,
         vec![
-            (2, "product".to_owned(), "invalid_character".to_owned()),
-            (5, "defective".to_owned(), "exceeds_inspected".to_owned()),
-            (6, "inspected".to_owned(), "not_a_number".to_owned()),
+            (2, "product".to_owned(), "invalid-character".to_owned()),
+            (5, "defective".to_owned(), "exceeds-inspected".to_owned()),
+            (6, "inspected".to_owned(), "not-a-number".to_owned()),
         ],
         "{p}"
     );
@@ -296,14 +296,14 @@ fn csv_errors_name_the_file_line_and_column() {
         .problem(422, "validation");
     assert_eq!(p["errors"][0]["line"], 3, "{p}");
     assert_eq!(p["errors"][0]["column"], "line", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "unknown_line", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "unknown-line", "{p}");
 
     let ragged = "site,line,date,inspected,defective\nS1,L1,2026-03-02,1\n";
     let p = s
         .as_admin("POST", "/v1/counts", Body::Csv(ragged.to_owned()))
         .problem(400, "malformed-body");
     assert_eq!(p["errors"][0]["line"], 2, "{p}");
-    assert_eq!(p["errors"][0]["reason"], "wrong_field_count", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "wrong-field-count", "{p}");
 
     let header = "site,line,day,inspected,defective\nS1,L1,2026-03-02,1,0\n";
     let p = s
@@ -311,7 +311,7 @@ fn csv_errors_name_the_file_line_and_column() {
         .problem(422, "validation");
     assert_eq!(p["errors"][0]["line"], 1, "{p}");
     assert_eq!(p["errors"][0]["column"], "day", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "unknown_column", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "unknown-column", "{p}");
     assert_eq!(p["errors"][1]["column"], "date", "{p}");
     assert_eq!(p["errors"][1]["reason"], "required", "{p}");
 
@@ -322,7 +322,7 @@ fn csv_errors_name_the_file_line_and_column() {
     let p = s
         .as_admin("POST", "/v1/counts", not_utf8)
         .problem(400, "malformed-body");
-    assert_eq!(p["errors"][0]["reason"], "invalid_utf8", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "invalid-utf8", "{p}");
     assert_eq!(
         s.snapshot(),
         before,
@@ -438,7 +438,7 @@ fn a_batch_above_the_record_limit_is_refused() {
             Body::Json(json!({"records": records})),
         )
         .problem(422, "validation");
-    assert_eq!(p["errors"][0]["reason"], "too_many", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "too-many", "{p}");
     assert_eq!(p["errors"][0]["pointer"], "/records", "{p}");
     assert!(s.snapshot().is_empty());
 }
@@ -465,7 +465,7 @@ fn a_body_of_millions_of_tiny_records_is_counted_not_held() {
             },
         )
         .problem(422, "validation");
-    assert_eq!(p["errors"][0]["reason"], "too_many", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "too-many", "{p}");
     assert!(
         p["errors"][0]["message"]
             .as_str()

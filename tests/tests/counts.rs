@@ -1,4 +1,4 @@
-//! One day's counts at its natural key, plant revisions in and out of order, the
+//! One day's counts at its natural key, client revisions in and out of order, the
 //! history, and the paginated listing.
 
 #![allow(clippy::unwrap_used)] // tests: a panic is the failure report
@@ -32,11 +32,9 @@ fn a_put_creates_a_record_then_reports_unchanged_and_corrected() {
     let same = s.request("PUT", DAY, Some(&ingest), Body::Json(body));
     assert_eq!(same.status, 200, "{}", same.text);
     assert_eq!(same.json()["outcome"], "unchanged");
-    assert_eq!(
-        same.json()["revision_id"],
-        v["revision_id"],
-        "no new revision"
-    );
+    assert!(v["sequence"].as_i64().is_some_and(|n| n >= 1), "{v}");
+    assert!(v.get("revision_id").is_none(), "renamed to sequence: {v}");
+    assert_eq!(same.json()["sequence"], v["sequence"], "no new revision");
 
     let fixed = s.request(
         "PUT",
@@ -46,6 +44,11 @@ fn a_put_creates_a_record_then_reports_unchanged_and_corrected() {
     );
     assert_eq!(fixed.status, 200, "{}", fixed.text);
     assert_eq!(fixed.json()["outcome"], "corrected");
+    let fixed_seq = fixed.json()["sequence"].as_i64().unwrap();
+    assert!(
+        fixed_seq > v["sequence"].as_i64().unwrap(),
+        "a correction gets a later sequence"
+    );
 
     let read = s.key("read", &[]);
     let current = s.request("GET", DAY, Some(&read), Body::None);
@@ -64,6 +67,11 @@ fn a_put_creates_a_record_then_reports_unchanged_and_corrected() {
     assert_eq!(revs[0]["defective"], 31);
     assert_eq!(revs[1]["number"], 2);
     assert_eq!(revs[1]["defective"], 30);
+    assert_eq!(revs[1]["sequence"], fixed_seq);
+    assert_eq!(
+        c["sequence"], fixed_seq,
+        "the current record is the correction"
+    );
 }
 
 #[test]
@@ -105,7 +113,7 @@ fn products_are_part_of_the_natural_key() {
 }
 
 #[test]
-fn plant_revisions_out_of_order_are_refused_with_the_current_revision() {
+fn client_revisions_out_of_order_are_refused_with_the_current_revision() {
     let s = plant();
     let ingest = s.key("ingest", &["S1"]);
     let put = |body: Value| s.request("PUT", DAY, Some(&ingest), Body::Json(body));
@@ -120,7 +128,7 @@ fn plant_revisions_out_of_order_are_refused_with_the_current_revision() {
     let p = late.problem(409, "stale-revision");
     assert_eq!(p["current_revision"], 2, "{p}");
     assert_eq!(p["errors"][0]["pointer"], "/revision", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "stale_revision", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "stale-revision", "{p}");
     assert_eq!(s.snapshot(), before, "a refused write changes nothing");
 
     // The same revision again with other counts: refused too.
@@ -175,7 +183,7 @@ fn a_record_for_an_unregistered_site_or_line_is_refused_naming_it() {
     );
     let p = r.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "site", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "unknown_site", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "unknown-site", "{p}");
     assert!(
         p["errors"][0]["message"].as_str().unwrap().contains("S9"),
         "{p}"
@@ -187,7 +195,7 @@ fn a_record_for_an_unregistered_site_or_line_is_refused_naming_it() {
     );
     let p = r.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "line", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "unknown_line", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "unknown-line", "{p}");
     assert!(
         p["errors"][0]["message"].as_str().unwrap().contains("L7"),
         "{p}"
@@ -205,7 +213,7 @@ fn bad_counts_are_refused_naming_every_field() {
         (
             "defective above inspected",
             json!({"inspected": 10, "defective": 11}),
-            vec![("/defective", "exceeds_inspected")],
+            vec![("/defective", "exceeds-inspected")],
         ),
         (
             "negative and missing",
@@ -215,7 +223,7 @@ fn bad_counts_are_refused_naming_every_field() {
         (
             "fraction",
             json!({"inspected": 10.5, "defective": 1}),
-            vec![("/inspected", "not_an_integer")],
+            vec![("/inspected", "not-an-integer")],
         ),
         (
             "bad category count",
@@ -225,12 +233,12 @@ fn bad_counts_are_refused_naming_every_field() {
         (
             "wrong type",
             json!({"inspected": [1], "defective": 1}),
-            vec![("/inspected", "invalid_type")],
+            vec![("/inspected", "invalid-type")],
         ),
         (
             "unknown field",
             json!({"inspected": 10, "defective": 1, "shift": "night"}),
-            vec![("/shift", "unknown_field")],
+            vec![("/shift", "unknown-field")],
         ),
     ];
     for (name, body, expected) in cases {
@@ -261,7 +269,7 @@ fn bad_counts_are_refused_naming_every_field() {
     );
     let p = bad_date.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "date", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "invalid_date", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "invalid-date", "{p}");
     assert_eq!(s.snapshot(), before);
 }
 
@@ -330,20 +338,20 @@ fn listing_parameters_are_checked() {
     let s = plant();
     let read = s.key("read", &[]);
     let cases = [
-        ("/v1/counts?limit=0", "limit", "out_of_range"),
-        ("/v1/counts?limit=1001", "limit", "out_of_range"),
-        ("/v1/counts?limit=ten", "limit", "out_of_range"),
-        ("/v1/counts?from=2026-13-01", "from", "invalid_date"),
+        ("/v1/counts?limit=0", "limit", "out-of-range"),
+        ("/v1/counts?limit=1001", "limit", "out-of-range"),
+        ("/v1/counts?limit=ten", "limit", "out-of-range"),
+        ("/v1/counts?from=2026-13-01", "from", "invalid-date"),
         (
             "/v1/counts?from=2026-03-05&to=2026-03-01",
             "to",
-            "before_from",
+            "before-from",
         ),
-        ("/v1/counts?cursor=not-a-cursor", "cursor", "invalid_cursor"),
+        ("/v1/counts?cursor=not-a-cursor", "cursor", "invalid-cursor"),
         (
             "/v1/counts?site=S1&colour=red",
             "colour",
-            "unknown_parameter",
+            "unknown-parameter",
         ),
     ];
     for (path, parameter, reason) in cases {

@@ -150,12 +150,12 @@ fn registry_input_errors_name_the_field_or_parameter() {
     let bad_code = s.as_admin("PUT", "/v1/sites/-bad", Body::Json(json!({"name": "x"})));
     let p = bad_code.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "site", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "invalid_character", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "invalid-character", "{p}");
 
     let unknown_site = s.as_admin("PUT", "/v1/sites/NOPE/lines/L1", Body::Json(json!({})));
     let p = unknown_site.problem(422, "validation");
     assert_eq!(p["errors"][0]["parameter"], "site", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "unknown_site", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "unknown-site", "{p}");
 
     let unknown_field = s.as_admin(
         "PUT",
@@ -164,7 +164,7 @@ fn registry_input_errors_name_the_field_or_parameter() {
     );
     let p = unknown_field.problem(422, "validation");
     assert_eq!(p["errors"][0]["pointer"], "/city", "{p}");
-    assert_eq!(p["errors"][0]["reason"], "unknown_field", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "unknown-field", "{p}");
 
     s.as_admin("GET", "/v1/sites/NOPE", Body::None)
         .problem(404, "not-found");

@@ -237,7 +237,7 @@ mod tests {
     fn a_bad_code_becomes_a_field_error_naming_the_kind() {
         let e = SiteCode::parse_field("a/b", "site").unwrap_err();
         assert_eq!(e.field, "site");
-        assert_eq!(e.reason, "invalid_character");
+        assert_eq!(e.reason, "invalid-character");
         assert!(e.message.starts_with("site code has '/'"), "{}", e.message);
     }
 

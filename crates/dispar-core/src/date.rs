@@ -91,11 +91,11 @@ mod tests {
     fn dates_outside_the_accepted_range_are_refused() {
         assert_eq!(
             parse_date_field("1999-12-31", "date").unwrap_err().reason,
-            "date_out_of_range"
+            "date-out-of-range"
         );
         assert_eq!(
             parse_date_field("2101-01-01", "date").unwrap_err().reason,
-            "date_out_of_range"
+            "date-out-of-range"
         );
         assert!(parse_date_field("2000-01-01", "date").is_ok());
         assert!(parse_date_field("2100-12-31", "date").is_ok());

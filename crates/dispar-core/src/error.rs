@@ -9,7 +9,7 @@ use serde::Serialize;
 
 /// Machine-readable reason codes used in [`FieldError::reason`].
 ///
-/// They are stable strings (snake_case) meant for clients; the wording for people is
+/// They are stable strings (kebab-case) meant for clients; the wording for people is
 /// in [`FieldError::message`].
 pub mod reason {
     /// A required field is missing.
@@ -17,29 +17,29 @@ pub mod reason {
     /// The value is empty.
     pub const EMPTY: &str = "empty";
     /// The value is longer than allowed.
-    pub const TOO_LONG: &str = "too_long";
+    pub const TOO_LONG: &str = "too-long";
     /// The value contains a character outside the allowed set.
-    pub const INVALID_CHARACTER: &str = "invalid_character";
+    pub const INVALID_CHARACTER: &str = "invalid-character";
     /// The value does not have the required shape (for example a time zone name).
-    pub const INVALID_FORMAT: &str = "invalid_format";
+    pub const INVALID_FORMAT: &str = "invalid-format";
     /// A date that is not `YYYY-MM-DD` or not a real calendar day.
-    pub const INVALID_DATE: &str = "invalid_date";
+    pub const INVALID_DATE: &str = "invalid-date";
     /// A date outside the accepted range (2000-01-01 ..= 2100-12-31).
-    pub const DATE_OUT_OF_RANGE: &str = "date_out_of_range";
+    pub const DATE_OUT_OF_RANGE: &str = "date-out-of-range";
     /// A count below zero.
     pub const NEGATIVE: &str = "negative";
     /// A number above the accepted maximum.
-    pub const TOO_LARGE: &str = "too_large";
+    pub const TOO_LARGE: &str = "too-large";
     /// Defective units exceed inspected units.
-    pub const EXCEEDS_INSPECTED: &str = "exceeds_inspected";
+    pub const EXCEEDS_INSPECTED: &str = "exceeds-inspected";
     /// More defect categories than allowed in one record.
-    pub const TOO_MANY_CATEGORIES: &str = "too_many_categories";
+    pub const TOO_MANY_CATEGORIES: &str = "too-many-categories";
     /// The same key appears twice.
     pub const DUPLICATE: &str = "duplicate";
     /// A value that is not a number where a number is required.
-    pub const NOT_A_NUMBER: &str = "not_a_number";
+    pub const NOT_A_NUMBER: &str = "not-a-number";
     /// A number with a fraction where a whole number is required.
-    pub const NOT_AN_INTEGER: &str = "not_an_integer";
+    pub const NOT_AN_INTEGER: &str = "not-an-integer";
 }
 
 /// One problem with one field of an input.

@@ -94,20 +94,20 @@ pub enum PeriodError {
 }
 
 impl PeriodError {
-    /// The machine-readable reason (see [`crate::error::reason`]; `reversed_range`,
-    /// `mixed_granularity` and `range_series` are specific to periods).
+    /// The machine-readable reason (see [`crate::error::reason`]; `reversed-range`,
+    /// `mixed-granularity` and `range-series` are specific to periods).
     pub fn reason(&self) -> &'static str {
         match self {
             PeriodError::Malformed(_) => reason::INVALID_FORMAT,
             PeriodError::YearOutOfRange(_)
             | PeriodError::MonthOutOfRange(_)
             | PeriodError::QuarterOutOfRange(_)
-            | PeriodError::WeekOutOfRange { .. } => "out_of_range",
+            | PeriodError::WeekOutOfRange { .. } => "out-of-range",
             PeriodError::InvalidDay(_) => reason::INVALID_DATE,
-            PeriodError::Reversed { .. } => "reversed_range",
+            PeriodError::Reversed { .. } => "reversed-range",
             PeriodError::TooLong { .. } => reason::TOO_LONG,
-            PeriodError::MixedGranularity { .. } => "mixed_granularity",
-            PeriodError::RangeSeries => "range_series",
+            PeriodError::MixedGranularity { .. } => "mixed-granularity",
+            PeriodError::RangeSeries => "range-series",
         }
     }
 
@@ -188,7 +188,7 @@ impl Serialize for DateRange {
 
 /// The kind of a period, which is also the step of a series.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize)]
-#[serde(rename_all = "snake_case")]
+#[serde(rename_all = "kebab-case")]
 pub enum Granularity {
     /// One day.
     Day,
@@ -602,22 +602,22 @@ mod tests {
     #[test]
     fn bad_periods_are_refused_with_a_reason() {
         let cases = [
-            ("2026-Q5", "out_of_range"),
-            ("2026-Q0", "out_of_range"),
-            ("2026-13", "out_of_range"),
-            ("2026-00", "out_of_range"),
-            ("2026-02-30", "invalid_date"),
-            ("1999", "out_of_range"),
-            ("2101-01", "out_of_range"),
-            ("2026-03-20..2026-03-01", "reversed_range"),
-            ("2010-01-01..2020-12-31", "too_long"),
-            ("2026-W1", "invalid_format"),
-            ("2026W11", "invalid_format"),
-            ("2026-3", "invalid_format"),
-            ("", "invalid_format"),
-            ("last week", "invalid_format"),
-            ("2026-03..2026-04", "invalid_format"),
-            ("+2026", "invalid_format"),
+            ("2026-Q5", "out-of-range"),
+            ("2026-Q0", "out-of-range"),
+            ("2026-13", "out-of-range"),
+            ("2026-00", "out-of-range"),
+            ("2026-02-30", "invalid-date"),
+            ("1999", "out-of-range"),
+            ("2101-01", "out-of-range"),
+            ("2026-03-20..2026-03-01", "reversed-range"),
+            ("2010-01-01..2020-12-31", "too-long"),
+            ("2026-W1", "invalid-format"),
+            ("2026W11", "invalid-format"),
+            ("2026-3", "invalid-format"),
+            ("", "invalid-format"),
+            ("last week", "invalid-format"),
+            ("2026-03..2026-04", "invalid-format"),
+            ("+2026", "invalid-format"),
         ];
         for (s, reason) in cases {
             let e = s.parse::<Period>().expect_err(s);

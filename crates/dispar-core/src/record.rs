@@ -27,7 +27,7 @@ pub const MAX_REVISION: u64 = i64::MAX as u64;
 
 /// A number as received, before checking: JSON integers, JSON floats or text (for
 /// example a CSV cell). Checking turns it into a `u64` or a field error with reason
-/// `not_a_number`, `not_an_integer`, `negative` or `too_large`.
+/// `not-a-number`, `not-an-integer`, `negative` or `too-large`.
 #[derive(Debug, Clone, PartialEq)]
 pub enum RawNumber {
     /// A JSON integer that fits `i64`.
@@ -618,8 +618,8 @@ pub struct CsvLayout {
 
 impl CsvLayout {
     /// Reads the header. Errors are on fields `header/<column>` (reasons
-    /// `duplicate`, `invalid_character`..., `unknown_column`) or `header` (reason
-    /// `missing_column`, naming the column).
+    /// `duplicate`, `invalid-character`..., `unknown-column`) or `header` (reason
+    /// `missing-column`, naming the column).
     pub fn from_header<S: AsRef<str>>(header: &[S]) -> Result<Self, ValidationError> {
         let mut c = Collector::new();
         let mut seen: HashMap<&str, usize> = HashMap::new();
@@ -645,7 +645,7 @@ impl CsvLayout {
                     }
                     None => c.push(FieldError::new(
                         field,
-                        "unknown_column",
+                        "unknown-column",
                         format!(
                             "unknown column {h:?}; columns are site, line, date, inspected, defective, product, revision and defect:<category>"
                         ),
@@ -668,7 +668,7 @@ impl CsvLayout {
             if at.is_none() {
                 c.push(FieldError::new(
                     "header",
-                    "missing_column",
+                    "missing-column",
                     format!("the header has no {name:?} column"),
                 ));
             }
@@ -698,12 +698,12 @@ impl CsvLayout {
 
     /// Turns one row's cells into a raw record, to be checked with
     /// [`CountRecord::try_from`]. A row with another number of cells than the header
-    /// is refused (reason `ragged_row`, field empty: the caller prefixes the row).
+    /// is refused (reason `ragged-row`, field empty: the caller prefixes the row).
     pub fn record<S: AsRef<str>>(&self, cells: &[S]) -> Result<CountRecordInput, FieldError> {
         if cells.len() != self.width {
             return Err(FieldError::new(
                 "",
-                "ragged_row",
+                "ragged-row",
                 format!(
                     "the row has {} fields but the header has {}",
                     cells.len(),
@@ -778,13 +778,13 @@ mod tests {
         assert_eq!(
             reasons(&e),
             [
-                ("site", "invalid_character"),
+                ("site", "invalid-character"),
                 ("line", "required"),
-                ("date", "invalid_date"),
+                ("date", "invalid-date"),
                 ("inspected", "negative"),
-                ("defective", "not_a_number"),
-                ("defects/bad cat", "invalid_character"),
-                ("defects/ok", "not_an_integer"),
+                ("defective", "not-a-number"),
+                ("defects/bad cat", "invalid-character"),
+                ("defects/ok", "not-an-integer"),
                 ("revision", "negative"),
             ]
         );
@@ -795,7 +795,7 @@ mod tests {
         let e =
             parse(r#"{"site":"S1","line":"L1","date":"2026-03-14","inspected":10,"defective":11}"#)
                 .unwrap_err();
-        assert_eq!(reasons(&e), [("defective", "exceeds_inspected")]);
+        assert_eq!(reasons(&e), [("defective", "exceeds-inspected")]);
     }
 
     #[test]
@@ -806,7 +806,7 @@ mod tests {
         .unwrap_err();
         assert_eq!(
             reasons(&e),
-            [("date", "date_out_of_range"), ("inspected", "too_large")]
+            [("date", "date-out-of-range"), ("inspected", "too-large")]
         );
 
         let many: BTreeMap<String, RawNumber> = (0..65)
@@ -822,7 +822,7 @@ mod tests {
             ..Default::default()
         };
         let e = CountRecord::try_from(input).unwrap_err();
-        assert_eq!(reasons(&e), [("defects", "too_many_categories")]);
+        assert_eq!(reasons(&e), [("defects", "too-many-categories")]);
     }
 
     #[test]
@@ -834,11 +834,11 @@ mod tests {
         assert_eq!(RawNumber::Float(12.0).to_count("n", MAX_COUNT), Ok(12));
         assert_eq!(n("-3").unwrap_err().reason, "negative");
         assert_eq!(n("").unwrap_err().reason, "required");
-        assert_eq!(n("12abc").unwrap_err().reason, "not_a_number");
-        assert_eq!(n("NaN").unwrap_err().reason, "not_a_number");
+        assert_eq!(n("12abc").unwrap_err().reason, "not-a-number");
+        assert_eq!(n("NaN").unwrap_err().reason, "not-a-number");
         assert_eq!(
             n("99999999999999999999999").unwrap_err().reason,
-            "too_large"
+            "too-large"
         );
     }
 
@@ -864,7 +864,7 @@ mod tests {
         assert_eq!(
             reasons(&e),
             [
-                ("/records/1/defective", "exceeds_inspected"),
+                ("/records/1/defective", "exceeds-inspected"),
                 ("/records/2", "duplicate")
             ]
         );
@@ -896,7 +896,7 @@ mod tests {
         let r = CountRecord::try_from(raw).unwrap();
         assert!(r.defects().is_empty());
         assert_eq!(r.revision, Some(4));
-        assert_eq!(layout.record(&["x"]).unwrap_err().reason, "ragged_row");
+        assert_eq!(layout.record(&["x"]).unwrap_err().reason, "ragged-row");
 
         let e =
             CsvLayout::from_header(&["site", "site", "date", "defect:a b", "colour"]).unwrap_err();
@@ -904,11 +904,11 @@ mod tests {
             reasons(&e),
             [
                 ("header/site", "duplicate"),
-                ("header/defect:a b", "invalid_character"),
-                ("header/colour", "unknown_column"),
-                ("header", "missing_column"),
-                ("header", "missing_column"),
-                ("header", "missing_column"),
+                ("header/defect:a b", "invalid-character"),
+                ("header/colour", "unknown-column"),
+                ("header", "missing-column"),
+                ("header", "missing-column"),
+                ("header", "missing-column"),
             ]
         );
     }
@@ -918,7 +918,7 @@ mod tests {
         let body: CountsInput =
             serde_json::from_str(r#"{"inspected":100,"defective":2,"defects":{"a/b":1}}"#).unwrap();
         let e = CountRecord::from_parts("S1", "L1", "2026-03-14", None, body).unwrap_err();
-        assert_eq!(reasons(&e), [("defects/a~1b", "invalid_character")]);
+        assert_eq!(reasons(&e), [("defects/a~1b", "invalid-character")]);
         let body: CountsInput = serde_json::from_str(r#"{"inspected":100,"defective":2}"#).unwrap();
         let r = CountRecord::from_parts("S1", "L1", "2026-03-14", Some("P1"), body).unwrap();
         assert_eq!(r.key.to_string(), "S1/L1/2026-03-14?product=P1");

@@ -315,7 +315,7 @@ mod tests {
             "Asia/1abc",
         ] {
             let e = TimeZoneName::parse_field(bad, "tz").unwrap_err();
-            assert_eq!(e.reason, "invalid_format", "{bad:?}");
+            assert_eq!(e.reason, "invalid-format", "{bad:?}");
         }
     }
 
@@ -334,9 +334,9 @@ mod tests {
         assert_eq!(
             fields,
             [
-                ("site", "invalid_character"),
+                ("site", "invalid-character"),
                 ("name", "empty"),
-                ("time_zone", "invalid_format")
+                ("time_zone", "invalid-format")
             ]
         );
     }

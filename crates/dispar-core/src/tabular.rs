@@ -35,8 +35,8 @@ pub struct InputError {
     pub line: u64,
     /// Column name (as in the header) when the problem is in one cell.
     pub field: Option<String>,
-    /// Machine-readable reason (see [`crate::error::reason`]; also `missing_column`,
-    /// `unknown_column`, `ragged_row`, `no_header`, `no_rows`, `too_many_groups`).
+    /// Machine-readable reason (see [`crate::error::reason`]; also `missing-column`,
+    /// `unknown-column`, `ragged-row`, `no-header`, `no-rows`, `too-many-groups`).
     pub reason: &'static str,
     /// Plain words.
     pub message: String,
@@ -157,7 +157,7 @@ fn header(rows: &[Row]) -> Result<&Row, InputErrors> {
         InputError::new(
             1,
             None,
-            "no_header",
+            "no-header",
             "the input is empty; the first line must be a header",
         )
         .into()
@@ -170,7 +170,7 @@ fn check_shape(rows: &[Row], width: usize, errors: &mut Errors) {
         errors.push(InputError::new(
             line,
             None,
-            "no_rows",
+            "no-rows",
             "there are no group rows after the header",
         ));
     }
@@ -178,7 +178,7 @@ fn check_shape(rows: &[Row], width: usize, errors: &mut Errors) {
         errors.push(InputError::new(
             rows.get(MAX_GROUPS + 1).map_or(0, |r| r.0),
             None,
-            "too_many_groups",
+            "too-many-groups",
             format!("more than {MAX_GROUPS} groups"),
         ));
     }
@@ -187,7 +187,7 @@ fn check_shape(rows: &[Row], width: usize, errors: &mut Errors) {
             errors.push(InputError::new(
                 *line,
                 None,
-                "ragged_row",
+                "ragged-row",
                 format!(
                     "the row has {} fields but the header has {width}",
                     cells.len()
@@ -259,7 +259,7 @@ pub fn parse_rates(rows: &[Row]) -> Result<Vec<RateRow>, InputErrors> {
             errors.push(InputError::new(
                 *hline,
                 None,
-                "missing_column",
+                "missing-column",
                 format!(
                     "the header has no {want:?} column; expected group,inspected,defective (use --table for a table of raw counts)"
                 ),
@@ -272,7 +272,7 @@ pub fn parse_rates(rows: &[Row]) -> Result<Vec<RateRow>, InputErrors> {
             errors.push(InputError::new(
                 *hline,
                 Some(&head[pos]),
-                "unknown_column",
+                "unknown-column",
                 "unexpected column; a rates file has exactly group,inspected,defective (use --table for a table of raw counts)",
             ));
         } else if seen_cols.insert(h.clone(), pos).is_some() {
@@ -325,7 +325,7 @@ pub fn parse_table(rows: &[Row]) -> Result<CountTable, InputErrors> {
         errors.push(InputError::new(
             *hline,
             None,
-            "missing_column",
+            "missing-column",
             "the header needs a group column and at least one outcome column",
         ));
         return errors.finish(empty_table());
@@ -424,10 +424,10 @@ mod tests {
             p,
             [
                 (2, f("defective"), "negative"),
-                (3, f("defective"), "exceeds_inspected"),
+                (3, f("defective"), "exceeds-inspected"),
                 (4, f("group"), "duplicate"),
-                (5, f("inspected"), "not_a_number"),
-                (6, None, "ragged_row"),
+                (5, f("inspected"), "not-a-number"),
+                (6, None, "ragged-row"),
                 (7, f("group"), "empty"),
             ]
         );
@@ -436,12 +436,12 @@ mod tests {
     #[test]
     fn a_rates_header_needs_its_three_columns() {
         let p = problems(parse_rates(&rows("group,pass,fail\nA,1,2\n")));
-        assert_eq!(p[0], (1, None, "missing_column"));
-        assert!(p.iter().any(|e| e.2 == "unknown_column"));
-        assert_eq!(problems(parse_rates(&[])), [(1, None, "no_header")]);
+        assert_eq!(p[0], (1, None, "missing-column"));
+        assert!(p.iter().any(|e| e.2 == "unknown-column"));
+        assert_eq!(problems(parse_rates(&[])), [(1, None, "no-header")]);
         assert_eq!(
             problems(parse_rates(&rows("group,inspected,defective\n"))),
-            [(2, None, "no_rows")]
+            [(2, None, "no-rows")]
         );
     }
 
@@ -457,13 +457,13 @@ mod tests {
             p,
             [
                 (1, f("a"), "duplicate"),
-                (2, f("a"), "not_an_integer"),
+                (2, f("a"), "not-an-integer"),
                 (3, f("site"), "duplicate")
             ]
         );
         assert_eq!(
             problems(parse_table(&rows("group\nA\n")))[0].2,
-            "missing_column"
+            "missing-column"
         );
     }
 }

@@ -69,12 +69,13 @@ pub struct AnalyzeArgs {
     /// Read a table of raw counts (`group,<outcome>,...`) instead of rates.
     #[arg(long)]
     pub table: bool,
-    /// Overdispersion: report (estimate phi, flag with the plain ANOM limit) or widen
-    /// (also widen the flag limit by sqrt(phi) when phi > 1).
-    #[arg(long, default_value = "report", value_name = "report|widen")]
+    /// Overdispersion: estimate (estimate phi, flag with the plain ANOM limit) or widen
+    /// (also widen the flag rule's limit by sqrt(phi) when phi > 1).
+    #[arg(long, default_value = "estimate", value_name = "estimate|widen")]
     pub overdispersion: DispersionChoice,
     /// Smallest difference in rates that matters, in rate units (0.005 = half a
-    /// percentage point); pairs are marked practically different only beyond it.
+    /// percentage point); a pair is beyond the minimum difference only when its whole
+    /// interval lies beyond it.
     #[arg(long, value_name = "RATE")]
     pub min_difference: Option<f64>,
 }
@@ -215,7 +216,7 @@ fn read_rows(bytes: &[u8]) -> Result<Vec<Row>, InputErrors> {
                 return Err(InputError {
                     line,
                     field: None,
-                    reason: "invalid_csv",
+                    reason: "invalid-csv",
                     message,
                 }
                 .into());

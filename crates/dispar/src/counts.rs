@@ -81,7 +81,7 @@ pub struct RecordView {
     inspected: u64,
     defective: u64,
     defects: serde_json::Map<String, serde_json::Value>,
-    /// The plant system's revision number, if it sent one.
+    /// The sending system's own revision number, if it sent one.
     revision: Option<u64>,
 }
 
@@ -104,12 +104,15 @@ impl From<&CountRecord> for RecordView {
     }
 }
 
-/// A stored record: the record, its revision id, when and by which key.
+/// A stored record: the record, the sequence number of its stored revision, when and by
+/// which key.
 #[derive(Debug, Serialize)]
 pub struct StoredView {
     #[serde(flatten)]
     record: RecordView,
-    revision_id: i64,
+    /// dispar's own number of this stored revision: unique in the store, never reused,
+    /// larger for later writes. Not the client's `revision`.
+    sequence: i64,
     recorded_at: String,
     api_key_id: Option<i64>,
 }
@@ -123,7 +126,7 @@ impl From<&StoredRecord> for StoredView {
     fn from(s: &StoredRecord) -> Self {
         Self {
             record: RecordView::from(&s.record),
-            revision_id: s.revision_id,
+            sequence: s.revision_id,
             recorded_at: rfc3339(s.recorded_at),
             api_key_id: s.api_key_id,
         }
@@ -143,7 +146,7 @@ struct DayWritten {
     outcome: &'static str,
     #[serde(flatten)]
     record: RecordView,
-    revision_id: i64,
+    sequence: i64,
 }
 
 async fn put_day(
@@ -178,7 +181,7 @@ async fn put_day(
     let body = DayWritten {
         outcome: outcome_word(outcome.status),
         record: view,
-        revision_id: outcome.revision_id,
+        sequence: outcome.revision_id,
     };
     let mut response = (status, Json(body)).into_response();
     if status == StatusCode::CREATED
@@ -372,7 +375,7 @@ async fn list_counts(
     {
         errors.push(FieldError::new(
             "to",
-            "before_from",
+            "before-from",
             format!(
                 "to ({}) is before from ({})",
                 format_date(t),
@@ -400,7 +403,7 @@ async fn list_counts(
                 "The cursor is not one this server gave out.",
                 vec![ErrorItem::parameter(
                     "cursor",
-                    "invalid_cursor",
+                    "invalid-cursor",
                     "use the next_cursor of a previous page, unchanged",
                 )],
             ),
@@ -429,7 +432,7 @@ fn parse_limit(s: &str) -> Result<u32, FieldError> {
         Some(n) if (1..=MAX_PAGE).contains(&n) => Ok(n),
         _ => Err(FieldError::new(
             "limit",
-            "out_of_range",
+            "out-of-range",
             format!("limit must be a whole number from 1 to {MAX_PAGE}, not {s:?}"),
         )),
     }
@@ -508,12 +511,12 @@ pub fn record_errors(e: StoreError, place: &Place) -> ApiError {
         .take(MAX_LISTED_ERRORS)
         .map(|RecordError { index, problem }| match problem {
             RecordProblem::UnknownSite { site } => {
-                place.item(index, "site", "unknown_site", format!("site {site} is not registered"))
+                place.item(index, "site", "unknown-site", format!("site {site} is not registered"))
             }
             RecordProblem::UnknownLine { site, line } => place.item(
                 index,
                 "line",
-                "unknown_line",
+                "unknown-line",
                 format!("line {line} is not registered at site {site}"),
             ),
             RecordProblem::Conflict {
@@ -521,13 +524,13 @@ pub fn record_errors(e: StoreError, place: &Place) -> ApiError {
             } => place.item(
                 index,
                 "revision",
-                "stale_revision",
+                "stale-revision",
                 format!(
                     "revision is not newer than the current revision {current_revision}, and the counts differ"
                 ),
             ),
             RecordProblem::OutOfRange { field } => {
-                place.item(index, &field, "too_large", format!("{field} is out of range"))
+                place.item(index, &field, "too-large", format!("{field} is out of range"))
             }
         })
         .collect();
@@ -658,7 +661,7 @@ fn check_batch_size(n: usize, max: usize, at: impl Fn() -> ErrorItem) -> Result<
         ("empty", "the batch holds no records".to_owned())
     } else if n > max {
         (
-            "too_many",
+            "too-many",
             format!("the batch holds {n} records; at most {max} are accepted per request"),
         )
     } else {
@@ -691,7 +694,7 @@ fn idempotency_key(headers: &HeaderMap) -> Result<Option<String>> {
             "The Idempotency-Key header is invalid.",
             vec![ErrorItem::header(
                 "idempotency-key",
-                "invalid_value",
+                "invalid-value",
                 message,
             )],
         )

@@ -44,7 +44,8 @@ pub enum ProblemKind {
     MethodNotAllowed,
     /// 406: the client accepts no representation we can produce.
     NotAcceptable,
-    /// 409: a plant revision older than (or equal to) the stored one, with other counts.
+    /// 409: a client revision number older than (or equal to) the stored one, with other
+    /// counts.
     StaleRevision,
     /// 413: the body is larger than the configured limit.
     PayloadTooLarge,
@@ -170,7 +171,7 @@ impl ProblemKind {
                 "The `Accept` header asks for a representation this endpoint cannot produce."
             }
             ProblemKind::StaleRevision => {
-                "The record carries a plant revision older than or equal to the stored one, with different counts. The member `current_revision` holds the stored plant revision. Nothing was written."
+                "The record carries a `revision` (the sending system's own number) older than or equal to the stored one, with different counts. The member `current_revision` holds the stored `revision`. Nothing was written."
             }
             ProblemKind::PayloadTooLarge => {
                 "The request body is larger than the server's limit (`dispar serve --max-body-bytes`). Split a batch into smaller ones."
@@ -240,7 +241,7 @@ pub struct ErrorItem {
     /// Column name of a CSV body.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub column: Option<String>,
-    /// Machine-readable reason (snake_case).
+    /// Machine-readable reason (kebab-case).
     pub reason: Cow<'static, str>,
     /// Plain words for a person.
     pub message: String,
@@ -583,7 +584,7 @@ mod tests {
             "bad",
             vec![ErrorItem::pointer(
                 "/records/3/defective",
-                "exceeds_inspected",
+                "exceeds-inspected",
                 "too many",
             )],
         )
@@ -594,7 +595,7 @@ mod tests {
         assert_eq!(b["status"], 422);
         assert_eq!(b["detail"], "bad");
         assert_eq!(b["errors"][0]["pointer"], "/records/3/defective");
-        assert_eq!(b["errors"][0]["reason"], "exceeds_inspected");
+        assert_eq!(b["errors"][0]["reason"], "exceeds-inspected");
         assert!(b["errors"][0].get("line").is_none());
         assert_eq!(b["current_revision"], 4);
     }

@@ -114,7 +114,7 @@ pub fn too_large() -> ApiError {
         "The request body is larger than this server accepts; send smaller batches.",
     )
     .with_error(ErrorItem::general(
-        "too_large",
+        "too-large",
         "the body exceeds the size limit",
     ))
 }
@@ -127,7 +127,7 @@ pub fn unsupported(content_type: Option<&str>, accepted: &str) -> ApiError {
     };
     ApiError::new(ProblemKind::UnsupportedMediaType, detail).with_error(ErrorItem::header(
         "content-type",
-        "unsupported_media_type",
+        "unsupported-media-type",
         format!("expected {accepted}"),
     ))
 }
@@ -195,7 +195,7 @@ fn not_an_object(pointer: String) -> ApiError {
 fn not_an_object_item(pointer: String) -> ErrorItem {
     ErrorItem::pointer(
         pointer,
-        "invalid_type",
+        "invalid-type",
         "invalid type: array, expected a JSON object",
     )
 }
@@ -234,7 +234,7 @@ fn json_error(pointer: String, e: serde_json::Error) -> ApiError {
                 ProblemKind::MalformedBody,
                 "The request body is not valid JSON.",
             )
-            .with_error(ErrorItem::pointer(pointer, "invalid_json", message))
+            .with_error(ErrorItem::pointer(pointer, "invalid-json", message))
         }
         Category::Data => {
             let item = data_error_item(pointer, &e);
@@ -260,7 +260,7 @@ fn data_error_item(pointer: String, e: &serde_json::Error) -> ErrorItem {
         let pointer = append_field(&pointer, &field);
         return ErrorItem::pointer(
             pointer,
-            "unknown_field",
+            "unknown-field",
             format!("{field:?} is not a field here ({message})"),
         );
     }
@@ -269,11 +269,11 @@ fn data_error_item(pointer: String, e: &serde_json::Error) -> ErrorItem {
         return ErrorItem::pointer(pointer, "required", format!("{field:?} is required"));
     }
     let reason = if message.starts_with("invalid type") {
-        "invalid_type"
+        "invalid-type"
     } else if message.starts_with("invalid length") {
-        "invalid_length"
+        "invalid-length"
     } else {
-        "invalid_value"
+        "invalid-value"
     };
     ErrorItem::pointer(pointer, reason, message)
 }
@@ -314,13 +314,13 @@ impl<S: Send + Sync, T: DeserializeOwned> FromRequestParts<S> for ApiQuery<T> {
             .map_err(|e| {
                 let message = e.to_string();
                 let item = if let Some(field) = backticked_after(&message, "unknown field ") {
-                    ErrorItem::parameter(field, "unknown_parameter", message)
+                    ErrorItem::parameter(field, "unknown-parameter", message)
                 } else if let Some(field) = backticked_after(&message, "duplicate field ") {
                     ErrorItem::parameter(field, "duplicate", message)
                 } else if let Some(field) = backticked_after(&message, "missing field ") {
                     ErrorItem::parameter(field, "required", message)
                 } else {
-                    ErrorItem::general("invalid_query", message)
+                    ErrorItem::general("invalid-query", message)
                 };
                 ApiError::validation("The query string has invalid parameters.", vec![item])
             })
@@ -361,7 +361,7 @@ mod tests {
         );
         assert_eq!(e.status().as_u16(), 422);
         assert_eq!(e.errors()[0].pointer.as_deref(), Some("/records/1/colour"));
-        assert_eq!(e.errors()[0].reason, "unknown_field");
+        assert_eq!(e.errors()[0].reason, "unknown-field");
     }
 
     #[test]
@@ -377,7 +377,7 @@ mod tests {
             e.errors()[0].pointer.as_deref(),
             Some("/records/0/inspected")
         );
-        assert_eq!(e.errors()[0].reason, "invalid_type");
+        assert_eq!(e.errors()[0].reason, "invalid-type");
     }
 
     #[test]
@@ -389,10 +389,10 @@ mod tests {
         }
         let e = err::<Site>(r#" ["Array Site"]"#);
         assert_eq!(e.status(), axum::http::StatusCode::UNPROCESSABLE_ENTITY);
-        assert_eq!(e.errors()[0].reason, "invalid_type");
+        assert_eq!(e.errors()[0].reason, "invalid-type");
         let item = from_value::<Site>(serde_json::json!(["x"]), "/records/2")
             .expect_err("an array is not a record");
-        assert_eq!(item.reason, "invalid_type");
+        assert_eq!(item.reason, "invalid-type");
         assert_eq!(item.pointer.as_deref(), Some("/records/2"));
     }
 
@@ -400,7 +400,7 @@ mod tests {
     fn syntax_errors_are_400_with_a_position() {
         let e = err::<Batch>(r#"{"records": [}"#);
         assert_eq!(e.status().as_u16(), 400);
-        assert_eq!(e.errors()[0].reason, "invalid_json");
+        assert_eq!(e.errors()[0].reason, "invalid-json");
         assert!(e.errors()[0].message.contains("line 1"), "{:?}", e.errors());
         let e = err::<Batch>(r#"{"records": []} trailing"#);
         assert_eq!(e.status().as_u16(), 400);

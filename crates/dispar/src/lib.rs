@@ -174,7 +174,7 @@ pub fn store_error(e: StoreError) -> ApiError {
         StoreError::NotFound { what, key } => ApiError::not_found(format!("There is no {what} {key}.")),
         StoreError::UnknownSite { site } => ApiError::validation(
             format!("Site {site} is not registered."),
-            vec![ErrorItem::parameter("site", "unknown_site", format!("site {site} is not registered"))],
+            vec![ErrorItem::parameter("site", "unknown-site", format!("site {site} is not registered"))],
         ),
         StoreError::Rejected(_) => counts::record_errors(e, &counts::Place::Url),
         StoreError::IdempotencyMismatch => ApiError::new(
@@ -188,7 +188,7 @@ pub fn store_error(e: StoreError) -> ApiError {
         )),
         StoreError::BadCursor => ApiError::validation(
             "The cursor is not one this server gave out.",
-            vec![ErrorItem::parameter("cursor", "invalid_cursor", "use next_cursor unchanged")],
+            vec![ErrorItem::parameter("cursor", "invalid-cursor", "use next_cursor unchanged")],
         ),
         StoreError::Constraint { name } => {
             tracing::warn!(constraint = %name, "a database constraint refused a value the domain accepted");

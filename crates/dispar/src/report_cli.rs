@@ -62,8 +62,9 @@ pub struct ReportArgs {
     /// Smallest difference in rates that matters, in rate units (0.005 = half a point).
     #[arg(long, value_name = "RATE")]
     min_difference: Option<String>,
-    /// Overdispersion: report or widen.
-    #[arg(long, value_name = "report|widen")]
+    /// Overdispersion: estimate (estimate phi and say so) or widen (also widen the
+    /// flag rule's limit by sqrt(phi) when phi > 1).
+    #[arg(long, value_name = "estimate|widen")]
     overdispersion: Option<String>,
     /// Use the data as they stood at this RFC 3339 instant (e.g. 2026-04-01T00:00:00Z).
     #[arg(long, value_name = "TIMESTAMP")]

@@ -150,7 +150,7 @@ async fn put_line(
                 ),
                 vec![ErrorItem::parameter(
                     "site",
-                    "unknown_site",
+                    "unknown-site",
                     format!("site {site} is not registered"),
                 )],
             ),

@@ -14,8 +14,8 @@ use dispar_stats::table::Table;
 use dispar_stats::{NotTestable, NotTestableReason};
 
 use super::model::{
-    CategoryReport, CategoryTotal, CellRow, Ci, Excluded, Flag, Flagged, GroupRow, Margin,
-    NotTestableNote, OverdispersionNote, PairRow, ParametersEcho, Report, SeriesPoint,
+    CategoryReport, CategoryTotal, CellRow, Ci, Excluded, Flag, FlagRule, Flagged, GroupRow,
+    Margin, NotTestableNote, OverdispersionNote, PairRow, ParametersEcho, Report, SeriesPoint,
     TableAnalysis, TableReport, Test, Totals, ValidityNotes,
 };
 use super::params::{
@@ -28,7 +28,7 @@ use crate::tabular::{CountTable, RateRow};
 /// groups); the flagged contributors give the overview instead.
 pub const MAX_PAIRWISE_GROUPS: usize = 200;
 
-/// From this many units inspected (with Cramer's V below 0.1 and no minimum difference
+/// From this many units inspected (with Cramér's V below 0.1 and no minimum difference
 /// given), a significant result carries a caution that small differences become
 /// significant at large volumes.
 pub const LARGE_VOLUME: u64 = 100_000;
@@ -39,10 +39,10 @@ pub const NO_UNITS: &str = "no units inspected";
 /// One group's aggregated counts over the period (a site, or a site's line).
 #[derive(Debug, Clone, PartialEq, Eq, Default)]
 pub struct GroupCounts {
-    /// Key shown as `name`: a site code, `site/line`, or a name from a file.
-    pub name: String,
-    /// Display name, if any.
-    pub label: Option<String>,
+    /// The group's code: a site code, `site/line`, or a name from a file.
+    pub code: String,
+    /// The site's or line's name, if any.
+    pub name: Option<String>,
     /// Units inspected.
     pub inspected: u64,
     /// Units defective (`<= inspected`; a group breaking this is excluded).
@@ -80,7 +80,7 @@ pub const CAUTIONS: [&str; 4] = [
     "A statistically significant difference is evidence that the groups differ, not a root cause; find the cause before acting.",
     "No significant difference is not proof that the groups are equal: small samples can hide real differences.",
     "Every rate is shown with the units behind it and its interval; a rate from few units is uncertain.",
-    "Containment and release decisions follow the plant's quality procedures and the regulations that apply (for example for safety-critical products), not this report alone.",
+    "Containment and release decisions follow the site's quality procedures and the regulations that apply (for example for safety-critical products), not this report alone.",
 ];
 
 fn options(p: &Parameters) -> Options {
@@ -107,7 +107,7 @@ fn options(p: &Parameters) -> Options {
         resamples: p.resamples,
         min_difference: p.min_difference,
         dispersion: match p.overdispersion {
-            DispersionChoice::Report => Dispersion::Report,
+            DispersionChoice::Estimate => Dispersion::Report,
             DispersionChoice::Widen => Dispersion::Widen,
         },
         ..Options::default()
@@ -169,11 +169,11 @@ fn method_code(t: TestUsed) -> &'static str {
 
 fn test_of(a: &Analysis, alpha: f64, between: &str, subject: &str) -> Test {
     let p = p_words(a.p, a.log10_p);
-    let decision = if a.reject {
-        format!("The {subject} differ between the {between} (p = {p}, below alpha = {alpha}).")
+    let verdict = if a.reject {
+        format!("Significant at α = {alpha}: the {subject} differ between the {between} (p = {p}).")
     } else {
         format!(
-            "No statistically significant difference in {subject} between the {between} at alpha = {alpha} (p = {p}); this is not proof that they are equal."
+            "Not significant at α = {alpha}: the {subject} do not differ significantly between the {between} (p = {p}); this is not proof that they are equal."
         )
     };
     Test {
@@ -186,8 +186,8 @@ fn test_of(a: &Analysis, alpha: f64, between: &str, subject: &str) -> Test {
         p_std_error: a.monte_carlo.map(|m| m.std_error),
         resamples: a.monte_carlo.map(|m| m.resamples),
         critical_value: a.critical_value,
-        reject: a.reject,
-        decision,
+        significant: a.reject,
+        verdict,
         cramers_v: a.cramers_v,
         cramers_v_corrected: a.cramers_v_corrected,
     }
@@ -273,11 +273,13 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
     for g in groups {
         if g.inspected == 0 {
             excluded.push(Excluded {
+                code: g.code.clone(),
                 name: g.name.clone(),
                 reason: NO_UNITS.to_owned(),
             });
         } else if g.defective > g.inspected {
             excluded.push(Excluded {
+                code: g.code.clone(),
                 name: g.name.clone(),
                 reason: format!(
                     "defective ({}) exceeds inspected ({})",
@@ -294,7 +296,7 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
     let defective = saturating_sum(used.iter().map(|g| g.defective));
     let pooled = ratio(defective, inspected);
     let totals = Totals {
-        groups: used.len(),
+        group_count: used.len(),
         inspected,
         defective,
         rate: pooled,
@@ -325,8 +327,9 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
         test: None,
         validity: None,
         groups: Vec::new(),
-        pairwise: Vec::new(),
+        pairs: Vec::new(),
         flagged: Vec::new(),
+        flag_rule: None,
         overdispersion: None,
         categories: categories(&used, &opts, between),
         excluded,
@@ -342,8 +345,8 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
             report.groups = used
                 .iter()
                 .map(|g| GroupRow {
+                    code: g.code.clone(),
                     name: g.name.clone(),
-                    label: g.label.clone(),
                     inspected: g.inspected,
                     defective: g.defective,
                     rate: ratio(g.defective, g.inspected),
@@ -378,8 +381,8 @@ fn fill_from_analysis(
         .map(|s| {
             let g = used[s.index];
             GroupRow {
+                code: g.code.clone(),
                 name: g.name.clone(),
-                label: g.label.clone(),
                 inspected: s.inspected,
                 defective: s.defective,
                 rate: s.rate,
@@ -400,6 +403,7 @@ fn fill_from_analysis(
         .iter()
         .filter_map(|g| {
             Some(Flagged {
+                code: g.code.clone(),
                 name: g.name.clone(),
                 flag: g.flag?,
                 rate: g.rate,
@@ -411,15 +415,15 @@ fn fill_from_analysis(
     flagged.sort_by(|x, y| {
         y.share_of_statistic
             .total_cmp(&x.share_of_statistic)
-            .then_with(|| x.name.cmp(&y.name))
+            .then_with(|| x.code.cmp(&y.code))
     });
     report.flagged = flagged;
-    report.pairwise = ra
+    report.pairs = ra
         .pairwise
         .iter()
         .map(|p| PairRow {
-            a: used[p.a].name.clone(),
-            b: used[p.b].name.clone(),
+            a: used[p.a].code.clone(),
+            b: used[p.b].code.clone(),
             method: match p.method {
                 PairTest::Pearson => "pearson",
                 PairTest::PearsonYates => "pearson-yates",
@@ -431,39 +435,41 @@ fn fill_from_analysis(
             p_value: p.p,
             log10_p: p.log10_p,
             p_adjusted: p.p_adjusted,
-            reject: p.reject,
-            practically_different: p.practically_different,
+            significant: p.reject,
+            beyond_min_difference: p.practically_different,
         })
         .collect();
     let o = ra.overdispersion;
     let widened = ra.limit > ra.anom.h;
     let note = if !o.applied {
         format!(
-            "Overdispersion phi = {:.3} over {} {between}: no more variation between them than binomial sampling explains.",
+            "phi = {:.3} over {} {between}: no more variation between them than binomial sampling explains.",
             o.phi, o.k
         )
     } else if widened {
         format!(
-            "Overdispersion phi = {:.3} over {} {between}: they vary more than binomial sampling explains, so the flag limit was widened by sqrt(phi) = {:.3}.",
+            "phi = {:.3} over {} {between}: they vary more than binomial sampling explains, so the flag rule's limit was widened by sqrt(phi) = {:.3}.",
             o.phi, o.k, o.scale
         )
     } else {
         format!(
-            "Overdispersion phi = {:.3} over {} {between}: they vary more than binomial sampling explains; the flag limit was not widened (the overdispersion choice 'widen' would widen it by sqrt(phi) = {:.3}).",
+            "phi = {:.3} over {} {between}: they vary more than binomial sampling explains; the flag rule's limit was not widened (overdispersion=widen would widen it by sqrt(phi) = {:.3}).",
             o.phi, o.k, o.scale
         )
     };
+    report.flag_rule = Some(FlagRule {
+        method: match ra.anom.method {
+            AnomMethod::Exact => "exact",
+            AnomMethod::SidakBound => "sidak-bound",
+        },
+        critical_value: ra.anom.h,
+        limit: ra.limit,
+    });
     report.overdispersion = Some(OverdispersionNote {
         phi: o.phi,
         present: o.applied,
         applied: widened,
         tau_squared: ra.tau_squared,
-        anom_critical: ra.anom.h,
-        anom_method: match ra.anom.method {
-            AnomMethod::Exact => "exact",
-            AnomMethod::SidakBound => "sidak-bound",
-        },
-        flag_limit: ra.limit,
         note,
     });
     if let Some(mc) = a.monte_carlo {
@@ -478,7 +484,7 @@ fn fill_from_analysis(
         && report.parameters.min_difference.is_none()
     {
         cautions.push(format!(
-            "With {} units inspected, even small differences are statistically significant (Cramer's V = {:.3}); judge the rate differences and their intervals, or give a minimum difference of interest.",
+            "With {} units inspected, even small differences are statistically significant (Cramér's V = {:.3}); judge the rate differences and their intervals, or give a minimum difference of interest.",
             report.totals.inspected, a.cramers_v
         ));
     }
@@ -507,7 +513,7 @@ fn categories(used: &[&GroupCounts], opts: &Options, between: &str) -> Option<Ca
                 .collect()
         })
         .collect();
-    let row_names: Vec<String> = used.iter().map(|g| g.name.clone()).collect();
+    let row_names: Vec<String> = used.iter().map(|g| g.code.clone()).collect();
     let col_names: Vec<String> = names.iter().map(|s| (*s).to_owned()).collect();
     let association = table_analysis(&row_names, &col_names, &rows, opts, between, "defect mixes");
     let mut cat_totals: Vec<CategoryTotal> = totals
@@ -548,7 +554,7 @@ fn table_analysis(
     let margin = |names: &[String], totals: &[u64], keep: &[usize]| -> Vec<Margin> {
         keep.iter()
             .map(|&i| Margin {
-                name: names[i].clone(),
+                code: names[i].clone(),
                 total: totals[i],
             })
             .collect()
@@ -557,7 +563,8 @@ fn table_analysis(
     for (i, t) in row_totals.iter().enumerate() {
         if *t == 0 {
             excluded.push(Excluded {
-                name: row_names[i].clone(),
+                code: row_names[i].clone(),
+                name: None,
                 reason: "no counts in this row".to_owned(),
             });
         }
@@ -565,7 +572,8 @@ fn table_analysis(
     for (i, t) in col_totals.iter().enumerate() {
         if *t == 0 {
             excluded.push(Excluded {
-                name: col_names[i].clone(),
+                code: col_names[i].clone(),
+                name: None,
                 reason: "no counts in this column".to_owned(),
             });
         }
@@ -637,8 +645,8 @@ pub fn analyze_rates(params: &Parameters, rows: &[RateRow]) -> Report {
     let groups: Vec<GroupCounts> = rows
         .iter()
         .map(|r| GroupCounts {
-            name: r.name.clone(),
-            label: None,
+            code: r.name.clone(),
+            name: None,
             inspected: r.inspected,
             defective: r.defective,
             defects: BTreeMap::new(),

@@ -3,7 +3,7 @@
 //!
 //! - [`params`]: the words callers use (`method=auto|pearson|g|exact`,
 //!   `pairwise=auto|pearson|pearson-yates|fisher`, `adjust=holm|bonferroni|hochberg|bh`,
-//!   `level=site|line|all-lines`, `overdispersion=report|widen`) and [`Parameters`];
+//!   `level=site|line|all-lines`, `overdispersion=estimate|widen`) and [`Parameters`];
 //! - [`build`]: the pure builder ([`build_report`], [`analyze_rates`], [`analyze_table`]);
 //! - [`model`]: the report's fields (what the JSON holds);
 //! - [`text`]: `Report::to_text()` and `TableReport::to_text()`.

@@ -2,6 +2,9 @@
 //! `dispar analyze --format json` print. Field names shared with `dispar analyze` are
 //! the same in both.
 //!
+//! Names follow the glossary in the project's DEVELOPERS.md: a group is identified by
+//! `code` and shown by `name`; pairs refer to codes; string values are kebab-case.
+//!
 //! Floating-point fields are finite by construction; they serialize through
 //! [`num`]/[`opt_num`], which check that in debug builds (a non-finite value would
 //! otherwise turn silently into JSON `null`).
@@ -41,7 +44,7 @@ pub struct Ci {
 
 /// Direction of a flagged group relative to the pooled rate.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
-#[serde(rename_all = "snake_case")]
+#[serde(rename_all = "kebab-case")]
 pub enum Flag {
     /// Rate significantly above the pooled rate.
     Above,
@@ -87,14 +90,14 @@ pub struct Test {
     /// Chi-square critical value for alpha on `df` degrees of freedom.
     #[serde(serialize_with = "num")]
     pub critical_value: f64,
-    /// True when `p_value < alpha`.
-    pub reject: bool,
-    /// The verdict in plain words.
-    pub decision: String,
-    /// Cramer's V.
+    /// True when `p_value < alpha`: significant at alpha.
+    pub significant: bool,
+    /// The verdict in plain words ("Significant at α = 0.05: ...").
+    pub verdict: String,
+    /// Cramér's V.
     #[serde(serialize_with = "num")]
     pub cramers_v: f64,
-    /// Bias-corrected Cramer's V (Bergsma 2013).
+    /// Bias-corrected Cramér's V (Bergsma 2013).
     #[serde(serialize_with = "num")]
     pub cramers_v_corrected: f64,
 }
@@ -123,11 +126,10 @@ pub struct ValidityNotes {
 /// One compared group.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct GroupRow {
-    /// The group's key: a site code, `site/line`, or a name from the input file.
-    pub name: String,
-    /// Display name, when the group has one.
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub label: Option<String>,
+    /// The group's identifier: a site code, `site/line`, or a name from the input file.
+    pub code: String,
+    /// The site's or line's name, or null when it has none.
+    pub name: Option<String>,
     /// Units inspected.
     pub inspected: u64,
     /// Units defective.
@@ -148,7 +150,7 @@ pub struct GroupRow {
     /// when there is no test).
     #[serde(serialize_with = "opt_num")]
     pub adjusted_residual: Option<f64>,
-    /// `above`/`below` when |adjusted residual| exceeds the flag limit, else null.
+    /// `above`/`below` when |adjusted residual| exceeds the flag rule's limit, else null.
     pub flag: Option<Flag>,
     /// `contribution` / X^2, in [0, 1] (null when there is no test).
     #[serde(serialize_with = "opt_num")]
@@ -158,9 +160,9 @@ pub struct GroupRow {
 /// One pairwise follow-up.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct PairRow {
-    /// First group's name.
+    /// First group's code.
     pub a: String,
-    /// Second group's name.
+    /// Second group's code.
     pub b: String,
     /// `pearson`, `pearson-yates` or `fisher`.
     pub method: &'static str,
@@ -181,19 +183,21 @@ pub struct PairRow {
     /// Adjusted p-value.
     #[serde(serialize_with = "num")]
     pub p_adjusted: f64,
-    /// True when `p_adjusted < alpha`.
-    pub reject: bool,
+    /// True when `p_adjusted < alpha`: significant at alpha.
+    pub significant: bool,
     /// With a minimum difference of interest: true when the whole interval of the
     /// difference lies beyond it (|difference| surely larger); absent otherwise.
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub practically_different: Option<bool>,
+    pub beyond_min_difference: Option<bool>,
 }
 
 /// A flagged contributor.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Flagged {
-    /// Group name.
-    pub name: String,
+    /// The group's code.
+    pub code: String,
+    /// The group's name, or null.
+    pub name: Option<String>,
     /// Above or below the pooled rate.
     pub flag: Flag,
     /// The group's rate.
@@ -207,7 +211,22 @@ pub struct Flagged {
     pub share_of_statistic: f64,
 }
 
-/// Flagging rule and overdispersion.
+/// The flag rule: a group is flagged when |adjusted residual| exceeds `limit`.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FlagRule {
+    /// How the ANOM critical value was obtained: `exact`, or `sidak-bound`
+    /// (conservative fallback).
+    pub method: &'static str,
+    /// The ANOM critical value h(alpha, k) before any widening.
+    #[serde(serialize_with = "num")]
+    pub critical_value: f64,
+    /// The limit |adjusted residual| was compared with: `critical_value`, times
+    /// sqrt(phi) when overdispersion widened it.
+    #[serde(serialize_with = "num")]
+    pub limit: f64,
+}
+
+/// Overdispersion between the groups.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct OverdispersionNote {
     /// Spiegelhalter's multiplicative overdispersion factor (1 = binomial variation).
@@ -215,29 +234,23 @@ pub struct OverdispersionNote {
     pub phi: f64,
     /// True when phi > 1: the groups vary more than binomial sampling explains.
     pub present: bool,
-    /// True when phi was used to widen the flag limit (limit x sqrt(phi)); only with
-    /// `overdispersion=widen` and phi > 1.
+    /// True when phi was used to widen the flag rule's limit (limit x sqrt(phi));
+    /// only with `overdispersion=widen` and phi > 1.
     pub applied: bool,
     /// Additive between-group variance of the rates (Spiegelhalter 2005), 0 when none.
     #[serde(serialize_with = "num")]
     pub tau_squared: f64,
-    /// The ANOM critical value h(alpha, k) before any widening.
-    #[serde(serialize_with = "num")]
-    pub anom_critical: f64,
-    /// How h was obtained: `exact`, or `sidak-bound` (conservative fallback).
-    pub anom_method: &'static str,
-    /// The limit |adjusted residual| was compared with.
-    #[serde(serialize_with = "num")]
-    pub flag_limit: f64,
     /// Plain words.
     pub note: String,
 }
 
-/// A group left out of the comparison.
+/// A group (or, in a table of counts, a row or column) left out of the comparison.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize)]
 pub struct Excluded {
-    /// Group name.
-    pub name: String,
+    /// The group's code (or the row's or column's).
+    pub code: String,
+    /// The group's name, or null.
+    pub name: Option<String>,
     /// Why (for example `no units inspected`).
     pub reason: String,
 }
@@ -252,9 +265,9 @@ pub struct NotTestableNote {
 /// One cell of an analysed r x c table.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct CellRow {
-    /// Row (group) name.
+    /// Row (group) code.
     pub row: String,
-    /// Column (outcome or category) name.
+    /// Column (outcome or category) code.
     pub column: String,
     /// Observed count.
     pub observed: u64,
@@ -272,8 +285,8 @@ pub struct CellRow {
 /// A margin (row or column) of an analysed table.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize)]
 pub struct Margin {
-    /// Name.
-    pub name: String,
+    /// The row's or column's code.
+    pub code: String,
     /// Total count.
     pub total: u64,
 }
@@ -324,8 +337,8 @@ pub struct CategoryReport {
 /// Sums over the compared groups.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Totals {
-    /// Groups compared (excluded ones not counted).
-    pub groups: usize,
+    /// Number of groups compared (excluded ones not counted).
+    pub group_count: usize,
     /// Units inspected.
     pub inspected: u64,
     /// Units defective.
@@ -384,11 +397,13 @@ pub struct Report {
     pub validity: Option<ValidityNotes>,
     /// Per-group table (groups with units inspected), in input order.
     pub groups: Vec<GroupRow>,
-    /// Pairwise follow-ups (empty when not testable).
-    pub pairwise: Vec<PairRow>,
+    /// Pairwise comparisons (empty when not testable).
+    pub pairs: Vec<PairRow>,
     /// Flagged contributors, largest share of X^2 first.
     pub flagged: Vec<Flagged>,
-    /// Overdispersion and flag limits, or null when not testable.
+    /// The flag rule, or null when not testable.
+    pub flag_rule: Option<FlagRule>,
+    /// Overdispersion between the groups, or null when not testable.
     pub overdispersion: Option<OverdispersionNote>,
     /// Defect-category totals and association test, when category counts exist.
     pub categories: Option<CategoryReport>,
@@ -428,8 +443,8 @@ pub struct SeriesPoint {
     pub inspected: u64,
     /// Units defective over the compared groups.
     pub defective: u64,
-    /// Groups compared.
-    pub groups: usize,
+    /// Number of groups compared.
+    pub group_count: usize,
     /// Method code of the test, or null when not testable.
     pub method: Option<&'static str>,
     /// p-value, or null.
@@ -438,10 +453,10 @@ pub struct SeriesPoint {
     /// log10 of the p-value, or null.
     #[serde(serialize_with = "opt_num")]
     pub log10_p: Option<f64>,
-    /// Whether equal rates were rejected, or null.
-    pub reject: Option<bool>,
+    /// Whether the difference is significant at alpha, or null when not testable.
+    pub significant: Option<bool>,
     /// The verdict in words, or the reason it is not testable.
-    pub decision: String,
+    pub verdict: String,
     /// Flagged groups, largest share of X^2 first.
     pub flagged: Vec<Flagged>,
 }
@@ -454,13 +469,13 @@ impl Report {
             dates: self.dates,
             inspected: self.totals.inspected,
             defective: self.totals.defective,
-            groups: self.totals.groups,
+            group_count: self.totals.group_count,
             method: self.test.as_ref().map(|t| t.method),
             p_value: self.test.as_ref().map(|t| t.p_value),
             log10_p: self.test.as_ref().map(|t| t.log10_p),
-            reject: self.test.as_ref().map(|t| t.reject),
-            decision: match (&self.test, &self.not_testable) {
-                (Some(t), _) => t.decision.clone(),
+            significant: self.test.as_ref().map(|t| t.significant),
+            verdict: match (&self.test, &self.not_testable) {
+                (Some(t), _) => t.verdict.clone(),
                 (None, Some(n)) => format!("Not testable: {}", n.reason),
                 (None, None) => String::new(),
             },

@@ -9,9 +9,9 @@ use crate::code::{ProductCode, SiteCode};
 use crate::error::{Collector, FieldError, ValidationError};
 
 /// Reason for a parameter outside its accepted range.
-const OUT_OF_RANGE: &str = "out_of_range";
+const OUT_OF_RANGE: &str = "out-of-range";
 /// Reason for a parameter value that is not one of the accepted words.
-const UNKNOWN_VALUE: &str = "unknown_value";
+const UNKNOWN_VALUE: &str = "unknown-value";
 
 macro_rules! word_enum {
     ($(#[$doc:meta])* $name:ident, $what:literal, { $($(#[$vdoc:meta])* $variant:ident => $word:literal),+ $(,)? }) => {
@@ -126,9 +126,9 @@ word_enum!(
 word_enum!(
     /// What overdispersion does to flag limits (`--overdispersion`, `overdispersion=`).
     DispersionChoice, "overdispersion handling", {
-        /// Estimate and report phi; flag with the plain ANOM limit.
+        /// Estimate phi and say so; flag with the plain ANOM limit.
         #[default]
-        Report => "report",
+        Estimate => "estimate",
         /// Also widen the flag limit by sqrt(phi) when phi > 1 (Spiegelhalter 2005).
         Widen => "widen",
     }
@@ -229,7 +229,7 @@ impl Default for Parameters {
             adjust: AdjustChoice::Holm,
             resamples: DEFAULT_RESAMPLES,
             min_difference: None,
-            overdispersion: DispersionChoice::Report,
+            overdispersion: DispersionChoice::Estimate,
         }
     }
 }
@@ -297,7 +297,7 @@ impl Parameters {
                 adjust,
                 resamples,
                 min_difference,
-                overdispersion: DispersionChoice::Report,
+                overdispersion: DispersionChoice::Estimate,
             })
         } else {
             Err(c.fail())
@@ -462,7 +462,7 @@ mod tests {
         );
         assert_eq!(
             Level::from_query(Some("lines"), None).unwrap_err().reason,
-            "unknown_value"
+            "unknown-value"
         );
     }
 }

@@ -11,10 +11,10 @@ use super::model::Flag;
 use super::params::{DispersionChoice, LevelKind, Parameters};
 use crate::tabular::CountTable;
 
-fn group(name: &str, inspected: u64, defective: u64) -> GroupCounts {
+fn group(code: &str, inspected: u64, defective: u64) -> GroupCounts {
     GroupCounts {
-        name: name.to_owned(),
-        label: None,
+        code: code.to_owned(),
+        name: None,
         inspected,
         defective,
         defects: BTreeMap::new(),
@@ -59,17 +59,17 @@ fn the_nist_five_lot_example_gives_the_published_verdict() {
     close(t.p_value, 0.016_405_221_988_903_653, 1e-12, "p");
     close(t.log10_p, -1.785_017_888_538_913_9, 1e-12, "log10 p");
     close(t.critical_value, 9.488, 5e-5, "critical value");
-    assert!(t.reject);
+    assert!(t.significant);
     assert!(
-        t.decision
-            .starts_with("The defect rates differ between the groups"),
+        t.verdict
+            .starts_with("Significant at α = 0.05: the defect rates differ between the groups"),
         "{}",
-        t.decision
+        t.verdict
     );
 
     let lot4 = &r.groups[3];
     assert_eq!(
-        (lot4.name.as_str(), lot4.inspected, lot4.defective),
+        (lot4.code.as_str(), lot4.inspected, lot4.defective),
         ("lot4", 300, 63)
     );
     close(lot4.rate, 0.21, 1e-15, "rate");
@@ -91,7 +91,7 @@ fn the_nist_five_lot_example_gives_the_published_verdict() {
     let shares: f64 = r.groups.iter().filter_map(|g| g.share_of_statistic).sum();
     close(shares, 1.0, 1e-12, "shares of X^2 add up to 1");
     assert_eq!(r.flagged.len(), 1);
-    assert_eq!(r.flagged[0].name, "lot4");
+    assert_eq!(r.flagged[0].code, "lot4");
     close(
         r.flagged[0].share_of_statistic,
         (324.0 / 45.0 + 324.0 / 255.0) / t.statistic,
@@ -99,18 +99,18 @@ fn the_nist_five_lot_example_gives_the_published_verdict() {
         "share",
     );
 
-    assert_eq!(r.pairwise.len(), 10, "5 groups, 10 pairs");
+    assert_eq!(r.pairs.len(), 10, "5 groups, 10 pairs");
     assert_eq!(
-        (r.pairwise[0].a.as_str(), r.pairwise[0].b.as_str()),
+        (r.pairs[0].a.as_str(), r.pairs[0].b.as_str()),
         ("lot1", "lot2")
     );
     close(
-        r.pairwise[0].difference,
+        r.pairs[0].difference,
         (36.0 - 46.0) / 300.0,
         1e-15,
         "difference lot1 - lot2",
     );
-    assert!(r.pairwise.iter().all(|p| p.p_adjusted >= p.p_value));
+    assert!(r.pairs.iter().all(|p| p.p_adjusted >= p.p_value));
     assert_eq!(r.totals.inspected, 1500);
     assert_eq!(r.totals.defective, 225);
     assert!(r.not_testable.is_none());
@@ -135,7 +135,8 @@ fn the_json_has_the_shared_field_names_and_no_nulls_in_numbers() {
         "p_value",
         "log10_p",
         "critical_value",
-        "reject",
+        "significant",
+        "verdict",
         "cramers_v",
     ] {
         assert!(
@@ -148,7 +149,7 @@ fn the_json_has_the_shared_field_names_and_no_nulls_in_numbers() {
     }
     let g = &v["groups"][3];
     for f in [
-        "name",
+        "code",
         "inspected",
         "defective",
         "rate",
@@ -161,7 +162,7 @@ fn the_json_has_the_shared_field_names_and_no_nulls_in_numbers() {
     assert!(g["rate_ci"]["lower"].is_number() && g["rate_ci"]["upper"].is_number());
     assert_eq!(g["flag"], "above");
     assert_eq!(v["groups"][0]["flag"], Value::Null);
-    let p = &v["pairwise"][0];
+    let p = &v["pairs"][0];
     for f in [
         "a",
         "b",
@@ -169,11 +170,42 @@ fn the_json_has_the_shared_field_names_and_no_nulls_in_numbers() {
         "difference",
         "p_value",
         "p_adjusted",
-        "reject",
+        "significant",
     ] {
-        assert!(!p[f].is_null(), "pairwise[].{f}");
+        assert!(!p[f].is_null(), "pairs[].{f}");
     }
     assert!(p["difference_ci"]["lower"].is_number());
+    assert_eq!(
+        (p["a"].as_str(), p["b"].as_str()),
+        (Some("lot1"), Some("lot2"))
+    );
+    assert_eq!(v["totals"]["group_count"], 5);
+    assert_eq!(v["flag_rule"]["method"], "exact");
+    assert!(v["flag_rule"]["critical_value"].is_number() && v["flag_rule"]["limit"].is_number());
+    assert_eq!(v["flagged"][0]["code"], "lot4");
+    assert_eq!(v["parameters"]["overdispersion"], "estimate");
+    assert!(
+        v["totals"].get("groups").is_none(),
+        "a count is group_count"
+    );
+    for old in [
+        "pairwise",
+        "reject",
+        "decision",
+        "label",
+        "anom_critical",
+        "flag_limit",
+    ] {
+        for (part, obj) in [
+            ("report", &v),
+            ("test", &v["test"]),
+            ("overdispersion", &v["overdispersion"]),
+            ("groups[0]", &v["groups"][0]),
+            ("pairs[0]", p),
+        ] {
+            assert!(obj.get(old).is_none(), "old name {old} still in {part}");
+        }
+    }
     assert!(
         v.get("period").is_none(),
         "no period for an offline analysis"
@@ -187,12 +219,12 @@ fn groups_without_units_are_excluded_and_one_group_is_not_testable() {
         &[group("A", 100, 3), group("B", 0, 0)],
     );
     assert!(r.test.is_none());
-    assert!(r.pairwise.is_empty());
+    assert!(r.pairs.is_empty());
     let reason = &r.not_testable.as_ref().expect("not testable").reason;
     assert!(reason.contains("only 1 of the groups"), "{reason}");
     assert_eq!(r.excluded.len(), 1);
     assert_eq!(
-        (r.excluded[0].name.as_str(), r.excluded[0].reason.as_str()),
+        (r.excluded[0].code.as_str(), r.excluded[0].reason.as_str()),
         ("B", NO_UNITS)
     );
     assert_eq!(r.groups.len(), 1, "the usable group is still shown");
@@ -201,7 +233,10 @@ fn groups_without_units_are_excluded_and_one_group_is_not_testable() {
     assert_eq!(json["test"], Value::Null, "test is null, not absent");
     let text = r.to_text();
     assert!(text.contains("Not testable"), "{text}");
-    assert!(text.contains("Excluded: B (no units inspected)"), "{text}");
+    assert!(
+        text.contains("\nExcluded:\n- B: no units inspected\n"),
+        "{text}"
+    );
 }
 
 #[test]
@@ -247,7 +282,12 @@ fn category_counts_get_an_association_test_and_totals() {
     assert_eq!(t.method, "pearson");
     close(t.statistic, 3.75, 1e-12, "X^2");
     close(t.p_value, 0.052_807_511_416_113_62, 1e-10, "p");
-    assert!(!t.reject);
+    assert!(!t.significant);
+    assert!(
+        t.verdict.starts_with("Not significant at α = 0.05"),
+        "{}",
+        t.verdict
+    );
     assert_eq!(c.association.cells.len(), 4);
     assert_eq!(c.association.cells[0].row, "A");
     assert_eq!(c.association.cells[0].column, "dent");
@@ -303,15 +343,22 @@ fn period_level_and_as_of_are_echoed() {
         r.test
             .as_ref()
             .unwrap()
-            .decision
+            .verdict
             .contains("between the sites")
     );
     let s = serde_json::to_value(r.summary()).unwrap();
     assert_eq!(s["period"], "2026-W11");
     assert_eq!(s["method"], "pearson");
-    assert_eq!(s["reject"], true);
+    assert_eq!(s["significant"], true);
+    assert!(
+        s["verdict"]
+            .as_str()
+            .unwrap()
+            .starts_with("Significant at α = 0.05")
+    );
     assert_eq!(s["inspected"], 1500);
-    assert_eq!(s["flagged"][0]["name"], "lot4");
+    assert_eq!(s["group_count"], 5);
+    assert_eq!(s["flagged"][0]["code"], "lot4");
 }
 
 #[test]
@@ -324,15 +371,17 @@ fn overdispersion_widens_the_flag_limit_only_when_asked() {
     let plain = build_report(&ReportRequest::default(), &groups);
     let o = plain.overdispersion.as_ref().unwrap();
     assert!(o.present && !o.applied);
-    assert_eq!(o.flag_limit, o.anom_critical);
+    let rule = plain.flag_rule.as_ref().unwrap();
+    assert_eq!(rule.limit, rule.critical_value);
     let mut req = ReportRequest::default();
     req.parameters.overdispersion = DispersionChoice::Widen;
     let wide = build_report(&req, &groups);
     let w = wide.overdispersion.as_ref().unwrap();
     assert!(w.applied);
+    let wide_rule = wide.flag_rule.as_ref().unwrap();
     close(
-        w.flag_limit,
-        w.anom_critical * w.phi.sqrt(),
+        wide_rule.limit,
+        wide_rule.critical_value * w.phi.sqrt(),
         1e-12,
         "widened limit",
     );
@@ -351,7 +400,7 @@ fn overdispersion_widens_the_flag_limit_only_when_asked() {
 fn large_volumes_with_a_tiny_effect_get_a_caution() {
     let groups = [group("A", 2_000_000, 20_000), group("B", 2_000_000, 20_600)];
     let r = build_report(&ReportRequest::default(), &groups);
-    assert!(r.test.as_ref().unwrap().reject);
+    assert!(r.test.as_ref().unwrap().significant);
     assert!(
         r.cautions
             .iter()
@@ -363,7 +412,7 @@ fn large_volumes_with_a_tiny_effect_get_a_caution() {
     req.parameters.min_difference = Some(0.005);
     let r = build_report(&req, &groups);
     // Difference 0.01 - 0.0103 = -0.0003: its interval does not reach beyond 0.005.
-    assert_eq!(r.pairwise[0].practically_different, Some(false));
+    assert_eq!(r.pairs[0].beyond_min_difference, Some(false));
 }
 
 /// Fisher's tea-tasting experiment (Fisher 1935, The Design of Experiments, ch. 2):
@@ -395,24 +444,53 @@ fn a_raw_table_with_an_empty_column_drops_it_and_says_so() {
     };
     let r = analyze_table(&Parameters::default(), &table);
     assert_eq!(r.table.columns.len(), 2);
-    assert_eq!(r.table.excluded[0].name, "y");
+    assert_eq!(r.table.excluded[0].code, "y");
     assert_eq!(r.test.as_ref().unwrap().df, 1);
 }
 
 #[test]
-fn the_text_layout_is_plain_ascii_with_every_group() {
-    let r = build_report(&ReportRequest::default(), &nist_lots());
+fn the_text_layout_shows_every_group_under_the_glossary_headings() {
+    let mut req = ReportRequest::default();
+    req.parameters.min_difference = Some(0.005);
+    let r = build_report(&req, &nist_lots());
     let text = r.to_text();
-    assert!(text.is_ascii());
     for needle in [
-        "Verdict: The defect rates differ",
+        "adjust holm, overdispersion estimate, min_difference 0.50 pp\n",
+        "Verdict: Significant at α = 0.05: the defect rates differ",
+        "Cramér's V",
         "lot4",
-        "above",
-        "Pairwise comparisons (10 pairs",
-        "Cautions:",
+        "\nFlag rule: flagged when |adjusted residual| > ",
+        "\nOverdispersion: phi = ",
+        "\nFlagged contributors:\n- lot4: above the pooled rate",
+        "\nPairwise comparisons (10 pairs, p adjusted by holm)",
+        "significant  beyond min difference",
+        "minimum difference of interest (0.50 pp)",
+        "\nCautions:\n",
     ] {
         assert!(text.contains(needle), "missing {needle:?} in\n{text}");
     }
+    for old in [
+        "differ  ",
+        "beyond min diff ",
+        "Flag limit",
+        "Cramer's",
+        "alpha = ",
+    ] {
+        assert!(!text.contains(old), "old wording {old:?} in\n{text}");
+    }
+}
+
+#[test]
+fn one_pair_is_one_pair_in_the_text() {
+    let r = build_report(
+        &ReportRequest::default(),
+        &[group("A", 1000, 10), group("B", 1000, 40)],
+    );
+    let text = r.to_text();
+    assert!(
+        text.contains("Pairwise comparisons (1 pair, p adjusted by holm)"),
+        "{text}"
+    );
 }
 
 mod properties {
@@ -429,8 +507,8 @@ mod properties {
                 .prop_map(|(n, f, cats)| {
                     let d = (n as f64 * f * f) as u64;
                     GroupCounts {
-                        name: String::new(),
-                        label: None,
+                        code: String::new(),
+                        name: None,
                         inspected: n,
                         defective: d.min(n),
                         defects: cats
@@ -444,7 +522,7 @@ mod properties {
         )
         .prop_map(|mut gs| {
             for (i, g) in gs.iter_mut().enumerate() {
-                g.name = format!("g{i}");
+                g.code = format!("g{i}");
             }
             gs
         })
@@ -467,7 +545,7 @@ mod properties {
             if let Some(t) = &r.test {
                 prop_assert!((0.0..=1.0).contains(&t.p_value));
                 let k = r.groups.len();
-                prop_assert_eq!(r.pairwise.len(), k * (k - 1) / 2);
+                prop_assert_eq!(r.pairs.len(), k * (k - 1) / 2);
             }
             for g in &r.groups {
                 prop_assert!(g.rate_ci.lower <= g.rate && g.rate <= g.rate_ci.upper);
@@ -489,7 +567,7 @@ fn a_series_summary_equals_the_summary_of_the_full_report() {
     let mut groups = nist_lots();
     groups.push(group("Z", 0, 0));
     let full = build_report(&req, &groups);
-    assert!(!full.pairwise.is_empty(), "the full report has pairs");
+    assert!(!full.pairs.is_empty(), "the full report has pairs");
     assert_eq!(build_summary(&req, &groups), full.summary());
 }
 

@@ -1,11 +1,16 @@
-//! Plain-ASCII terminal layout of reports, shared by `dispar analyze` and
+//! Terminal layout of reports (UTF-8 text), shared by `dispar analyze` and
 //! `dispar report`.
+//!
+//! Section headings carry the names of the JSON keys they show (glossary in the
+//! project's DEVELOPERS.md): "Verdict" (`test.verdict`), "Flag rule" (`flag_rule`),
+//! "Overdispersion", "Flagged contributors" (`flagged`), "Pairwise comparisons"
+//! (`pairs`), "Excluded" and "Cautions".
 
 use std::fmt::Write as _;
 
 use super::model::{
-    CategoryReport, Ci, GroupRow, PairRow, ParametersEcho, Report, TableAnalysis, TableReport,
-    Test, ValidityNotes,
+    CategoryReport, Ci, Excluded, GroupRow, PairRow, ParametersEcho, Report, TableAnalysis,
+    TableReport, Test, ValidityNotes,
 };
 use super::params::LevelKind;
 
@@ -85,11 +90,11 @@ fn table(out: &mut String, header: &[&str], rows: &[Vec<String>]) {
 fn params_line(out: &mut String, p: &ParametersEcho) {
     let _ = write!(
         out,
-        "alpha {}, method {}, pairwise {}, adjust {}",
-        p.alpha, p.method, p.pairwise, p.adjust
+        "alpha {}, method {}, pairwise {}, adjust {}, overdispersion {}",
+        p.alpha, p.method, p.pairwise, p.adjust, p.overdispersion
     );
     if let Some(d) = p.min_difference {
-        let _ = write!(out, ", minimum difference {}", fmt_diff(d));
+        let _ = write!(out, ", min_difference {:.2} pp", d * 100.0);
     }
     if let Some(a) = &p.as_of {
         let _ = write!(out, ", data as of {a}");
@@ -98,7 +103,7 @@ fn params_line(out: &mut String, p: &ParametersEcho) {
 }
 
 fn test_lines(out: &mut String, t: &Test, v: Option<&ValidityNotes>, alpha: f64) {
-    let _ = writeln!(out, "Verdict: {}", t.decision);
+    let _ = writeln!(out, "Verdict: {}", t.verdict);
     let name = match t.method {
         "g" => "G^2",
         _ => "X^2",
@@ -120,7 +125,7 @@ fn test_lines(out: &mut String, t: &Test, v: Option<&ValidityNotes>, alpha: f64)
     }
     let _ = writeln!(
         out,
-        "; critical value {:.4} at alpha {alpha}; Cramer's V {:.4}, corrected {:.4})",
+        "; critical value {:.4} at α = {alpha}; Cramér's V {:.4}, corrected {:.4})",
         t.critical_value, t.cramers_v, t.cramers_v_corrected
     );
     if v.is_some() {
@@ -140,15 +145,20 @@ pub fn method_words(m: &str) -> &'static str {
     }
 }
 
+/// A group's code, with its name in brackets when it has one that differs.
+fn labelled(code: &str, name: Option<&str>) -> String {
+    match name {
+        Some(n) if n != code => format!("{code} ({n})"),
+        _ => code.to_owned(),
+    }
+}
+
 fn group_rows(groups: &[GroupRow]) -> Vec<Vec<String>> {
     groups
         .iter()
         .map(|g| {
             vec![
-                match &g.label {
-                    Some(l) if *l != g.name => format!("{} ({l})", g.name),
-                    _ => g.name.clone(),
-                },
+                labelled(&g.code, g.name.as_deref()),
                 g.inspected.to_string(),
                 g.defective.to_string(),
                 fmt_rate(g.rate),
@@ -175,10 +185,10 @@ fn pair_rows(pairs: &[&PairRow], with_practical: bool) -> Vec<Vec<String>> {
                 fmt_diff_ci(&p.difference_ci),
                 fmt_p(p.p_value, p.log10_p),
                 fmt_p(p.p_adjusted, p.p_adjusted.max(f64::MIN_POSITIVE).log10()),
-                if p.reject { "yes" } else { "no" }.to_owned(),
+                if p.significant { "yes" } else { "no" }.to_owned(),
             ];
             if with_practical {
-                row.push(match p.practically_different {
+                row.push(match p.beyond_min_difference {
                     Some(true) => "yes".to_owned(),
                     Some(false) => "no".to_owned(),
                     None => String::new(),
@@ -198,7 +208,7 @@ fn analysis_lines(out: &mut String, t: &TableAnalysis, alpha: f64) {
         (None, None) => {}
     }
     let mut header: Vec<&str> = vec![""];
-    header.extend(t.columns.iter().map(|c| c.name.as_str()));
+    header.extend(t.columns.iter().map(|c| c.code.as_str()));
     header.push("total");
     let ncols = t.columns.len();
     let rows: Vec<Vec<String>> = t
@@ -206,7 +216,7 @@ fn analysis_lines(out: &mut String, t: &TableAnalysis, alpha: f64) {
         .iter()
         .enumerate()
         .map(|(r, m)| {
-            let mut row = vec![m.name.clone()];
+            let mut row = vec![m.code.clone()];
             for c in 0..ncols {
                 row.push(t.cells.get(r * ncols + c).map_or(String::new(), |cell| {
                     format!("{} ({:+.1})", cell.observed, cell.adjusted_residual)
@@ -218,8 +228,21 @@ fn analysis_lines(out: &mut String, t: &TableAnalysis, alpha: f64) {
         .collect();
     out.push_str("Counts (adjusted residual):\n");
     table(out, &header, &rows);
-    for e in &t.excluded {
-        let _ = writeln!(out, "Excluded: {} ({})", e.name, e.reason);
+    excluded_lines(out, &t.excluded);
+}
+
+fn excluded_lines(out: &mut String, excluded: &[Excluded]) {
+    if excluded.is_empty() {
+        return;
+    }
+    out.push_str("\nExcluded:\n");
+    for e in excluded {
+        let _ = writeln!(
+            out,
+            "- {}: {}",
+            labelled(&e.code, e.name.as_deref()),
+            e.reason
+        );
     }
 }
 
@@ -248,7 +271,7 @@ fn cautions_lines(out: &mut String, cautions: &[String]) {
 }
 
 impl Report {
-    /// The report as a readable plain-ASCII text for a terminal.
+    /// The report as readable text for a terminal.
     pub fn to_text(&self) -> String {
         let mut out = String::new();
         let what = match self.level {
@@ -309,20 +332,31 @@ impl Report {
                 &rows,
             );
         }
-        if let Some(o) = &self.overdispersion {
+        if let Some(r) = &self.flag_rule {
+            let widened = self.overdispersion.as_ref().is_some_and(|o| o.applied);
             let _ = writeln!(
                 out,
-                "\nFlag limit: |adjusted residual| > {:.3}. {}",
-                o.flag_limit, o.note
+                "\nFlag rule: flagged when |adjusted residual| > {:.3} (ANOM critical value {:.3}, {}{})",
+                r.limit,
+                r.critical_value,
+                r.method,
+                if widened {
+                    ", widened by sqrt(phi)"
+                } else {
+                    ""
+                }
             );
         }
+        if let Some(o) = &self.overdispersion {
+            let _ = writeln!(out, "Overdispersion: {}", o.note);
+        }
         if !self.flagged.is_empty() {
-            out.push_str("Flagged contributors:\n");
+            out.push_str("\nFlagged contributors:\n");
             for f in &self.flagged {
                 let _ = writeln!(
                     out,
                     "- {}: {} the pooled rate ({}, adjusted residual {:+.2}, {:.1}% of X^2)",
-                    f.name,
+                    labelled(&f.code, f.name.as_deref()),
                     f.flag.as_str(),
                     fmt_rate(f.rate),
                     f.adjusted_residual,
@@ -330,29 +364,30 @@ impl Report {
                 );
             }
         } else if self.test.is_some() {
-            out.push_str("No group is flagged.\n");
+            out.push_str("\nFlagged contributors: none.\n");
         }
-        if !self.pairwise.is_empty() {
-            let shown: Vec<&PairRow> = if self.pairwise.len() > TEXT_MAX_PAIRS {
-                self.pairwise.iter().filter(|p| p.reject).collect()
+        if !self.pairs.is_empty() {
+            let shown: Vec<&PairRow> = if self.pairs.len() > TEXT_MAX_PAIRS {
+                self.pairs.iter().filter(|p| p.significant).collect()
             } else {
-                self.pairwise.iter().collect()
+                self.pairs.iter().collect()
             };
+            let n = self.pairs.len();
             let _ = writeln!(
                 out,
-                "\nPairwise comparisons ({} pairs, p adjusted by {}){}",
-                self.pairwise.len(),
+                "\nPairwise comparisons ({n} {}, p adjusted by {}){}",
+                if n == 1 { "pair" } else { "pairs" },
                 self.parameters.adjust,
-                if shown.len() < self.pairwise.len() {
+                if shown.len() < n {
                     format!(
-                        "; {} with a significant difference shown (all are in the JSON)",
+                        "; the {} significant ones shown (all are in the JSON)",
                         shown.len()
                     )
                 } else {
                     String::new()
                 }
             );
-            let practical = self.parameters.min_difference.is_some();
+            let practical = self.parameters.min_difference;
             let mut header = vec![
                 "pair",
                 "method",
@@ -360,31 +395,31 @@ impl Report {
                 "CI (pp)",
                 "p",
                 "p adjusted",
-                "differ",
+                "significant",
             ];
-            if practical {
-                header.push("beyond min diff");
+            if let Some(d) = practical {
+                header.push("beyond min difference");
+                let _ = writeln!(
+                    out,
+                    "beyond min difference: the whole interval lies beyond the minimum difference of interest ({:.2} pp)",
+                    d * 100.0
+                );
             }
             if !shown.is_empty() {
-                table(&mut out, &header, &pair_rows(&shown, practical));
+                table(&mut out, &header, &pair_rows(&shown, practical.is_some()));
             }
         }
         if let Some(c) = &self.categories {
             categories_lines(&mut out, c, alpha);
         }
-        if !self.excluded.is_empty() {
-            out.push('\n');
-            for e in &self.excluded {
-                let _ = writeln!(out, "Excluded: {} ({})", e.name, e.reason);
-            }
-        }
+        excluded_lines(&mut out, &self.excluded);
         cautions_lines(&mut out, &self.cautions);
         out
     }
 }
 
 impl TableReport {
-    /// The report as a readable plain-ASCII text for a terminal.
+    /// The report as readable text for a terminal.
     pub fn to_text(&self) -> String {
         let mut out = String::from("Association of groups and outcomes (table of counts)\n");
         params_line(&mut out, &self.parameters);

@@ -118,14 +118,14 @@ fn read_error(e: &csv::Error, lines: &mut LineCounter<'_>) -> ApiError {
     match e.kind() {
         csv::ErrorKind::Utf8 { .. } => malformed(
             line,
-            "invalid_utf8",
+            "invalid-utf8",
             "the line is not valid UTF-8".to_owned(),
         ),
         csv::ErrorKind::UnequalLengths {
             expected_len, len, ..
         } => malformed(
             line,
-            "wrong_field_count",
+            "wrong-field-count",
             format!("the line has {len} fields; the header has {expected_len}"),
         ),
         _ => malformed(
@@ -166,7 +166,7 @@ fn columns(header: &csv::StringRecord) -> Result<Vec<Column>, ApiError> {
                 errors.push(ErrorItem::csv(
                     1,
                     Some(name.to_owned()),
-                    "unknown_column",
+                    "unknown-column",
                     format!(
                         "{name:?} is not a column here; use site, line, date, product, inspected, defective, revision and defect:<category>"
                     ),
@@ -237,7 +237,7 @@ pub fn parse(bytes: &[u8], max: usize) -> Result<Parsed, ApiError> {
                 vec![ErrorItem::csv(
                     line,
                     None,
-                    "too_many",
+                    "too-many",
                     format!("record on line {line} is beyond the limit of {max}"),
                 )],
             ));
@@ -334,7 +334,7 @@ mod tests {
         assert_eq!(
             reasons,
             vec![
-                ("unknown_column", Some("colour")),
+                ("unknown-column", Some("colour")),
                 ("duplicate", Some("site")),
                 ("required", Some("defective"))
             ]
@@ -350,7 +350,7 @@ mod tests {
         .expect_err("ragged");
         assert_eq!(e.status().as_u16(), 400);
         assert_eq!(e.errors()[0].line, Some(3));
-        assert_eq!(e.errors()[0].reason, "wrong_field_count");
+        assert_eq!(e.errors()[0].reason, "wrong-field-count");
     }
 
     #[test]
@@ -369,7 +369,7 @@ mod tests {
     fn columns_of_fields() {
         assert_eq!(column_of("defects/seal-leak"), "defect:seal-leak");
         assert_eq!(column_of("defective"), "defective");
-        let item = item_from_field_error(FieldError::new("7/defects/x", "too_large", "m"));
+        let item = item_from_field_error(FieldError::new("7/defects/x", "too-large", "m"));
         assert_eq!(item.line, Some(7));
         assert_eq!(item.column.as_deref(), Some("defect:x"));
     }

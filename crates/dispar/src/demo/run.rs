@@ -488,7 +488,7 @@ fn banner(data: &DemoData, demo: &Prepared, database: &DemoDatabase, addr: Socke
     let _ = writeln!(s);
     let _ = writeln!(
         s,
-        "dispar demo: Quillmere Closures (invented), {} plants, {} lines, {} daily records \
+        "dispar demo: Quillmere Closures (invented), {} sites, {} lines, {} daily records \
          from {} to {} ({} weeks), loaded in {:.1} s.",
         data.sites.len(),
         data.lines.len(),
@@ -545,7 +545,7 @@ curl -sS -w '\n' -X PUT "$DISPAR/v1/sites/KES/lines/L1/days/2026-06-29" -H "Auth
 # 3. A batch as CSV (ingest key; all or nothing)
 printf 'site,line,date,inspected,defective,defect:seal-leak\nKES,L1,2026-06-30,9050,58,9\nKES,L2,2026-06-30,8600,49,8\n' | curl -sS -w '\n' -X POST "$DISPAR/v1/counts" -H "Authorization: Bearer $INGEST_KEY" -H 'Content-Type: text/csv' --data-binary @-
 
-# 4. Fetch a report (read key): the six plants in ISO week 2026-W16 (KES flagged above), then MRQ's lines in W09
+# 4. Fetch a report (read key): the six sites in ISO week 2026-W16 (KES flagged above), then MRQ's lines in W09
 curl -sS -w '\n' "$DISPAR/v1/reports?period=2026-W16&level=site" -H "Authorization: Bearer $READ_KEY"
 curl -sS -w '\n' "$DISPAR/v1/reports?period=2026-W09&level=line&site=MRQ" -H "Authorization: Bearer $READ_KEY"
 

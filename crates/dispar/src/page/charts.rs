@@ -173,8 +173,8 @@ pub fn rates_chart(report: &Report) -> Option<String> {
         let class = flag_class(g.flag);
         let title = format!(
             "{}{}: {} ({} interval {} to {}), {} defective of {} inspected{}",
-            g.name,
-            g.label
+            g.code,
+            g.name
                 .as_deref()
                 .map(|l| format!(" ({l})"))
                 .unwrap_or_default(),
@@ -194,7 +194,7 @@ pub fn rates_chart(report: &Report) -> Option<String> {
         let _ = write!(
             s,
             r#"<g class="group {class}" data-name="{name}"><title>{title}</title>"#,
-            name = escape(&g.name),
+            name = escape(&g.code),
             title = escape(&title),
         );
         if i % 2 == 0 {
@@ -211,7 +211,7 @@ pub fn rates_chart(report: &Report) -> Option<String> {
             r#"<text class="row-label" x="{lx}" y="{ty}" text-anchor="end">{label}</text><line class="whisker" x1="{x1}" y1="{cy}" x2="{x2}" y2="{cy}"/><line class="whisker" x1="{x1}" y1="{c1}" x2="{x1}" y2="{c2}"/><line class="whisker" x1="{x2}" y1="{c1}" x2="{x2}" y2="{c2}"/><circle class="dot" cx="{dx}" cy="{cy}" r="4.5"/><text class="value" x="{vx}" y="{ty}">{rate}</text></g>"#,
             lx = coord(left - 10.0),
             ty = coord(cy + 4.0),
-            label = escape(&shorten(&g.name, 15)),
+            label = escape(&shorten(&g.code, 15)),
             x1 = coord(x1),
             x2 = coord(x2),
             cy = coord(cy),
@@ -423,12 +423,12 @@ pub fn funnel_chart(report: &Report) -> Option<String> {
         let class = flag_class(g.flag);
         let title = format!(
             "{}: {} defective of {} inspected = {}",
-            g.name,
+            g.code,
             fmt_count(g.defective),
             fmt_count(g.inspected),
             fmt_pct(g.rate)
         );
-        let label = shorten(&g.name, 16);
+        let label = shorten(&g.code, 16);
         let label_w = label.chars().count() as f64 * 7.0;
         let (tx, anchor) = if cx > left + plot_w - 90.0 {
             (cx - 8.0, "end")
@@ -454,7 +454,7 @@ pub fn funnel_chart(report: &Report) -> Option<String> {
         let _ = write!(
             s,
             r#"<g class="group {class}" data-name="{name}"><title>{title}</title><circle class="dot" cx="{cx}" cy="{cy}" r="5"/><text class="point-label" x="{tx}" y="{ty}" text-anchor="{anchor}">{label}</text></g>"#,
-            name = escape(&g.name),
+            name = escape(&g.code),
             title = escape(&title),
             cx = coord(cx),
             cy = coord(cy),
@@ -480,7 +480,7 @@ pub fn series_chart(points: &[SeriesPoint], alpha: f64, links: &[PeriodLink]) ->
     // Groups that were flagged at least once, in order of first appearance by name.
     let mut names: Vec<&str> = points
         .iter()
-        .flat_map(|p| p.flagged.iter().map(|f| f.name.as_str()))
+        .flat_map(|p| p.flagged.iter().map(|f| f.code.as_str()))
         .collect();
     names.sort_unstable();
     names.dedup();
@@ -532,12 +532,12 @@ pub fn series_chart(points: &[SeriesPoint], alpha: f64, links: &[PeriodLink]) ->
                 "flagged: {}",
                 p.flagged
                     .iter()
-                    .map(|f| format!("{} {}", f.name, f.flag.as_str()))
+                    .map(|f| format!("{} {}", f.code, f.flag.as_str()))
                     .collect::<Vec<_>>()
                     .join(", ")
             )
         };
-        let (class, title) = match (p.reject, p.p_value) {
+        let (class, title) = match (p.significant, p.p_value) {
             (Some(true), Some(pv)) => (
                 "differ",
                 format!(
@@ -552,7 +552,7 @@ pub fn series_chart(points: &[SeriesPoint], alpha: f64, links: &[PeriodLink]) ->
                     fmt_p(pv)
                 ),
             ),
-            _ => ("untestable", format!("{period}: {}", p.decision)),
+            _ => ("untestable", format!("{period}: {}", p.verdict)),
         };
         let mut body = format!(
             r#"<title>{}</title><rect class="hit" x="{x}" y="{t}" width="{w}" height="{h}"/><rect class="cell" x="{x}" y="{t}" width="{w}" height="{vh}" rx="2"/>"#,
@@ -565,7 +565,7 @@ pub fn series_chart(points: &[SeriesPoint], alpha: f64, links: &[PeriodLink]) ->
         );
         for (r, name) in names.iter().enumerate() {
             let cy = rows_top + row_h * (r as f64 + 0.5);
-            match p.flagged.iter().find(|f| f.name == *name).map(|f| f.flag) {
+            match p.flagged.iter().find(|f| f.code == *name).map(|f| f.flag) {
                 Some(Flag::Above) => {
                     let _ = write!(
                         body,

@@ -242,13 +242,13 @@ fn flag_tag(flag: Option<Flag>) -> &'static str {
 }
 
 fn group_label(g: &GroupRow) -> String {
-    match &g.label {
-        Some(l) if l != &g.name => format!(
+    match &g.name {
+        Some(l) if l != &g.code => format!(
             "<span class=\"name\">{}</span> <span class=\"label\">{}</span>",
-            escape(&g.name),
+            escape(&g.code),
             escape(l)
         ),
-        _ => format!("<span class=\"name\">{}</span>", escape(&g.name)),
+        _ => format!("<span class=\"name\">{}</span>", escape(&g.code)),
     }
 }
 
@@ -268,7 +268,7 @@ fn verdict(report: &Report, out: &mut String) {
                     .map_or_else(|| "this period".to_owned(), |p| p.to_string())
             ),
         ),
-        (Some(t), _) if t.reject => (
+        (Some(t), _) if t.significant => (
             "differ",
             format!("{cap} differ in defect rate"),
             format!("{cap} differ in defect rate ({}).", test_brief(t)),
@@ -300,7 +300,7 @@ fn verdict(report: &Report, out: &mut String) {
             let _ = write!(
                 out,
                 "<p id=\"flag-summary\">No {singular} is flagged: none is beyond the flag limit on its own{}.</p>",
-                if report.test.as_ref().is_some_and(|t| t.reject) {
+                if report.test.as_ref().is_some_and(|t| t.significant) {
                     format!("; the difference is spread over several {plural}")
                 } else {
                     String::new()
@@ -314,7 +314,7 @@ fn verdict(report: &Report, out: &mut String) {
                 .map(|f| {
                     format!(
                         "<strong>{}</strong> {} the pooled rate ({} against {pooled})",
-                        escape(&f.name),
+                        escape(&f.code),
                         f.flag.as_str(),
                         fmt_pct(f.rate)
                     )
@@ -335,8 +335,8 @@ fn verdict(report: &Report, out: &mut String) {
         fmt_pct(t.rate),
         fmt_count(t.defective),
         fmt_count(t.inspected),
-        t.groups,
-        if t.groups == 1 { singular } else { plural }
+        t.group_count,
+        if t.group_count == 1 { singular } else { plural }
     );
 }
 
@@ -355,7 +355,7 @@ fn groups_table(report: &Report, out: &mut String) {
         let _ = write!(
             out,
             "<tr{class} data-name=\"{}\"><th scope=\"row\">{}</th><td>{}</td><td>{}</td><td>{}</td><td>{} \u{2013} {}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
-            escape(&g.name),
+            escape(&g.code),
             group_label(g),
             fmt_count(g.inspected),
             fmt_count(g.defective),
@@ -376,18 +376,18 @@ fn groups_table(report: &Report, out: &mut String) {
     let _ = write!(
         out,
         "</tbody><tfoot><tr><th scope=\"row\">All ({})</th><td>{}</td><td>{}</td><td>{}</td><td></td><td></td><td></td><td></td><td></td></tr></tfoot></table></div>",
-        t.groups,
+        t.group_count,
         fmt_count(t.inspected),
         fmt_count(t.defective),
         fmt_pct(t.rate)
     );
-    if let Some(o) = &report.overdispersion {
+    if let (Some(o), Some(rule)) = (&report.overdispersion, &report.flag_rule) {
         let _ = write!(
             out,
             "<p class=\"small muted\">A group is flagged when its adjusted residual is beyond \u{00b1}{} (the analysis-of-means critical value h = {} for {} groups at alpha = {}{}). Intervals are {conf} Wilson score intervals.</p>",
-            fmt_num(o.flag_limit, 2),
-            fmt_num(o.anom_critical, 2),
-            t.groups,
+            fmt_num(rule.limit, 2),
+            fmt_num(rule.critical_value, 2),
+            t.group_count,
             report.parameters.alpha,
             if o.applied {
                 format!(", widened by sqrt(phi) = {}", fmt_num(o.phi.sqrt(), 2))
@@ -437,7 +437,7 @@ fn pair_row(p: &PairRow, with_practical: bool, out: &mut String) {
     let _ = write!(
         out,
         "<tr{}><th scope=\"row\">{} \u{2013} {}</th><td>{}</td><td>{} to {}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td>",
-        if p.reject {
+        if p.significant {
             " class=\"significant\""
         } else {
             ""
@@ -450,13 +450,13 @@ fn pair_row(p: &PairRow, with_practical: bool, out: &mut String) {
         escape(method_words(p.method)),
         p_cell(p.p_value, p.log10_p),
         escape(&fmt_p(p.p_adjusted)),
-        if p.reject { "differ" } else { "\u{2014}" },
+        if p.significant { "differ" } else { "\u{2014}" },
     );
     if with_practical {
         let _ = write!(
             out,
             "<td>{}</td>",
-            match p.practically_different {
+            match p.beyond_min_difference {
                 Some(true) => "yes",
                 Some(false) => "not shown",
                 None => "",
@@ -468,7 +468,7 @@ fn pair_row(p: &PairRow, with_practical: bool, out: &mut String) {
 
 fn pairwise(report: &Report, out: &mut String) {
     out.push_str("<section id=\"pairwise-section\"><h2>Pairs</h2>");
-    if report.pairwise.is_empty() {
+    if report.pairs.is_empty() {
         out.push_str("<p class=\"muted\">No pairwise comparisons");
         if report.test.is_none() {
             out.push_str(" (there is no test)");
@@ -479,14 +479,14 @@ fn pairwise(report: &Report, out: &mut String) {
     let adjust = adjust_words(report.parameters.adjust.as_str());
     let conf = confidence_words(report.parameters.alpha);
     let with_practical = report.parameters.min_difference.is_some();
-    let mut pairs: Vec<&PairRow> = report.pairwise.iter().collect();
+    let mut pairs: Vec<&PairRow> = report.pairs.iter().collect();
     pairs.sort_by(|a, b| {
-        b.reject
-            .cmp(&a.reject)
+        b.significant
+            .cmp(&a.significant)
             .then(a.p_adjusted.total_cmp(&b.p_adjusted))
             .then(a.log10_p.total_cmp(&b.log10_p))
     });
-    let significant = pairs.iter().filter(|p| p.reject).count();
+    let significant = pairs.iter().filter(|p| p.significant).count();
     let _ = write!(
         out,
         "<p>{significant} of {} pairs differ at alpha = {} after {adjust} adjustment of the p-values.</p>",
@@ -505,7 +505,7 @@ fn pairwise(report: &Report, out: &mut String) {
         }
     );
     let (shown, rest): (Vec<&PairRow>, Vec<&PairRow>) = if significant > 0 {
-        pairs.iter().partition(|p| p.reject)
+        pairs.iter().partition(|p| p.significant)
     } else {
         (pairs.clone(), Vec::new())
     };
@@ -556,8 +556,8 @@ fn flagged(report: &Report, out: &mut String) {
         let _ = write!(
             out,
             "<tr data-name=\"{}\"><th scope=\"row\">{}</th><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
-            escape(&f.name),
-            escape(&f.name),
+            escape(&f.code),
+            escape(&f.code),
             flag_tag(Some(f.flag)),
             fmt_pct(f.rate),
             fmt_signed(f.adjusted_residual),
@@ -572,7 +572,7 @@ fn flagged(report: &Report, out: &mut String) {
 
 fn association_words(a: &TableAnalysis) -> String {
     match (&a.test, &a.not_testable) {
-        (Some(t), _) if t.reject => format!(
+        (Some(t), _) if t.significant => format!(
             "The defect mix differs between the groups ({}).",
             test_brief(t)
         ),
@@ -609,16 +609,16 @@ fn categories(report: &Report, out: &mut String) {
     if !a.cells.is_empty() && !a.columns.is_empty() {
         out.push_str("<div class=\"scroll\"><table id=\"category-mix\"><thead><tr><th scope=\"col\">Group</th>");
         for col in &a.columns {
-            let _ = write!(out, "<th scope=\"col\">{}</th>", escape(&col.name));
+            let _ = write!(out, "<th scope=\"col\">{}</th>", escape(&col.code));
         }
         out.push_str("</tr></thead><tbody>");
         for row in &a.rows {
-            let _ = write!(out, "<tr><th scope=\"row\">{}</th>", escape(&row.name));
+            let _ = write!(out, "<tr><th scope=\"row\">{}</th>", escape(&row.code));
             for col in &a.columns {
                 match a
                     .cells
                     .iter()
-                    .find(|cell| cell.row == row.name && cell.column == col.name)
+                    .find(|cell| cell.row == row.code && cell.column == col.code)
                 {
                     Some(cell) => {
                         let strong = cell.adjusted_residual.abs() >= 3.0;
@@ -648,7 +648,7 @@ fn sample_sizes(report: &Report, out: &mut String) {
     let _ = write!(
         out,
         "<dt>Groups compared</dt><dd>{}</dd><dt>Units inspected</dt><dd>{}</dd><dt>Units defective</dt><dd>{}</dd><dt>Pooled rate</dt><dd>{}</dd>",
-        t.groups,
+        t.group_count,
         fmt_count(t.inspected),
         fmt_count(t.defective),
         fmt_pct(t.rate)
@@ -660,9 +660,9 @@ fn sample_sizes(report: &Report, out: &mut String) {
         let _ = write!(
             out,
             "<dt>Smallest group</dt><dd>{} ({} units)</dd><dt>Largest group</dt><dd>{} ({} units)</dd>",
-            escape(&small.name),
+            escape(&small.code),
             fmt_count(small.inspected),
-            escape(&large.name),
+            escape(&large.code),
             fmt_count(large.inspected)
         );
     }
@@ -682,7 +682,7 @@ fn sample_sizes(report: &Report, out: &mut String) {
             let _ = write!(
                 out,
                 "<li><strong>{}</strong>: {}</li>",
-                escape(&e.name),
+                escape(&e.code),
                 escape(&e.reason)
             );
         }
@@ -965,9 +965,13 @@ pub fn render_series(view: &SeriesView, ctx: &PageContext) -> String {
     let differ = view
         .points
         .iter()
-        .filter(|p| p.reject == Some(true))
+        .filter(|p| p.significant == Some(true))
         .count();
-    let tested = view.points.iter().filter(|p| p.reject.is_some()).count();
+    let tested = view
+        .points
+        .iter()
+        .filter(|p| p.significant.is_some())
+        .count();
     let _ = writeln!(
         body,
         "<section id=\"verdict\" class=\"{}\"><h1>{cap}: {} of {} periods differ</h1><p class=\"verdict-line\">From {} to {}: the {plural} differ in defect rate in {differ} of the {tested} periods that could be tested at alpha = {}{}.</p></section>",
@@ -1002,7 +1006,7 @@ pub fn render_series(view: &SeriesView, ctx: &PageContext) -> String {
         } else {
             "\u{2014}".to_owned()
         };
-        let verdict = match p.reject {
+        let verdict = match p.significant {
             Some(true) => "<span class=\"tag above\">differ</span>",
             Some(false) => "<span class=\"tag same\">no difference</span>",
             None => "<span class=\"tag\">not testable</span>",
@@ -1014,7 +1018,7 @@ pub fn render_series(view: &SeriesView, ctx: &PageContext) -> String {
                 format!(
                     "<span class=\"flag {}\">{} {}</span>",
                     f.flag.as_str(),
-                    escape(&f.name),
+                    escape(&f.code),
                     match f.flag {
                         Flag::Above => "\u{2191}",
                         Flag::Below => "\u{2193}",
@@ -1027,7 +1031,7 @@ pub fn render_series(view: &SeriesView, ctx: &PageContext) -> String {
             "<tr data-period=\"{pd}\" title=\"{title}\"><th scope=\"row\"><a href=\"{href}\">{pd}</a></th><td>{}</td><td>{}</td><td>{rate}</td><td>{}</td><td>{}</td><td>{}</td><td>{verdict}</td><td class=\"wrap\">{}</td></tr>",
             fmt_count(p.inspected),
             fmt_count(p.defective),
-            p.groups,
+            p.group_count,
             escape(p.method.map(method_words).unwrap_or("\u{2014}")),
             match (p.p_value, p.log10_p) {
                 (Some(v), Some(l)) => p_cell(v, l),
@@ -1035,7 +1039,7 @@ pub fn render_series(view: &SeriesView, ctx: &PageContext) -> String {
             },
             flagged.join(" "),
             pd = escape(&period),
-            title = escape(&p.decision),
+            title = escape(&p.verdict),
             href = escape(href),
         );
     }

@@ -13,10 +13,10 @@ use tower::ServiceExt as _;
 
 use super::render::{PageContext, Selection, SiteChoice, Viewer, render_report, render_sign_in};
 
-fn group(name: &str, label: &str, inspected: u64, defective: u64) -> GroupCounts {
+fn group(code: &str, name: &str, inspected: u64, defective: u64) -> GroupCounts {
     GroupCounts {
-        name: name.to_owned(),
-        label: Some(label.to_owned()),
+        code: code.to_owned(),
+        name: Some(name.to_owned()),
         inspected,
         defective,
         defects: BTreeMap::new(),
@@ -126,7 +126,7 @@ fn the_defect_categories_are_shown_between_the_flags_and_the_sample_sizes() {
     ];
     let mut groups = five_sites();
     for (g, (name, flash, seal)) in groups.iter_mut().zip(mix) {
-        assert_eq!(g.name, name);
+        assert_eq!(g.code, name);
         g.defects = BTreeMap::from([("flash".to_owned(), flash), ("seal-leak".to_owned(), seal)]);
     }
     let html = render_report(&report_of(&groups, Parameters::default()), &ctx());
@@ -165,8 +165,8 @@ fn the_defect_categories_are_shown_between_the_flags_and_the_sample_sizes() {
 #[test]
 fn names_from_users_are_escaped_everywhere() {
     let mut groups = five_sites();
-    groups[0].name = "<script>alert(1)</script>".to_owned();
-    groups[0].label = Some("\"><img src=x onerror=alert(2)>".to_owned());
+    groups[0].code = "<script>alert(1)</script>".to_owned();
+    groups[0].name = Some("\"><img src=x onerror=alert(2)>".to_owned());
     let report = report_of(&groups, Parameters::default());
     let html = render_report(&report, &ctx());
     assert!(!html.contains("<script"), "raw script tag in the page");

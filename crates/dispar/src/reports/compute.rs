@@ -30,10 +30,10 @@ pub fn group_name(level: &Level, g: &GroupTotals) -> String {
     }
 }
 
-fn counts(name: String, label: Option<String>, g: GroupTotals) -> GroupCounts {
+fn counts(code: String, name: Option<String>, g: GroupTotals) -> GroupCounts {
     GroupCounts {
+        code,
         name,
-        label,
         inspected: g.inspected,
         defective: g.defective,
         defects: g
@@ -145,7 +145,7 @@ pub fn cautions() -> Vec<String> {
 /// shape (a 200-site report is about 6 MB, mostly its 19,900 pairs), which spares the
 /// copies of growing it by doubling.
 pub fn to_json(report: &Report) -> serde_json::Result<Vec<u8>> {
-    let estimate = 4096 + 400 * report.groups.len() + 320 * report.pairwise.len();
+    let estimate = 4096 + 400 * report.groups.len() + 320 * report.pairs.len();
     let mut out = Vec::with_capacity(estimate);
     serde_json::to_writer(&mut out, report)?;
     Ok(out)

@@ -11,7 +11,7 @@
 //! `min_difference`, `overdispersion` as in `dispar analyze`; `as_of` (RFC 3339: the
 //! data as they stood then). Every bad parameter is named in one 422 problem
 //! (`errors[].parameter`); an unknown parameter is a 422 too. A `site` that is not
-//! registered is a 422 with reason `unknown_site` on `site` (a filter is not a
+//! registered is a 422 with reason `unknown-site` on `site` (a filter is not a
 //! resource, so not a 404); an unknown `product` simply matches no data.
 //!
 //! # Who may ask
@@ -441,7 +441,7 @@ async fn get_series(
     let (Some(&from), Some(&to)) = (periods.first(), periods.last()) else {
         return Err(params_error(vec![FieldError::new(
             "to",
-            "empty_series",
+            "empty-series",
             "the series holds no period",
         )]));
     };

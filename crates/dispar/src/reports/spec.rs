@@ -280,14 +280,14 @@ fn series(from: Period, to: Period) -> Result<Vec<Period>, FieldError> {
     if periods.last() != Some(&to) {
         return Err(FieldError::new(
             "to",
-            "reversed_range",
+            "reversed-range",
             format!("to ({to}) is before from ({from})"),
         ));
     }
     if periods.len() > MAX_SERIES_PERIODS {
         return Err(FieldError::new(
             "to",
-            "too_many_periods",
+            "too-many-periods",
             format!(
                 "{from} to {to} is {} periods; a series holds at most {MAX_SERIES_PERIODS} (ask for a coarser period or a shorter span)",
                 periods.len()
@@ -344,7 +344,7 @@ mod tests {
         };
         let e = ReportSpec::parse_report(&raw).unwrap_err();
         assert_eq!(fields(&e), ["site"]);
-        assert_eq!(e[0].reason, "invalid_character");
+        assert_eq!(e[0].reason, "invalid-character");
     }
 
     #[test]
@@ -395,7 +395,7 @@ mod tests {
         };
         let e = ReportSpec::parse_series(&mixed).unwrap_err();
         assert_eq!(fields(&e), ["to"]);
-        assert_eq!(e[0].reason, "mixed_granularity");
+        assert_eq!(e[0].reason, "mixed-granularity");
         let reversed = RawQuery {
             from: Some("2026-W10"),
             to: Some("2026-W02"),
@@ -409,7 +409,7 @@ mod tests {
             ..raw
         };
         let e = ReportSpec::parse_series(&long).unwrap_err();
-        assert_eq!(e[0].reason, "too_many_periods");
+        assert_eq!(e[0].reason, "too-many-periods");
         let days = RawQuery {
             from: Some("2026-01-01"),
             to: Some("2026-12-31"),
