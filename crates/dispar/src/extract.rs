@@ -1,22 +1,15 @@
 //! Request extractors that answer in our problem shape instead of the framework's
-//! plain text: [`ApiJson`] (content type, size limit, syntax, unknown fields, types,
-//! each with a JSON pointer), [`Body`] (raw bytes plus media type, for endpoints that
-//! take more than JSON), and [`ApiQuery`] (query strings).
+//! plain text: [`Body`] (raw bytes plus media type; [`Body::json`] checks content
+//! type, syntax, unknown fields and types, each with a JSON pointer), and
+//! [`ApiQuery`] (query strings).
 
 use axum::body::Bytes;
 use axum::extract::{FromRequest, FromRequestParts, Request};
 use axum::http::header;
 use axum::http::request::Parts;
-use axum::response::{IntoResponse, Response};
 use serde::de::DeserializeOwned;
 
 use crate::error::{ApiError, ErrorItem, ProblemKind};
-
-/// A JSON body, checked for content type (415), size (413), syntax (400) and shape
-/// (422, naming each bad field with a JSON pointer; unknown fields are refused by the
-/// target types' `deny_unknown_fields`).
-#[derive(Debug, Clone)]
-pub struct ApiJson<T>(pub T);
 
 /// The media types a body may have, as far as this API cares.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -95,7 +88,9 @@ impl<S: Send + Sync> FromRequest<S> for Body {
 }
 
 impl Body {
-    /// The body as JSON of type `T` (415 if it is not declared JSON).
+    /// The body as JSON of type `T`: 415 if it is not declared JSON, 400 for bad
+    /// syntax, 422 naming each bad field with a JSON pointer (unknown fields are
+    /// refused by the target types' `deny_unknown_fields`).
     pub fn json<T: DeserializeOwned>(&self) -> Result<T, ApiError> {
         if self.media_type != Some(MediaType::Json) {
             return Err(unsupported(
@@ -130,20 +125,6 @@ pub fn unsupported(content_type: Option<&str>, accepted: &str) -> ApiError {
         "unsupported_media_type",
         format!("expected {accepted}"),
     ))
-}
-
-impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for ApiJson<T> {
-    type Rejection = ApiError;
-
-    async fn from_request(req: Request, state: &S) -> Result<Self, Self::Rejection> {
-        Body::from_request(req, state).await?.json().map(ApiJson)
-    }
-}
-
-impl<T: serde::Serialize> IntoResponse for ApiJson<T> {
-    fn into_response(self) -> Response {
-        axum::Json(self.0).into_response()
-    }
 }
 
 /// Parses `bytes` as JSON into `T`, turning errors into problems with JSON pointers.

@@ -56,7 +56,7 @@ impl AppState {
         Self {
             inner: Arc::new(Inner {
                 store,
-                metrics: crate::ops::metrics_handle(),
+                metrics: crate::telemetry::metrics_handle(),
                 limits,
                 shutting_down: AtomicBool::new(false),
             }),

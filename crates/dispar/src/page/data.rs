@@ -100,7 +100,7 @@ pub async fn report(state: &AppState, q: PageQuery<'_>) -> Result<Report, ApiErr
     let spec = spec.until(state.limits().request_timeout);
     let loaded = compute::load(state.store().as_ref(), &spec, &period, Detail::Report)
         .await
-        .map_err(crate::store_error)?;
+        .map_err(ApiError::from)?;
     // The statistics are CPU-bound: off the async workers, as the JSON endpoint does.
     let deadline = spec.deadline;
     crate::reports::heavy(deadline, move || {
@@ -123,7 +123,7 @@ pub async fn series(
         loads.push(
             compute::load(state.store().as_ref(), &spec, p, Detail::Summary)
                 .await
-                .map_err(crate::store_error)?,
+                .map_err(ApiError::from)?,
         );
     }
     let deadline = spec.deadline;
@@ -175,7 +175,7 @@ async fn has_data(state: &AppState, from: Date, to: Date) -> Result<bool, ApiErr
             as_of: None,
         })
         .await
-        .map_err(crate::store_error)?;
+        .map_err(ApiError::from)?;
     Ok(a.groups.iter().any(|g| g.inspected > 0))
 }
 

@@ -185,7 +185,7 @@ async fn viewer(
             pages.sessions.remove(&id);
             Err(to_sign_in())
         }
-        Err(e) => Err(problem_page(&crate::store_error(e))),
+        Err(e) => Err(problem_page(&ApiError::from(e))),
     }
 }
 
@@ -281,7 +281,7 @@ async fn sign_in(
     };
     let key = match state.store().find_key(token.id).await {
         Ok(k) => k,
-        Err(e) => return problem_page(&crate::store_error(e)),
+        Err(e) => return problem_page(&ApiError::from(e)),
     };
     let key = match key {
         Some(k) if secret_matches(&token.secret, &k.secret_hash) => k,
@@ -394,11 +394,7 @@ fn today() -> Date {
 
 /// The default week, cached per data version and day.
 async fn default_week(state: &AppState, pages: &Pages) -> Result<Period, ApiError> {
-    let version = state
-        .store()
-        .data_version()
-        .await
-        .map_err(crate::store_error)?;
+    let version = state.store().data_version().await.map_err(ApiError::from)?;
     let day = today();
     if let Ok(cache) = pages.default_week.lock()
         && let Some((v, d, p)) = *cache

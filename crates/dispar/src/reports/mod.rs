@@ -63,12 +63,10 @@ use crate::auth::Caller;
 use crate::error::{ApiError, ErrorItem, Result};
 use crate::extract::ApiQuery;
 use crate::state::AppState;
+use crate::telemetry::CACHE_TOTAL;
 
 pub use self::cache::ReportCache;
 pub use self::spec::{RawQuery, ReportSpec};
-
-/// The counter of cache outcomes.
-pub const CACHE_TOTAL: &str = "dispar_report_cache_total";
 
 /// The report routes, with their own cache (one per application instance).
 pub fn router() -> Router<AppState> {
@@ -268,11 +266,7 @@ where
     F: FnOnce() -> Fut,
     Fut: Future<Output = Result<Computed>>,
 {
-    let version = state
-        .store()
-        .data_version()
-        .await
-        .map_err(crate::store_error)?;
+    let version = state.store().data_version().await.map_err(ApiError::from)?;
     let tag = etag(key, version);
     let wanted = none_match(headers, &tag);
     if wanted == NoneMatch::Tag {
@@ -375,7 +369,7 @@ async fn get_report(
         let started = Instant::now();
         let loaded = compute::load(store.as_ref(), &spec, &period, compute::Detail::Report)
             .await
-            .map_err(crate::store_error)?;
+            .map_err(ApiError::from)?;
         let db = ms_since(started);
         let version = loaded.data_version;
         let deadline = spec.deadline;
@@ -454,7 +448,7 @@ async fn get_series(
             loads.push(
                 compute::load(store.as_ref(), &spec, p, compute::Detail::Summary)
                     .await
-                    .map_err(crate::store_error)?,
+                    .map_err(ApiError::from)?,
             );
         }
         // Each period is its own read; a write in between makes the versions differ.
