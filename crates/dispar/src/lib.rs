@@ -1,10 +1,21 @@
 //! The dispar HTTP service: an axum [`app`] over a [`dispar_store::Store`], and
 //! [`serve`] with graceful shutdown.
 //!
-//! Modules follow the resources: [`sites`] (registry), [`counts`] (daily records and
-//! batches), [`auth`] (API keys), [`ops`] (probes, metrics, problem pages); [`error`]
-//! holds the one error type and [`extract`] the extractors that keep every refusal in
-//! the problem-details shape. The binary (`main.rs`) adds the command line.
+//! Modules, by resource and then by concern:
+//!
+//! - [`sites`]: the registry of sites and lines (`/v1/sites`);
+//! - [`counts`]: daily count records, one at a time or in batches (`/v1/counts`);
+//! - [`reports`]: period reports and series (`/v1/reports`), and the
+//!   [`reports::ReportService`] that computes every report;
+//! - [`page`]: the HTML pages for people (sign-in, report, series);
+//! - [`auth`]: API keys and the [`auth::Caller`] of a request;
+//! - [`ops`]: probes, `/metrics`, problem pages, `/openapi.yaml`, and the middleware;
+//! - [`error`]: the one error type, [`ApiError`], and the mapping of store errors;
+//! - [`extract`]: the extractors that keep every refusal in the problem-details shape;
+//! - [`state`]: the [`AppState`] every handler shares, and the [`Limits`];
+//! - [`telemetry`]: logging setup, the metrics recorder and the metric names.
+//!
+//! The binary (`main.rs`, with its subcommands in `cli/`) adds the command line.
 
 #![cfg_attr(test, allow(clippy::unwrap_used))]
 

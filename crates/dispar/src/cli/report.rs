@@ -14,7 +14,7 @@ use std::process::ExitCode;
 use dispar::reports::{ReportError, ReportParams, ReportService, ReportSpec};
 use dispar_store::StoreError;
 
-use crate::DatabaseArgs;
+use super::DatabaseArgs;
 
 /// Output format of `dispar report`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
@@ -117,7 +117,7 @@ async fn report(args: &ReportArgs) -> Result<String, (u8, String)> {
             ),
         ));
     }
-    let store = crate::open(&args.database)
+    let store = super::open(&args.database)
         .await
         .map_err(|e| (EXIT_FAILURE, format!("dispar report: {e}")))?;
     // No time limit: the person at the terminal decides how long to wait.
