@@ -60,6 +60,10 @@ const LATENCY_BUCKETS: [f64; 14] = [
 
 /// The process-wide Prometheus recorder's handle, installed on first use.
 ///
+/// The `metrics` macros write to one global recorder, which a process can install only
+/// once; so its handle is kept here, for every `AppState` of the process (tests build
+/// many), rather than in one of them.
+///
 /// If another recorder was installed first (not done anywhere in dispar), metrics are
 /// rendered from a recorder of our own that nothing writes to, and a warning is logged.
 pub fn metrics_handle() -> PrometheusHandle {

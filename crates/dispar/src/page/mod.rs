@@ -13,7 +13,7 @@
 //!
 //! Modules: [`render`] (pure HTML), [`charts`] (pure SVG), [`format`] (escaping and
 //! numbers), [`session`] (cookie and session store), [`state`] (the pages' state in
-//! [`crate::AppState`]), [`data`] (reports from the report service the JSON
+//! `AppState`), [`data`] (reports from the report service the JSON
 //! endpoints use).
 //!
 //! Security: the key is only ever in the body of the sign-in POST. The session cookie

@@ -1,4 +1,4 @@
-//! The pages' own state, held in [`crate::AppState`]: the page sessions and the
+//! The pages' own state, held in the `AppState`: the page sessions and the
 //! default week of the last look-up.
 
 use std::sync::Mutex;

@@ -1,7 +1,7 @@
 //! From a checked request to a report: the store's sums per group (SQL), the groups'
-//! display names, and the pure builder of `dispar-core` (statistics in Rust). Only
-//! [`super::service::ReportService`] calls these, so the JSON endpoints, the pages and
-//! `dispar report` give the same report.
+//! display names, and the pure builder of `dispar-core` (statistics in Rust). In
+//! the server only the `ReportService` calls these, so the JSON endpoints, the pages
+//! and `dispar report` give the same report.
 
 use std::collections::{BTreeMap, HashMap};
 use std::time::Instant;

@@ -31,11 +31,13 @@
 //! request proved valid, RFC 9110 section 13.1.2). Computed reports are kept in the
 //! bounded in-memory cache of the [`ReportService`] (per server instance, shared with
 //! the pages) under the same key, so a repeated request is served without
-//! recomputing; a write makes every older entry unreachable. `as_of` reports are keyed the same way (the registered groups and
-//! their names, which an `as_of` report also shows, are current, not historical).
-//! The counter `dispar_report_cache_total{result="hit|miss|not_modified"}` counts the
-//! outcomes, and a `Server-Timing` header says where a computed answer spent its time
-//! (`db`, `stats`, `json`, in milliseconds) or that it came from the cache.
+//! recomputing; a write makes every older entry unreachable. `as_of` reports are keyed
+//! the same way (the registered groups and their names, which an `as_of` report also
+//! shows, are current, not historical). The counter
+//! `dispar_report_cache_total{result="hit|miss|not_modified"}` counts the outcomes
+//! (hits and misses of the pages too), and a `Server-Timing` header says where a
+//! computed answer spent its time (`db`, `stats`, `json`, in milliseconds) or that it
+//! came from the cache.
 
 pub mod cache;
 pub mod compute;

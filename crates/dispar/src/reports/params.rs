@@ -2,7 +2,7 @@
 //! `GET /v1/reports` and `GET /v1/reports/series` (serde), the GET forms of the pages
 //! (serde, after the page's own tidying) and the flags of `dispar report` (clap).
 //!
-//! Every value is kept as text: the checks of [`super::spec::ReportSpec`] read it
+//! Every value is kept as text: the checks of `ReportSpec` read it
 //! exactly (no trimming, no leading `+`, finite numbers only) and name each problem
 //! by its parameter, whatever the value came from.
 

@@ -376,3 +376,31 @@ impl ReportService {
         out.map_err(|e| ReportError::Failed(e.to_string()))
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn report_errors_become_the_problems_the_api_always_gave() {
+        let e = ApiError::from(ReportError::TimedOut);
+        assert_eq!(e.kind(), ProblemKind::Timeout);
+        assert!(
+            e.body()["detail"]
+                .as_str()
+                .unwrap()
+                .contains("fewer resamples"),
+            "{}",
+            e.body()
+        );
+        let e = ApiError::from(ReportError::Store(StoreError::UnknownSite {
+            site: "NOPE".to_owned(),
+        }));
+        assert_eq!(e.status().as_u16(), 422);
+        assert_eq!(e.errors()[0].parameter.as_deref(), Some("site"));
+        assert_eq!(e.errors()[0].reason, "unknown_site");
+        let e = ApiError::from(ReportError::Failed("worker panicked".to_owned()));
+        assert_eq!(e.status().as_u16(), 500);
+        assert!(!e.body().to_string().contains("panicked"));
+    }
+}
