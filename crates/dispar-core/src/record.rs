@@ -1,6 +1,6 @@
 //! Daily count records: what a plant posts for one line, day and (optional) product.
 //!
-//! The raw input types ([`CountRecordInput`], [`CountsInput`], [`BatchInput`]) derive
+//! The raw input types ([`CountRecordInput`], [`CountsInput`]) derive
 //! serde with `deny_unknown_fields` so a server can deserialize request bodies into
 //! them; checking them gives a typed [`CountRecord`] or a [`ValidationError`] naming
 //! every bad field. Limits: counts at most [`MAX_COUNT`] (10^12), at most
@@ -549,14 +549,6 @@ impl TryFrom<CountRecordInput> for CountRecord {
     }
 }
 
-/// The body of `POST /v1/counts` (JSON form).
-#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct BatchInput {
-    /// The records, in order.
-    pub records: Vec<CountRecordInput>,
-}
-
 /// Checks every record of a batch; field paths are prefixed with `/records/<i>`
 /// (0-based, as in a JSON pointer) and every error of every record is reported.
 /// Two records with the same natural key in one batch are refused (reason
@@ -594,146 +586,6 @@ pub fn check_rows(
         }
     }
     if c.is_empty() { Ok(out) } else { Err(c.fail()) }
-}
-
-/// Column layout of a CSV batch (`POST /v1/counts`, `text/csv`), read from its header.
-///
-/// Required columns `site`, `line`, `date`, `inspected`, `defective`; optional
-/// `product`, `revision`, and any number of `defect:<category>` columns (at most
-/// [`MAX_CATEGORIES`]). Column names are matched exactly (lower case), in any order.
-/// In a row, an empty `product` or `revision` cell means "none" and an empty
-/// `defect:<category>` cell means that category is absent from the record.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct CsvLayout {
-    width: usize,
-    site: usize,
-    line: usize,
-    date: usize,
-    inspected: usize,
-    defective: usize,
-    product: Option<usize>,
-    revision: Option<usize>,
-    defects: Vec<(String, usize)>,
-}
-
-impl CsvLayout {
-    /// Reads the header. Errors are on fields `header/<column>` (reasons
-    /// `duplicate`, `invalid-character`..., `unknown-column`) or `header` (reason
-    /// `missing-column`, naming the column).
-    pub fn from_header<S: AsRef<str>>(header: &[S]) -> Result<Self, ValidationError> {
-        let mut c = Collector::new();
-        let mut seen: HashMap<&str, usize> = HashMap::new();
-        let mut defects = Vec::new();
-        for (i, h) in header.iter().enumerate() {
-            let h = h.as_ref();
-            let field = format!("header/{}", pointer_segment(h));
-            if seen.insert(h, i).is_some() {
-                c.push(FieldError::new(
-                    field,
-                    reason::DUPLICATE,
-                    format!("column {h:?} appears twice"),
-                ));
-                continue;
-            }
-            match h {
-                "site" | "line" | "date" | "inspected" | "defective" | "product" | "revision" => {}
-                _ => match h.strip_prefix("defect:") {
-                    Some(cat) => {
-                        if let Some(code) = c.take(CategoryCode::parse_field(cat, field)) {
-                            defects.push((String::from(code), i));
-                        }
-                    }
-                    None => c.push(FieldError::new(
-                        field,
-                        "unknown-column",
-                        format!(
-                            "unknown column {h:?}; columns are site, line, date, inspected, defective, product, revision and defect:<category>"
-                        ),
-                    )),
-                },
-            }
-        }
-        if defects.len() > MAX_CATEGORIES {
-            c.push(FieldError::new(
-                "header",
-                reason::TOO_MANY_CATEGORIES,
-                format!(
-                    "{} defect columns; at most {MAX_CATEGORIES} are allowed",
-                    defects.len()
-                ),
-            ));
-        }
-        let mut required = |name: &str| {
-            let at = seen.get(name).copied();
-            if at.is_none() {
-                c.push(FieldError::new(
-                    "header",
-                    "missing-column",
-                    format!("the header has no {name:?} column"),
-                ));
-            }
-            at
-        };
-        let (site, line, date) = (required("site"), required("line"), required("date"));
-        let (inspected, defective) = (required("inspected"), required("defective"));
-        match (site, line, date, inspected, defective) {
-            (Some(site), Some(line), Some(date), Some(inspected), Some(defective))
-                if c.is_empty() =>
-            {
-                Ok(Self {
-                    width: header.len(),
-                    site,
-                    line,
-                    date,
-                    inspected,
-                    defective,
-                    product: seen.get("product").copied(),
-                    revision: seen.get("revision").copied(),
-                    defects,
-                })
-            }
-            _ => Err(c.fail()),
-        }
-    }
-
-    /// Turns one row's cells into a raw record, to be checked with
-    /// [`CountRecord::try_from`]. A row with another number of cells than the header
-    /// is refused (reason `ragged-row`, field empty: the caller prefixes the row).
-    pub fn record<S: AsRef<str>>(&self, cells: &[S]) -> Result<CountRecordInput, FieldError> {
-        if cells.len() != self.width {
-            return Err(FieldError::new(
-                "",
-                "ragged-row",
-                format!(
-                    "the row has {} fields but the header has {}",
-                    cells.len(),
-                    self.width
-                ),
-            ));
-        }
-        let cell = |i: usize| cells[i].as_ref();
-        let opt = |i: Option<usize>| i.map(cell).filter(|s| !s.is_empty());
-        let defects: BTreeMap<String, RawNumber> = self
-            .defects
-            .iter()
-            .filter(|(_, i)| !cell(*i).is_empty())
-            .map(|(cat, i)| (cat.clone(), RawNumber::from(cell(*i))))
-            .collect();
-        Ok(CountRecordInput {
-            site: Some(cell(self.site).to_owned()),
-            line: Some(cell(self.line).to_owned()),
-            date: Some(cell(self.date).to_owned()),
-            product: opt(self.product).map(str::to_owned),
-            inspected: Some(RawNumber::from(cell(self.inspected))),
-            defective: Some(RawNumber::from(cell(self.defective))),
-            defects: if defects.is_empty() {
-                None
-            } else {
-                Some(defects)
-            },
-            revision: opt(self.revision).map(RawNumber::from),
-        })
-    }
 }
 
 #[cfg(test)]
@@ -852,63 +704,20 @@ mod tests {
 
     #[test]
     fn a_batch_names_the_record_of_each_error_and_refuses_duplicate_keys() {
-        let batch: BatchInput = serde_json::from_str(
-            r#"{"records":[
+        let records: Vec<CountRecordInput> = serde_json::from_str(
+            r#"[
               {"site":"S1","line":"L1","date":"2026-03-14","inspected":10,"defective":1},
               {"site":"S1","line":"L1","date":"2026-03-14","inspected":10,"defective":20},
               {"site":"S1","line":"L1","date":"2026-03-14","inspected":12,"defective":2}
-            ]}"#,
+            ]"#,
         )
         .unwrap();
-        let e = check_batch(batch.records).unwrap_err();
+        let e = check_batch(records).unwrap_err();
         assert_eq!(
             reasons(&e),
             [
                 ("/records/1/defective", "exceeds-inspected"),
                 ("/records/2", "duplicate")
-            ]
-        );
-    }
-
-    #[test]
-    fn a_csv_header_maps_columns_and_rows_become_raw_records() {
-        let layout = CsvLayout::from_header(&[
-            "date",
-            "site",
-            "line",
-            "product",
-            "inspected",
-            "defective",
-            "defect:scratch",
-            "revision",
-        ])
-        .unwrap();
-        let raw = layout
-            .record(&["2026-03-14", "S1", "L1", "", "100", "2", "3", ""])
-            .unwrap();
-        let r = CountRecord::try_from(raw).unwrap();
-        assert_eq!(r.product(), None);
-        assert_eq!(r.revision, None);
-        assert_eq!(r.defects().get("scratch"), Some(&3));
-        let raw = layout
-            .record(&["2026-03-14", "S1", "L1", "P", "100", "2", "", "4"])
-            .unwrap();
-        let r = CountRecord::try_from(raw).unwrap();
-        assert!(r.defects().is_empty());
-        assert_eq!(r.revision, Some(4));
-        assert_eq!(layout.record(&["x"]).unwrap_err().reason, "ragged-row");
-
-        let e =
-            CsvLayout::from_header(&["site", "site", "date", "defect:a b", "colour"]).unwrap_err();
-        assert_eq!(
-            reasons(&e),
-            [
-                ("header/site", "duplicate"),
-                ("header/defect:a b", "invalid-character"),
-                ("header/colour", "unknown-column"),
-                ("header", "missing-column"),
-                ("header", "missing-column"),
-                ("header", "missing-column"),
             ]
         );
     }

@@ -11,7 +11,7 @@
 use std::time::{Duration, Instant};
 
 use dispar::reports::compute::{self, Detail};
-use dispar::reports::spec::{RawQuery, ReportSpec};
+use dispar::reports::{ReportParams, ReportSpec};
 
 fn median(mut v: Vec<Duration>) -> f64 {
     v.sort();
@@ -25,9 +25,9 @@ async fn main() {
     let period = args.get(1).cloned().unwrap_or_else(|| "2025-06".to_owned());
     let rounds: usize = args.get(2).map_or(20, |r| r.parse().unwrap());
     let store = dispar_store::open(&url).await.unwrap();
-    let raw = RawQuery {
-        period: Some(&period),
-        ..RawQuery::default()
+    let raw = ReportParams {
+        period: Some(period),
+        ..ReportParams::default()
     };
     let (spec, period) = ReportSpec::parse_report(&raw).unwrap();
     let (mut version, mut sums, mut load, mut build, mut json, mut json_plain) = (
@@ -55,7 +55,7 @@ async fn main() {
             .unwrap();
         load.push(t.elapsed());
         let t = Instant::now();
-        let report = compute::build(&spec, period, &loaded.groups);
+        let report = compute::build(&spec, period, &loaded.groups, None);
         build.push(t.elapsed());
         let t = Instant::now();
         bytes = compute::to_json(&report).unwrap().len();

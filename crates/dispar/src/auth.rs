@@ -249,7 +249,7 @@ impl FromRequestParts<AppState> for Caller {
             .store()
             .find_key(parsed.id)
             .await
-            .map_err(crate::store_error)?;
+            .map_err(ApiError::from)?;
         let Some(key) = key else {
             return Err(unauthorized("The API key is not valid.", true));
         };

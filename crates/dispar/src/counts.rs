@@ -27,14 +27,17 @@ use dispar_core::date::{format_date, parse_date_field};
 use dispar_core::error::{FieldError, ValidationError};
 use dispar_core::record::{CountRecord, CountRecordInput, CountsInput, RecordKey};
 use dispar_store::{
-    BatchOutcome, BatchResult, CountFilter, Idempotency, MAX_PAGE, RecordError, RecordProblem,
-    StoreError, StoredAnswer, StoredRecord, WriteOutcome, WriteStatus,
+    BatchOutcome, BatchResult, CountFilter, Idempotency, MAX_PAGE, StoreError, StoredAnswer,
+    StoredRecord, WriteOutcome, WriteStatus,
 };
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
 use crate::auth::Caller;
-use crate::error::{ApiError, ErrorItem, ProblemKind, Result, validation_with_params};
+use crate::error::{
+    ApiError, ErrorItem, MAX_LISTED_ERRORS, Result, rejected_records, url_record_item,
+    validation_with_params,
+};
 use crate::extract::{ApiQuery, Body, MediaType, from_value, parse_json, unsupported};
 use crate::state::AppState;
 
@@ -46,8 +49,6 @@ pub const IDEMPOTENT_REPLAYED: HeaderName = HeaderName::from_static("idempotent-
 pub const MAX_IDEMPOTENCY_KEY_LEN: usize = 255;
 /// Default page size of `GET /v1/counts`.
 pub const DEFAULT_PAGE: u32 = 100;
-/// Most errors listed in one problem (the `detail` says how many there were).
-pub const MAX_LISTED_ERRORS: usize = 100;
 
 /// The count routes.
 pub fn router() -> Router<AppState> {
@@ -165,7 +166,7 @@ async fn put_day(
         .put_record(&record, Some(caller.key_id))
         .await
         .map_err(|e| record_errors(e, &Place::Url))?;
-    crate::ops::count_records(
+    crate::telemetry::count_records(
         usize::from(outcome.status == WriteStatus::Created),
         usize::from(outcome.status == WriteStatus::Corrected),
         usize::from(outcome.status == WriteStatus::Unchanged),
@@ -255,7 +256,7 @@ async fn get_day(
         .store()
         .get_record(&key)
         .await
-        .map_err(crate::store_error)?
+        .map_err(ApiError::from)?
     {
         Some(stored) => Ok(Json(StoredView::from(&stored))),
         None => Err(ApiError::not_found(format!("There is no record at {key}."))),
@@ -291,7 +292,7 @@ async fn revisions(
         .store()
         .record_history(&key)
         .await
-        .map_err(crate::store_error)?;
+        .map_err(ApiError::from)?;
     if history.is_empty() {
         return Err(ApiError::not_found(format!("There is no record at {key}.")));
     }
@@ -407,7 +408,7 @@ async fn list_counts(
                     "use the next_cursor of a previous page, unchanged",
                 )],
             ),
-            other => crate::store_error(other),
+            other => ApiError::from(other),
         })?;
     let mut response = Json(Page {
         records: page.records.iter().map(StoredView::from).collect(),
@@ -475,10 +476,7 @@ impl Place {
     /// The error item for `field` of record `index`.
     fn item(&self, index: usize, field: &str, reason: &'static str, message: String) -> ErrorItem {
         match self {
-            Place::Url => match field {
-                "site" | "line" => ErrorItem::parameter(field, reason, message),
-                _ => ErrorItem::pointer(format!("/{field}"), reason, message),
-            },
+            Place::Url => url_record_item(field, reason, message),
             Place::Json => ErrorItem::pointer(format!("/records/{index}/{field}"), reason, message),
             Place::Csv { lines } => ErrorItem::csv(
                 lines.get(index).copied().unwrap_or(0),
@@ -491,69 +489,13 @@ impl Place {
 }
 
 /// Maps a refused write to 422 (unknown site or line, out of range) or 409 (stale
-/// revision only), naming every refused record.
+/// revision only), naming every refused record where it came from.
 pub fn record_errors(e: StoreError, place: &Place) -> ApiError {
-    let StoreError::Rejected(list) = e else {
-        return crate::store_error(e);
-    };
-    let total = list.len();
-    let only_conflicts = list
-        .iter()
-        .all(|r| matches!(r.problem, RecordProblem::Conflict { .. }));
-    let first_conflict = list.iter().find_map(|r| match r.problem {
-        RecordProblem::Conflict {
-            current_revision, ..
-        } => Some(current_revision),
-        _ => None,
-    });
-    let items: Vec<ErrorItem> = list
-        .into_iter()
-        .take(MAX_LISTED_ERRORS)
-        .map(|RecordError { index, problem }| match problem {
-            RecordProblem::UnknownSite { site } => {
-                place.item(index, "site", "unknown-site", format!("site {site} is not registered"))
-            }
-            RecordProblem::UnknownLine { site, line } => place.item(
-                index,
-                "line",
-                "unknown-line",
-                format!("line {line} is not registered at site {site}"),
-            ),
-            RecordProblem::Conflict {
-                current_revision, ..
-            } => place.item(
-                index,
-                "revision",
-                "stale-revision",
-                format!(
-                    "revision is not newer than the current revision {current_revision}, and the counts differ"
-                ),
-            ),
-            RecordProblem::OutOfRange { field } => {
-                place.item(index, &field, "too-large", format!("{field} is out of range"))
-            }
-        })
-        .collect();
-    let suffix = if total > MAX_LISTED_ERRORS {
-        format!(" The first {MAX_LISTED_ERRORS} of {total} are listed.")
-    } else {
-        String::new()
-    };
-    if only_conflicts {
-        let current = first_conflict.unwrap_or_default();
-        ApiError::new(
-            ProblemKind::StaleRevision,
-            format!(
-                "{total} record(s) carry a revision not newer than the stored one (current revision {current}); nothing was written.{suffix}"
-            ),
-        )
-        .with_extension("current_revision", current)
-        .with_errors(items)
-    } else {
-        ApiError::validation(
-            format!("{total} record(s) were refused; nothing was written.{suffix}"),
-            items,
-        )
+    match e {
+        StoreError::Rejected(list) => rejected_records(list, |index, field, reason, message| {
+            place.item(index, field, reason, message)
+        }),
+        other => ApiError::from(other),
     }
 }
 
@@ -798,7 +740,7 @@ async fn post_batch(
         {
             Ok(Some(answer)) => return Ok(answer_response(answer, true)),
             Ok(None) => {}
-            Err(e) => return Err(crate::store_error(e)),
+            Err(e) => return Err(ApiError::from(e)),
         }
     }
     let started = std::time::Instant::now();
@@ -839,7 +781,7 @@ async fn post_batch(
     match result {
         BatchResult::Replayed(answer) => Ok(answer_response(answer, true)),
         BatchResult::Written { outcome, answer } => {
-            crate::ops::count_records(outcome.created, outcome.corrected, outcome.unchanged);
+            crate::telemetry::count_records(outcome.created, outcome.corrected, outcome.unchanged);
             tracing::info!(
                 records = records.len(),
                 created = outcome.created,

@@ -19,6 +19,7 @@ use std::fmt;
 use axum::http::StatusCode;
 use axum::http::header::{self, HeaderName, HeaderValue};
 use axum::response::{IntoResponse, Response};
+use dispar_store::{RecordError, RecordProblem, StoreError};
 use serde::Serialize;
 
 /// Handlers return this; the error defaults to [`ApiError`].
@@ -26,6 +27,8 @@ pub type Result<T, E = ApiError> = std::result::Result<T, E>;
 
 /// The media type of every error body.
 pub const PROBLEM_JSON: &str = "application/problem+json";
+/// Most errors listed in one problem (the `detail` says how many there were).
+pub const MAX_LISTED_ERRORS: usize = 100;
 
 /// The kinds of problem the API reports, each with its status, slug and title.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -518,6 +521,143 @@ impl From<dispar_core::error::ValidationError> for ApiError {
             .map(field_error_to_pointer)
             .collect();
         ApiError::validation("The request body has invalid fields.", errors)
+    }
+}
+
+/// The one mapping of store errors to API errors, for every endpoint without a more
+/// specific one. Refused records are named as fields of a record whose key is in the
+/// URL; a batch names its records itself with [`rejected_records`].
+impl From<StoreError> for ApiError {
+    fn from(e: StoreError) -> Self {
+        match e {
+            StoreError::NotFound { what, key } => {
+                ApiError::not_found(format!("There is no {what} {key}."))
+            }
+            StoreError::UnknownSite { site } => ApiError::validation(
+                format!("Site {site} is not registered."),
+                vec![ErrorItem::parameter(
+                    "site",
+                    "unknown-site",
+                    format!("site {site} is not registered"),
+                )],
+            ),
+            StoreError::Rejected(list) => rejected_records(list, |_, field, reason, message| {
+                url_record_item(field, reason, message)
+            }),
+            StoreError::IdempotencyMismatch => ApiError::new(
+                ProblemKind::IdempotencyMismatch,
+                "This Idempotency-Key was already used by this API key with a different body; nothing was written.",
+            )
+            .with_error(ErrorItem::header(
+                "idempotency-key",
+                "reused",
+                "use a new key for a new request",
+            )),
+            StoreError::BadCursor => ApiError::validation(
+                "The cursor is not one this server gave out.",
+                vec![ErrorItem::parameter(
+                    "cursor",
+                    "invalid-cursor",
+                    "use next_cursor unchanged",
+                )],
+            ),
+            StoreError::Constraint { name } => {
+                tracing::warn!(constraint = %name, "a database constraint refused a value the domain accepted");
+                ApiError::validation(
+                    "A value was refused by the database.",
+                    // The constraint's name is logged above, not shown: it is internal.
+                    vec![ErrorItem::general(
+                        "constraint",
+                        "a stored value broke a database rule",
+                    )],
+                )
+            }
+            StoreError::Busy => ApiError::unavailable("The database is busy; retry shortly.", 1),
+            e @ (StoreError::Unsupported(_) | StoreError::Internal(_)) => ApiError::internal(e),
+        }
+    }
+}
+
+/// The error item for `field` of the one record whose key is in the URL: the key's
+/// parts are path parameters, the rest is in the body.
+pub fn url_record_item(field: &str, reason: &'static str, message: String) -> ErrorItem {
+    match field {
+        "site" | "line" => ErrorItem::parameter(field, reason, message),
+        _ => ErrorItem::pointer(format!("/{field}"), reason, message),
+    }
+}
+
+/// A refused write as 422 (unknown site or line, out of range) or 409 (stale revision
+/// only), naming each refused record (at most [`MAX_LISTED_ERRORS`]) with
+/// `item(index, field, reason, message)`.
+pub fn rejected_records(
+    list: Vec<RecordError>,
+    item: impl Fn(usize, &str, &'static str, String) -> ErrorItem,
+) -> ApiError {
+    let total = list.len();
+    let only_conflicts = list
+        .iter()
+        .all(|r| matches!(r.problem, RecordProblem::Conflict { .. }));
+    let first_conflict = list.iter().find_map(|r| match r.problem {
+        RecordProblem::Conflict {
+            current_revision, ..
+        } => Some(current_revision),
+        _ => None,
+    });
+    let items: Vec<ErrorItem> = list
+        .into_iter()
+        .take(MAX_LISTED_ERRORS)
+        .map(|RecordError { index, problem }| match problem {
+            RecordProblem::UnknownSite { site } => item(
+                index,
+                "site",
+                "unknown-site",
+                format!("site {site} is not registered"),
+            ),
+            RecordProblem::UnknownLine { site, line } => item(
+                index,
+                "line",
+                "unknown-line",
+                format!("line {line} is not registered at site {site}"),
+            ),
+            RecordProblem::Conflict {
+                current_revision, ..
+            } => item(
+                index,
+                "revision",
+                "stale-revision",
+                format!(
+                    "revision is not newer than the current revision {current_revision}, and the counts differ"
+                ),
+            ),
+            RecordProblem::OutOfRange { field } => item(
+                index,
+                &field,
+                "too-large",
+                format!("{field} is out of range"),
+            ),
+        })
+        .collect();
+    let suffix = if total > MAX_LISTED_ERRORS {
+        format!(" The first {MAX_LISTED_ERRORS} of {total} are listed.")
+    } else {
+        String::new()
+    };
+    if only_conflicts {
+        let current = first_conflict.unwrap_or_default();
+        ApiError::new(
+            ProblemKind::StaleRevision,
+            format!(
+                "{total} record(s) carry a revision not newer than the stored one (current revision {current}); nothing was written.{suffix}"
+            ),
+        )
+        .with_extension("current_revision", current)
+        .with_errors(items)
+    } else {
+        ApiError::validation(
+            format!("{total} record(s) were refused; nothing was written.{suffix}"),
+            items,
+        )
     }
 }
 

@@ -1,22 +1,15 @@
 //! Request extractors that answer in our problem shape instead of the framework's
-//! plain text: [`ApiJson`] (content type, size limit, syntax, unknown fields, types,
-//! each with a JSON pointer), [`Body`] (raw bytes plus media type, for endpoints that
-//! take more than JSON), and [`ApiQuery`] (query strings).
+//! plain text: [`Body`] (raw bytes plus media type; [`Body::json`] checks content
+//! type, syntax, unknown fields and types, each with a JSON pointer), and
+//! [`ApiQuery`] (query strings).
 
 use axum::body::Bytes;
 use axum::extract::{FromRequest, FromRequestParts, Request};
 use axum::http::header;
 use axum::http::request::Parts;
-use axum::response::{IntoResponse, Response};
 use serde::de::DeserializeOwned;
 
 use crate::error::{ApiError, ErrorItem, ProblemKind};
-
-/// A JSON body, checked for content type (415), size (413), syntax (400) and shape
-/// (422, naming each bad field with a JSON pointer; unknown fields are refused by the
-/// target types' `deny_unknown_fields`).
-#[derive(Debug, Clone)]
-pub struct ApiJson<T>(pub T);
 
 /// The media types a body may have, as far as this API cares.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -95,7 +88,9 @@ impl<S: Send + Sync> FromRequest<S> for Body {
 }
 
 impl Body {
-    /// The body as JSON of type `T` (415 if it is not declared JSON).
+    /// The body as JSON of type `T`: 415 if it is not declared JSON, 400 for bad
+    /// syntax, 422 naming each bad field with a JSON pointer (unknown fields are
+    /// refused by the target types' `deny_unknown_fields`).
     pub fn json<T: DeserializeOwned>(&self) -> Result<T, ApiError> {
         if self.media_type != Some(MediaType::Json) {
             return Err(unsupported(
@@ -130,20 +125,6 @@ pub fn unsupported(content_type: Option<&str>, accepted: &str) -> ApiError {
         "unsupported-media-type",
         format!("expected {accepted}"),
     ))
-}
-
-impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for ApiJson<T> {
-    type Rejection = ApiError;
-
-    async fn from_request(req: Request, state: &S) -> Result<Self, Self::Rejection> {
-        Body::from_request(req, state).await?.json().map(ApiJson)
-    }
-}
-
-impl<T: serde::Serialize> IntoResponse for ApiJson<T> {
-    fn into_response(self) -> Response {
-        axum::Json(self.0).into_response()
-    }
 }
 
 /// Parses `bytes` as JSON into `T`, turning errors into problems with JSON pointers.
@@ -306,25 +287,57 @@ impl<S: Send + Sync, T: DeserializeOwned> FromRequestParts<S> for ApiQuery<T> {
     type Rejection = ApiError;
 
     async fn from_request_parts(parts: &mut Parts, _state: &S) -> Result<Self, Self::Rejection> {
-        let query = parts.uri.query().unwrap_or("");
         // Query types in this crate hold strings and parse values themselves, so the
         // only errors here are unknown, repeated or undecodable parameters.
-        serde_urlencoded::from_str(query)
+        serde_urlencoded::from_str(parts.uri.query().unwrap_or(""))
             .map(ApiQuery)
-            .map_err(|e| {
-                let message = e.to_string();
-                let item = if let Some(field) = backticked_after(&message, "unknown field ") {
-                    ErrorItem::parameter(field, "unknown-parameter", message)
-                } else if let Some(field) = backticked_after(&message, "duplicate field ") {
-                    ErrorItem::parameter(field, "duplicate", message)
-                } else if let Some(field) = backticked_after(&message, "missing field ") {
-                    ErrorItem::parameter(field, "required", message)
-                } else {
-                    ErrorItem::general("invalid-query", message)
-                };
-                ApiError::validation("The query string has invalid parameters.", vec![item])
-            })
+            .map_err(|e| query_error(&e.to_string()))
     }
+}
+
+/// `query` deserialized into `T` for an endpoint that takes the parameters
+/// `accepted` (when `T` holds more, for several endpoints): another name is refused
+/// as serde refuses an unknown field, with the same message, so the answer is the one
+/// [`ApiQuery`] gives for a type of exactly those fields.
+pub fn query_of<T: DeserializeOwned>(
+    query: &str,
+    accepted: &'static [&'static str],
+) -> Result<T, ApiError> {
+    use serde::de::Error as _;
+    // In order, as serde meets them: the first unknown or repeated name is the error.
+    let mut seen: Vec<String> = Vec::new();
+    for (name, _) in form_urlencoded::parse(query.as_bytes()) {
+        let message = if !accepted.contains(&name.as_ref()) {
+            serde::de::value::Error::unknown_field(&name, accepted).to_string()
+        } else if seen.iter().any(|s| *s == name) {
+            serde::de::value::Error::duplicate_field(accepted_name(accepted, &name)).to_string()
+        } else {
+            seen.push(name.into_owned());
+            continue;
+        };
+        return Err(query_error(&message));
+    }
+    serde_urlencoded::from_str(query).map_err(|e| query_error(&e.to_string()))
+}
+
+/// The `'static` spelling of `name` in `accepted` (serde's messages take one).
+fn accepted_name(accepted: &'static [&'static str], name: &str) -> &'static str {
+    accepted.iter().find(|a| **a == name).copied().unwrap_or("")
+}
+
+/// The 422 of a query string serde could not read, naming the parameter its message
+/// names.
+fn query_error(message: &str) -> ApiError {
+    let item = if let Some(field) = backticked_after(message, "unknown field ") {
+        ErrorItem::parameter(field, "unknown-parameter", message)
+    } else if let Some(field) = backticked_after(message, "duplicate field ") {
+        ErrorItem::parameter(field, "duplicate", message)
+    } else if let Some(field) = backticked_after(message, "missing field ") {
+        ErrorItem::parameter(field, "required", message)
+    } else {
+        ErrorItem::general("invalid-query", message)
+    };
+    ApiError::validation("The query string has invalid parameters.", vec![item])
 }
 
 #[cfg(test)]
@@ -404,6 +417,51 @@ mod tests {
         assert!(e.errors()[0].message.contains("line 1"), "{:?}", e.errors());
         let e = err::<Batch>(r#"{"records": []} trailing"#);
         assert_eq!(e.status().as_u16(), 400);
+    }
+
+    /// The fields of one endpoint, refusing the rest as the server's query types do.
+    #[derive(Debug, Deserialize)]
+    #[serde(deny_unknown_fields)]
+    #[allow(dead_code)]
+    struct Narrow {
+        period: Option<String>,
+        alpha: Option<String>,
+    }
+
+    /// A type holding the fields of two endpoints, refusing nothing.
+    #[derive(Debug, Deserialize)]
+    #[allow(dead_code)]
+    struct Wide {
+        period: Option<String>,
+        from: Option<String>,
+        alpha: Option<String>,
+    }
+
+    const NARROW: &[&str] = &["period", "alpha"];
+
+    #[test]
+    fn an_accepted_list_refuses_parameters_exactly_as_a_narrow_type_does() {
+        let narrow = |q: &str| -> ApiError {
+            serde_urlencoded::from_str::<Narrow>(q)
+                .map(|_| ())
+                .map_err(|e| query_error(&e.to_string()))
+                .unwrap_err()
+        };
+        for q in [
+            "period=2026-03&from=2026-01",
+            "colour=red&alpha=0.05",
+            "alpha=0.05&alpha=0.01",
+            "alpha=0.05&alpha=0.01&colour=red",
+            "colour=red&alpha=0.05&alpha=0.01",
+        ] {
+            let wide = query_of::<Wide>(q, NARROW).unwrap_err();
+            assert_eq!(wide.body(), narrow(q).body(), "{q}");
+        }
+        let ok = query_of::<Wide>("alpha=0.05&period=2026-03", NARROW).unwrap();
+        assert_eq!(ok.alpha.as_deref(), Some("0.05"));
+        let e = query_of::<Wide>("from=2026-01", NARROW).unwrap_err();
+        assert_eq!(e.errors()[0].parameter.as_deref(), Some("from"));
+        assert_eq!(e.errors()[0].reason, "unknown-parameter");
     }
 
     #[test]

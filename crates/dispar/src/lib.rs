@@ -1,10 +1,21 @@
 //! The dispar HTTP service: an axum [`app`] over a [`dispar_store::Store`], and
 //! [`serve`] with graceful shutdown.
 //!
-//! Modules follow the resources: [`sites`] (registry), [`counts`] (daily records and
-//! batches), [`auth`] (API keys), [`ops`] (probes, metrics, problem pages); [`error`]
-//! holds the one error type and [`extract`] the extractors that keep every refusal in
-//! the problem-details shape. The binary (`main.rs`) adds the command line.
+//! Modules, by resource and then by concern:
+//!
+//! - [`sites`]: the registry of sites and lines (`/v1/sites`);
+//! - [`counts`]: daily count records, one at a time or in batches (`/v1/counts`);
+//! - [`reports`]: period reports and series (`/v1/reports`), and the
+//!   [`reports::ReportService`] that computes every report;
+//! - [`page`]: the HTML pages for people (sign-in, report, series);
+//! - [`auth`]: API keys and the [`auth::Caller`] of a request;
+//! - [`ops`]: probes, `/metrics`, problem pages, `/openapi.yaml`, and the middleware;
+//! - [`error`]: the one error type, [`ApiError`], and the mapping of store errors;
+//! - [`extract`]: the extractors that keep every refusal in the problem-details shape;
+//! - [`state`]: the [`AppState`] every handler shares, and the [`Limits`];
+//! - [`telemetry`]: logging setup, the metrics recorder and the metric names.
+//!
+//! The binary (`main.rs`, with its subcommands in `cli/`) adds the command line.
 
 #![cfg_attr(test, allow(clippy::unwrap_used))]
 
@@ -25,7 +36,6 @@ use axum::Router;
 use axum::extract::{DefaultBodyLimit, MatchedPath};
 use axum::http::Request;
 use axum::middleware::{from_fn, from_fn_with_state};
-use dispar_store::StoreError;
 use tokio::net::TcpListener;
 use tower::limit::GlobalConcurrencyLimitLayer;
 use tower_http::LatencyUnit;
@@ -164,41 +174,5 @@ pub async fn shutdown_signal() {
     tokio::select! {
         () = ctrl_c => tracing::info!("received Ctrl-C"),
         () = terminate => tracing::info!("received SIGTERM"),
-    }
-}
-
-/// Maps a store error to an API error where no endpoint-specific mapping applies.
-pub fn store_error(e: StoreError) -> ApiError {
-    use crate::error::{ErrorItem, ProblemKind};
-    match e {
-        StoreError::NotFound { what, key } => ApiError::not_found(format!("There is no {what} {key}.")),
-        StoreError::UnknownSite { site } => ApiError::validation(
-            format!("Site {site} is not registered."),
-            vec![ErrorItem::parameter("site", "unknown-site", format!("site {site} is not registered"))],
-        ),
-        StoreError::Rejected(_) => counts::record_errors(e, &counts::Place::Url),
-        StoreError::IdempotencyMismatch => ApiError::new(
-            ProblemKind::IdempotencyMismatch,
-            "This Idempotency-Key was already used by this API key with a different body; nothing was written.",
-        )
-        .with_error(ErrorItem::header(
-            "idempotency-key",
-            "reused",
-            "use a new key for a new request",
-        )),
-        StoreError::BadCursor => ApiError::validation(
-            "The cursor is not one this server gave out.",
-            vec![ErrorItem::parameter("cursor", "invalid-cursor", "use next_cursor unchanged")],
-        ),
-        StoreError::Constraint { name } => {
-            tracing::warn!(constraint = %name, "a database constraint refused a value the domain accepted");
-            ApiError::validation(
-                "A value was refused by the database.",
-                // The constraint's name is logged above, not shown: it is internal.
-                vec![ErrorItem::general("constraint", "a stored value broke a database rule")],
-            )
-        }
-        StoreError::Busy => ApiError::unavailable("The database is busy; retry shortly.", 1),
-        e @ (StoreError::Unsupported(_) | StoreError::Internal(_)) => ApiError::internal(e),
     }
 }

@@ -1,16 +1,8 @@
 //! Operations: `/livez`, `/readyz`, `/metrics`, the `/problems/{slug}` pages,
 //! `/openapi.yaml` (the API contract), and the middleware every request passes
 //! (metrics, timeout, problem bodies for errors produced outside our handlers).
-//!
-//! Metrics (Prometheus text format, `GET /metrics`, no key needed):
-//! - `dispar_http_requests_total{method, route, status}` — `route` is the route
-//!   template (`/v1/sites/{site}`), or `unmatched`, so the label set stays small;
-//! - `dispar_http_request_duration_seconds{method, route}` — a histogram;
-//! - `dispar_http_requests_in_flight` — a gauge;
-//! - `dispar_records_written_total{outcome}` — count records by `created`,
-//!   `corrected`, `unchanged`, counted after the commit returned.
+//! The metric names and the recorder are in [`crate::telemetry`].
 
-use std::sync::OnceLock;
 use std::time::{Duration, Instant};
 
 use axum::Router;
@@ -20,72 +12,10 @@ use axum::http::{Method, StatusCode};
 use axum::middleware::Next;
 use axum::response::{Html, IntoResponse, Response};
 use axum::routing::get;
-use metrics_exporter_prometheus::{Matcher, PrometheusBuilder, PrometheusHandle};
 
 use crate::error::{ApiError, PROBLEM_JSON, ProblemKind};
 use crate::state::AppState;
-
-/// Counter of requests.
-pub const REQUESTS_TOTAL: &str = "dispar_http_requests_total";
-/// Histogram of request latency in seconds.
-pub const REQUEST_DURATION: &str = "dispar_http_request_duration_seconds";
-/// Gauge of requests being handled.
-pub const IN_FLIGHT: &str = "dispar_http_requests_in_flight";
-/// Counter of count records by outcome.
-pub const RECORDS_WRITTEN: &str = "dispar_records_written_total";
-
-const LATENCY_BUCKETS: [f64; 14] = [
-    0.0005, 0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5, 5.0, 10.0,
-];
-
-/// The process-wide Prometheus recorder's handle, installed on first use.
-///
-/// If another recorder was installed first (not done anywhere in dispar), metrics are
-/// rendered from a recorder of our own that nothing writes to, and a warning is logged.
-pub fn metrics_handle() -> PrometheusHandle {
-    static HANDLE: OnceLock<PrometheusHandle> = OnceLock::new();
-    HANDLE
-        .get_or_init(|| {
-            let builder = || {
-                PrometheusBuilder::new()
-                    .set_buckets_for_metric(Matcher::Full(REQUEST_DURATION.to_owned()), &LATENCY_BUCKETS)
-            };
-            match builder().and_then(PrometheusBuilder::install_recorder) {
-                Ok(handle) => {
-                    metrics::describe_counter!(REQUESTS_TOTAL, "HTTP requests by method, route template and status");
-                    metrics::describe_histogram!(
-                        REQUEST_DURATION,
-                        metrics::Unit::Seconds,
-                        "HTTP request latency by method and route template"
-                    );
-                    metrics::describe_gauge!(IN_FLIGHT, "HTTP requests being handled");
-                    metrics::describe_counter!(
-                        RECORDS_WRITTEN,
-                        "Count records in committed writes, by outcome (created, corrected, unchanged)"
-                    );
-                    handle
-                }
-                Err(e) => {
-                    tracing::warn!(error = %e, "could not install the metrics recorder; /metrics will be empty");
-                    PrometheusBuilder::new().build_recorder().handle()
-                }
-            }
-        })
-        .clone()
-}
-
-/// Counts records of a committed write.
-pub fn count_records(created: usize, corrected: usize, unchanged: usize) {
-    for (outcome, n) in [
-        ("created", created),
-        ("corrected", corrected),
-        ("unchanged", unchanged),
-    ] {
-        if n > 0 {
-            metrics::counter!(RECORDS_WRITTEN, "outcome" => outcome).increment(n as u64);
-        }
-    }
-}
+use crate::telemetry::{IN_FLIGHT, REQUEST_DURATION, REQUESTS_TOTAL};
 
 /// The operations routes (no key needed).
 pub fn router() -> Router<AppState> {

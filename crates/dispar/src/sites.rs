@@ -120,7 +120,7 @@ async fn put_site(
         .store()
         .upsert_site(&site)
         .await
-        .map_err(crate::store_error)?;
+        .map_err(ApiError::from)?;
     tracing::info!(site = %site.code, outcome = outcome_word(outcome), "site written");
     Ok(upsert_response(
         outcome,
@@ -154,7 +154,7 @@ async fn put_line(
                     format!("site {site} is not registered"),
                 )],
             ),
-            other => crate::store_error(other),
+            other => ApiError::from(other),
         })?;
     tracing::info!(site = %line.site, line = %line.code, outcome = outcome_word(outcome), "line written");
     Ok(upsert_response(
@@ -171,11 +171,7 @@ struct SiteList {
 
 async fn list_sites(State(state): State<AppState>, caller: Caller) -> Result<Json<SiteList>> {
     caller.require_read_all()?;
-    let sites = state
-        .store()
-        .list_sites()
-        .await
-        .map_err(crate::store_error)?;
+    let sites = state.store().list_sites().await.map_err(ApiError::from)?;
     Ok(Json(SiteList {
         sites: sites.iter().map(SiteView::from).collect(),
     }))
@@ -199,7 +195,7 @@ async fn get_site(
         .store()
         .get_site(&code)
         .await
-        .map_err(crate::store_error)?;
+        .map_err(ApiError::from)?;
     Ok(Json(SiteDetail {
         site: SiteView::from(&found.site),
         lines: found.lines.iter().map(LineView::from).collect(),

@@ -1,12 +1,17 @@
-//! The state every handler shares: the store, the metrics handle, the limits and
-//! the shutdown flag.
+//! The state every handler shares: the store, the report service (with its cache and
+//! CPU slots), the pages' state, the metrics handle, the limits and the shutdown
+//! flag. Nothing of it lives in a global or in a request extension.
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::Duration;
 
+use axum::extract::FromRef;
 use dispar_store::Store;
 use metrics_exporter_prometheus::PrometheusHandle;
+
+use crate::page::state::PageState;
+use crate::reports::service::ReportService;
 
 /// Request limits of the server (from `dispar serve` flags).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -45,6 +50,8 @@ pub struct AppState {
 #[derive(Debug)]
 struct Inner {
     store: Arc<dyn Store>,
+    reports: ReportService,
+    pages: Arc<PageState>,
     metrics: PrometheusHandle,
     limits: Limits,
     shutting_down: AtomicBool,
@@ -52,11 +59,14 @@ struct Inner {
 
 impl AppState {
     /// State over `store` with `limits`; metrics go to the process-wide recorder.
+    /// Reports are bounded by the request timeout.
     pub fn new(store: Arc<dyn Store>, limits: Limits) -> Self {
         Self {
             inner: Arc::new(Inner {
+                reports: ReportService::new(store.clone(), Some(limits.request_timeout)),
+                pages: Arc::new(PageState::new()),
                 store,
-                metrics: crate::ops::metrics_handle(),
+                metrics: crate::telemetry::metrics_handle(),
                 limits,
                 shutting_down: AtomicBool::new(false),
             }),
@@ -66,6 +76,16 @@ impl AppState {
     /// The store.
     pub fn store(&self) -> &Arc<dyn Store> {
         &self.inner.store
+    }
+
+    /// The one owner of report computation (and of the report cache).
+    pub fn reports(&self) -> &ReportService {
+        &self.inner.reports
+    }
+
+    /// The pages' sessions and look-ups.
+    pub fn pages(&self) -> &Arc<PageState> {
+        &self.inner.pages
     }
 
     /// The Prometheus handle (renders `/metrics`).
@@ -86,5 +106,12 @@ impl AppState {
     /// True once shutdown has begun.
     pub fn is_shutting_down(&self) -> bool {
         self.inner.shutting_down.load(Ordering::SeqCst)
+    }
+}
+
+/// The page handlers take their own state as `State<Arc<PageState>>`.
+impl FromRef<AppState> for Arc<PageState> {
+    fn from_ref(state: &AppState) -> Self {
+        state.pages().clone()
     }
 }

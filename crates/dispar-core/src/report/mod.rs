@@ -19,7 +19,7 @@ pub use build::{
 pub use model::{Report, SeriesPoint, TableReport};
 pub use params::{
     AdjustChoice, DispersionChoice, Filters, Level, LevelKind, MethodChoice, PairwiseChoice,
-    Parameters, RawParameters,
+    Parameters,
 };
 
 #[cfg(test)]

@@ -234,24 +234,17 @@ impl Default for Parameters {
     }
 }
 
-/// Parameters as received (query string or CLI flags), before checking.
-#[derive(Debug, Clone, Default, PartialEq)]
-pub struct RawParameters<'a> {
-    /// `alpha`
-    pub alpha: Option<&'a str>,
-    /// `method`
-    pub method: Option<&'a str>,
-    /// `pairwise`
-    pub pairwise: Option<&'a str>,
-    /// `adjust`
-    pub adjust: Option<&'a str>,
-    /// `resamples`
-    pub resamples: Option<&'a str>,
-    /// `min_difference`
-    pub min_difference: Option<&'a str>,
-    /// `overdispersion`
-    pub overdispersion: Option<&'a str>,
-}
+/// The names of the statistical parameters, as query parameters and (with `-` for
+/// `_`) command-line flags; [`Parameters::from_text`] reads each by its name.
+pub const PARAMETER_NAMES: [&str; 7] = [
+    "alpha",
+    "method",
+    "pairwise",
+    "adjust",
+    "resamples",
+    "min_difference",
+    "overdispersion",
+];
 
 impl Parameters {
     /// Checks typed values: alpha in (0, 1) exclusive, resamples in 100..=1,000,000,
@@ -304,9 +297,11 @@ impl Parameters {
         }
     }
 
-    /// Parses and checks query-string values (absent ones take their defaults),
-    /// collecting every problem.
-    pub fn from_raw(raw: &RawParameters<'_>) -> Result<Self, ValidationError> {
+    /// Parses and checks the parameters as text, exactly (no trimming, no leading
+    /// `+`, finite numbers only), collecting every problem under the parameter's
+    /// name. `text(name)` is the value given for the parameter `name` (one of
+    /// [`PARAMETER_NAMES`]), `None` when it was not given (it takes its default).
+    pub fn from_text<'a>(text: impl Fn(&str) -> Option<&'a str>) -> Result<Self, ValidationError> {
         let mut c = Collector::new();
         let d = Parameters::default();
         let number = |c: &mut Collector, s: Option<&str>, field: &str, default: f64| -> f64 {
@@ -328,11 +323,10 @@ impl Parameters {
                 }
             }
         };
-        let alpha = number(&mut c, raw.alpha, "alpha", d.alpha);
-        let min_difference = raw
-            .min_difference
-            .map(|s| number(&mut c, Some(s), "min_difference", 0.0));
-        let resamples = match raw.resamples.map(|s| {
+        let alpha = number(&mut c, text("alpha"), "alpha", d.alpha);
+        let min_difference =
+            text("min_difference").map(|s| number(&mut c, Some(s), "min_difference", 0.0));
+        let resamples = match text("resamples").map(|s| {
             s.parse::<u64>()
                 .ok()
                 .filter(|_| s.bytes().all(|b| b.is_ascii_digit()))
@@ -349,16 +343,16 @@ impl Parameters {
                 d.resamples
             }
         };
-        let method = raw.method.map_or(Some(d.method), |s| {
+        let method = text("method").map_or(Some(d.method), |s| {
             c.take(MethodChoice::parse_field(s, "method"))
         });
-        let pairwise = raw.pairwise.map_or(Some(d.pairwise), |s| {
+        let pairwise = text("pairwise").map_or(Some(d.pairwise), |s| {
             c.take(PairwiseChoice::parse_field(s, "pairwise"))
         });
-        let adjust = raw.adjust.map_or(Some(d.adjust), |s| {
+        let adjust = text("adjust").map_or(Some(d.adjust), |s| {
             c.take(AdjustChoice::parse_field(s, "adjust"))
         });
-        let dispersion = raw.overdispersion.map_or(Some(d.overdispersion), |s| {
+        let dispersion = text("overdispersion").map_or(Some(d.overdispersion), |s| {
             c.take(DispersionChoice::parse_field(s, "overdispersion"))
         });
         match (method, pairwise, adjust, dispersion) {
@@ -432,17 +426,17 @@ mod tests {
     }
 
     #[test]
-    fn raw_parameters_are_checked_together() {
-        let p = Parameters::from_raw(&RawParameters::default()).unwrap();
+    fn parameters_as_text_are_checked_together() {
+        let p = Parameters::from_text(|_| None).unwrap();
         assert_eq!(p, Parameters::default());
-        let raw = RawParameters {
-            alpha: Some("1.5"),
-            method: Some("chi"),
-            resamples: Some("ten"),
-            min_difference: Some("-0.1"),
-            ..Default::default()
-        };
-        let e = Parameters::from_raw(&raw).unwrap_err();
+        let given = [
+            ("alpha", "1.5"),
+            ("method", "chi"),
+            ("resamples", "ten"),
+            ("min_difference", "-0.1"),
+        ];
+        let text = |name: &str| given.iter().find(|(n, _)| *n == name).map(|(_, v)| *v);
+        let e = Parameters::from_text(text).unwrap_err();
         let mut fields: Vec<&str> = e.errors().iter().map(|f| f.field.as_str()).collect();
         fields.sort_unstable();
         assert_eq!(fields, ["alpha", "method", "min_difference", "resamples"]);

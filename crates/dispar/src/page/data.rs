@@ -1,19 +1,19 @@
-//! Where the pages get their reports: the very computation of `GET /v1/reports` and
-//! `GET /v1/reports/series` ([`crate::reports`]: the same parameter parsing, the same
-//! store sums and group names, the same builder), fed with the strings of the page's
-//! GET forms. Errors are the API's own ([`ApiError`], 422 naming each parameter), so
-//! the page words them as the JSON answer does.
+//! Where the pages get their reports: the [`crate::reports::ReportService`] of the
+//! JSON endpoints (the same parameter type and checks, the same cache, the same
+//! computation), fed with the page's GET form. Errors are the API's own
+//! ([`ApiError`], 422 naming each parameter), so the page words them as the JSON
+//! answer does.
+
+use std::sync::Arc;
 
 use dispar_core::date::MIN_DATE;
 use dispar_core::error::FieldError;
 use dispar_core::period::{DateRange, Granularity, Period};
-use dispar_core::report::{Report, SeriesPoint};
-use dispar_store::{AggregateQuery, Level as StoreLevel};
+use dispar_core::report::Report;
 use time::{Date, Duration};
 
 use crate::error::{ApiError, ErrorItem};
-use crate::reports::compute::{self, Detail};
-use crate::reports::spec::{RawQuery, ReportSpec};
+use crate::reports::{ReportParams, ReportSpec, Series};
 use crate::state::AppState;
 
 /// The statistical and filter parameters a page passes through unchanged to the
@@ -30,49 +30,42 @@ pub const PASS_THROUGH: [&str; 9] = [
     "as_of",
 ];
 
-/// The strings of a report or series request, as a form sends them.
-#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
-pub struct PageQuery<'a> {
-    /// `period=` (report page).
-    pub period: Option<&'a str>,
-    /// `from=` (series page).
-    pub from: Option<&'a str>,
-    /// `to=` (series page).
-    pub to: Option<&'a str>,
-    /// `level=` (`site`, `line`, `all-lines`; absent = `site`).
-    pub level: Option<&'a str>,
-    /// `site=`, used with `level=line` only (the page's site picker is for that).
-    pub site: Option<&'a str>,
-    /// The [`PASS_THROUGH`] parameters present, as (name, value).
-    pub extra: &'a [(String, String)],
+/// The parameters of a page's query string, as a form sends them: of each name the
+/// first value only, trimmed, an empty one as absent; unknown names are ignored (a
+/// page is for people, and a stray parameter should not cost them the page).
+pub fn page_params(query: &str) -> ReportParams {
+    let mut seen: Vec<String> = Vec::new();
+    let mut pairs = Vec::new();
+    for (name, value) in form_urlencoded::parse(query.as_bytes()) {
+        if seen.iter().any(|s| *s == name) {
+            continue;
+        }
+        seen.push(name.clone().into_owned());
+        let value = value.trim();
+        if !value.is_empty() {
+            pairs.push((name.into_owned(), value.to_owned()));
+        }
+    }
+    // Every field is optional text and no name is repeated any more, so reading the
+    // pairs cannot fail.
+    ReportParams::from_pairs(pairs).unwrap_or_default()
 }
 
-impl<'a> PageQuery<'a> {
-    fn get(&self, name: &str) -> Option<&'a str> {
-        self.extra
-            .iter()
-            .find(|(n, _)| n == name)
-            .map(|(_, v)| v.as_str())
-    }
+/// The [`PASS_THROUGH`] parameters present, as (name, value).
+pub fn pass_through(params: &ReportParams) -> Vec<(String, String)> {
+    PASS_THROUGH
+        .iter()
+        .filter_map(|name| params.get(name).map(|v| ((*name).to_owned(), v.to_owned())))
+        .collect()
+}
 
-    fn raw(&self) -> RawQuery<'a> {
-        let is_line = self.level.map(str::trim) == Some("line");
-        RawQuery {
-            period: self.period,
-            from: self.from,
-            to: self.to,
-            level: self.level,
-            site: if is_line { self.site } else { None },
-            product: self.get("product"),
-            alpha: self.get("alpha"),
-            method: self.get("method"),
-            pairwise: self.get("pairwise"),
-            adjust: self.get("adjust"),
-            resamples: self.get("resamples"),
-            min_difference: self.get("min_difference"),
-            overdispersion: self.get("overdispersion"),
-            as_of: self.get("as_of"),
-        }
+/// What the computation gets from a page: the page's site picker is for `level=line`
+/// only, so for other levels the site is not a filter.
+fn for_computation(params: &ReportParams) -> ReportParams {
+    let is_line = params.level.as_deref() == Some("line");
+    ReportParams {
+        site: if is_line { params.site.clone() } else { None },
+        ..params.clone()
     }
 }
 
@@ -94,48 +87,19 @@ pub fn parse_period(text: &str, field: &str) -> Result<Period, ApiError> {
         .map_err(|e| params_error(vec![e.at(field)]))
 }
 
-/// The report of `q.period`, exactly as `GET /v1/reports` computes it.
-pub async fn report(state: &AppState, q: PageQuery<'_>) -> Result<Report, ApiError> {
-    let (spec, period) = ReportSpec::parse_report(&q.raw()).map_err(params_error)?;
-    let spec = spec.until(state.limits().request_timeout);
-    let loaded = compute::load(state.store().as_ref(), &spec, &period, Detail::Report)
-        .await
-        .map_err(crate::store_error)?;
-    // The statistics are CPU-bound: off the async workers, as the JSON endpoint does.
-    let deadline = spec.deadline;
-    crate::reports::heavy(deadline, move || {
-        compute::build(&spec, period, &loaded.groups)
-    })
-    .await
+/// The report of `params.period`, as `GET /v1/reports` answers it (from the same
+/// cache).
+pub async fn report(state: &AppState, params: &ReportParams) -> Result<Arc<Report>, ApiError> {
+    let (spec, period) =
+        ReportSpec::parse_report(&for_computation(params)).map_err(params_error)?;
+    Ok(state.reports().report(&spec, period).await?.value)
 }
 
-/// The verdicts from `q.from` to `q.to`, exactly as `GET /v1/reports/series`
-/// computes them, with the significance level they used.
-pub async fn series(
-    state: &AppState,
-    q: PageQuery<'_>,
-) -> Result<(Vec<SeriesPoint>, f64), ApiError> {
-    let (spec, periods) = ReportSpec::parse_series(&q.raw()).map_err(params_error)?;
-    let spec = spec.until(state.limits().request_timeout);
-    let alpha = spec.parameters.alpha;
-    let mut loads = Vec::with_capacity(periods.len());
-    for p in &periods {
-        loads.push(
-            compute::load(state.store().as_ref(), &spec, p, Detail::Summary)
-                .await
-                .map_err(crate::store_error)?,
-        );
-    }
-    let deadline = spec.deadline;
-    let points = crate::reports::heavy(deadline, move || {
-        periods
-            .iter()
-            .zip(&loads)
-            .map(|(p, l)| compute::summary(&spec, *p, &l.groups))
-            .collect::<Vec<_>>()
-    })
-    .await?;
-    Ok((points, alpha))
+/// The verdicts from `params.from` to `params.to`, as `GET /v1/reports/series`
+/// answers them (from the same cache).
+pub async fn series(state: &AppState, params: &ReportParams) -> Result<Arc<Series>, ApiError> {
+    let (spec, span) = ReportSpec::parse_series(&for_computation(params)).map_err(params_error)?;
+    Ok(state.reports().series(&spec, &span).await?.value)
 }
 
 /// The period before `p` of the same kind (a range: the range of the same length
@@ -163,20 +127,17 @@ pub fn back(p: Period, n: usize) -> Period {
     cur
 }
 
-async fn has_data(state: &AppState, from: Date, to: Date) -> Result<bool, ApiError> {
-    let a = state
-        .store()
-        .aggregate(&AggregateQuery {
-            from,
-            to,
-            level: StoreLevel::Site,
-            site: None,
-            product: None,
-            as_of: None,
-        })
-        .await
-        .map_err(crate::store_error)?;
-    Ok(a.groups.iter().any(|g| g.inspected > 0))
+/// The default period of the pages ([`find_default_week`]), looked up once per data
+/// version and day.
+pub async fn default_week(state: &AppState) -> Result<Period, ApiError> {
+    let version = state.reports().data_version().await?;
+    let day = time::OffsetDateTime::now_utc().date();
+    if let Some(p) = state.pages().default_week(version, day) {
+        return Ok(p);
+    }
+    let p = find_default_week(state, day).await?;
+    state.pages().remember_default_week(version, day, p);
+    Ok(p)
 }
 
 /// The default period of the pages: the latest complete ISO week (before `today`'s
@@ -184,7 +145,7 @@ async fn has_data(state: &AppState, from: Date, to: Date) -> Result<bool, ApiErr
 ///
 /// Searches backwards in windows of 1, 4, 16, … weeks, then halves the window that
 /// has data: about a dozen aggregate queries at most.
-pub async fn default_week(state: &AppState, today: Date) -> Result<Period, ApiError> {
+pub async fn find_default_week(state: &AppState, today: Date) -> Result<Period, ApiError> {
     let current = Period::containing(Granularity::IsoWeek, today)
         .map_err(|e| ApiError::internal(format!("the current week: {e}")))?;
     let Some(last_complete) = previous(current) else {
@@ -198,7 +159,7 @@ pub async fn default_week(state: &AppState, today: Date) -> Result<Period, ApiEr
             .checked_sub(Duration::weeks(weeks) - Duration::days(1))
             .unwrap_or(MIN_DATE)
             .max(MIN_DATE);
-        if has_data(state, first, last).await? {
+        if state.reports().has_data(first, last).await? {
             break Some((first, last));
         }
         if first <= MIN_DATE {
@@ -220,7 +181,7 @@ pub async fn default_week(state: &AppState, today: Date) -> Result<Period, ApiEr
             .checked_sub(Duration::weeks(span_weeks / 2) - Duration::days(1))
             .unwrap_or(first)
             .max(first);
-        if has_data(state, later_first, last).await? {
+        if state.reports().has_data(later_first, last).await? {
             first = later_first;
         } else {
             last = later_first.previous_day().unwrap_or(first);
@@ -262,20 +223,26 @@ mod tests {
 
     #[test]
     fn the_site_goes_to_the_computation_only_for_lines_of_one_site() {
-        let extra = vec![("alpha".to_owned(), "0.01".to_owned())];
-        let q = PageQuery {
-            period: Some("2026-W16"),
-            level: Some("site"),
-            site: Some("KES"),
-            extra: &extra,
-            ..PageQuery::default()
-        };
-        assert_eq!(q.raw().site, None);
-        assert_eq!(q.raw().alpha, Some("0.01"));
-        let q = PageQuery {
-            level: Some("line"),
-            ..q
-        };
-        assert_eq!(q.raw().site, Some("KES"));
+        let q = page_params("period=2026-W16&level=site&site=KES&alpha=0.01");
+        assert_eq!(q.site.as_deref(), Some("KES"), "kept for the picker");
+        assert_eq!(for_computation(&q).site, None);
+        assert_eq!(for_computation(&q).alpha.as_deref(), Some("0.01"));
+        let q = page_params("period=2026-W16&level=line&site=KES");
+        assert_eq!(for_computation(&q).site.as_deref(), Some("KES"));
+    }
+
+    #[test]
+    fn a_page_form_keeps_the_first_value_trimmed_and_ignores_unknown_names() {
+        let q = page_params("alpha=+0.01+&alpha=0.05&colour=red&method=&method=g&as_of=x");
+        assert_eq!(q.alpha.as_deref(), Some("0.01"));
+        assert_eq!(q.method, None, "the first value was empty");
+        assert_eq!(
+            pass_through(&q),
+            [
+                ("alpha".to_owned(), "0.01".to_owned()),
+                ("as_of".to_owned(), "x".to_owned())
+            ]
+        );
+        assert_eq!(page_params(""), ReportParams::default());
     }
 }

@@ -12,8 +12,9 @@
 //! | `GET /favicon.svg` | the pages' icon |
 //!
 //! Modules: [`render`] (pure HTML), [`charts`] (pure SVG), [`format`] (escaping and
-//! numbers), [`session`] (cookie and session store), [`data`] (reports from the
-//! store, as the JSON endpoints compute them).
+//! numbers), [`session`] (cookie and session store), [`state`] (the pages' state in
+//! `AppState`), [`data`] (reports from the report service the JSON
+//! endpoints use).
 //!
 //! Security: the key is only ever in the body of the sign-in POST. The session cookie
 //! is `HttpOnly; SameSite=Strict; Path=/` (+ `Secure` over https, see
@@ -26,59 +27,35 @@ pub mod data;
 pub mod format;
 pub mod render;
 pub mod session;
+pub mod state;
 
 #[cfg(test)]
 mod tests;
 
-use std::sync::{Arc, Mutex};
+use std::sync::Arc;
 
+use axum::Router;
 use axum::extract::{Form, State};
 use axum::http::header::{self, HeaderValue};
 use axum::http::{HeaderMap, StatusCode, Uri};
 use axum::response::{IntoResponse, Redirect, Response};
 use axum::routing::{get, post};
-use axum::{Extension, Router};
 use dispar_core::period::Period;
 use dispar_core::report::LevelKind;
 use dispar_store::KeyRole;
 use serde::Deserialize;
-use time::Date;
 
 use crate::auth::{parse_token, secret_matches};
 use crate::error::ApiError;
+use crate::reports::ReportParams;
 use crate::state::AppState;
 
 use self::render::{PageContext, Selection, SeriesView, SiteChoice, Viewer};
-use self::session::{SecureCookies, Sessions};
+use self::session::SecureCookies;
+use self::state::PageState;
 
-/// Settings of the pages.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
-pub struct PageConfig {
-    /// When the session cookie is `Secure`.
-    pub secure_cookies: SecureCookies,
-}
-
-/// The pages' own state: sessions and the cached default period.
-#[derive(Debug)]
-struct Pages {
-    config: PageConfig,
-    sessions: Sessions,
-    /// (data version, today, default week) of the last look-up.
-    default_week: Mutex<Option<(u64, Date, Period)>>,
-}
-
-/// The page routes with the default [`PageConfig`].
+/// The page routes; their sessions are in the [`AppState`].
 pub fn router() -> Router<AppState> {
-    router_with(PageConfig::default())
-}
-
-/// The page routes with `config`. Each call has its own sessions.
-pub fn router_with(config: PageConfig) -> Router<AppState> {
-    let pages = Arc::new(Pages {
-        config,
-        sessions: Sessions::new(),
-        default_week: Mutex::new(None),
-    });
     Router::new()
         .route("/", get(home))
         .route("/sign-in", get(sign_in_form).post(sign_in))
@@ -86,7 +63,6 @@ pub fn router_with(config: PageConfig) -> Router<AppState> {
         .route("/report", get(report_page))
         .route("/series", get(series_page))
         .route("/favicon.svg", get(favicon))
-        .layer(Extension(pages))
 }
 
 /// An HTML page with the headers every page carries.
@@ -154,7 +130,7 @@ async fn home() -> Response {
 /// The signed-in viewer of a request, or the redirect to the sign-in page.
 async fn viewer(
     state: &AppState,
-    pages: &Pages,
+    pages: &PageState,
     headers: &HeaderMap,
     uri: &Uri,
 ) -> Result<Viewer, Response> {
@@ -185,7 +161,7 @@ async fn viewer(
             pages.sessions.remove(&id);
             Err(to_sign_in())
         }
-        Err(e) => Err(problem_page(&crate::store_error(e))),
+        Err(e) => Err(problem_page(&ApiError::from(e))),
     }
 }
 
@@ -241,7 +217,7 @@ struct SignInForm {
 
 async fn sign_in(
     State(state): State<AppState>,
-    Extension(pages): Extension<Arc<Pages>>,
+    State(pages): State<Arc<PageState>>,
     headers: HeaderMap,
     form: Result<Form<SignInForm>, axum::extract::rejection::FormRejection>,
 ) -> Response {
@@ -281,7 +257,7 @@ async fn sign_in(
     };
     let key = match state.store().find_key(token.id).await {
         Ok(k) => k,
-        Err(e) => return problem_page(&crate::store_error(e)),
+        Err(e) => return problem_page(&ApiError::from(e)),
     };
     let key = match key {
         Some(k) if secret_matches(&token.secret, &k.secret_hash) => k,
@@ -309,14 +285,14 @@ async fn sign_in(
     };
     tracing::Span::current().record("key_id", key.id);
     tracing::info!(key_id = key.id, role = %key.role, "signed in to the pages");
-    let secure = pages.config.secure_cookies.secure_for(&headers);
+    let secure = SecureCookies::Auto.secure_for(&headers);
     see_other(
         next.unwrap_or("/report"),
         Some(session::set_cookie(&id, secure)),
     )
 }
 
-async fn sign_out(Extension(pages): Extension<Arc<Pages>>, headers: HeaderMap) -> Response {
+async fn sign_out(State(pages): State<Arc<PageState>>, headers: HeaderMap) -> Response {
     if session::cross_site(&headers) {
         return html(
             StatusCode::FORBIDDEN,
@@ -326,49 +302,17 @@ async fn sign_out(Extension(pages): Extension<Arc<Pages>>, headers: HeaderMap) -
     if let Some(id) = session::session_id(&headers) {
         pages.sessions.remove(&id);
     }
-    let secure = pages.config.secure_cookies.secure_for(&headers);
+    let secure = SecureCookies::Auto.secure_for(&headers);
     see_other("/sign-in", Some(session::clear_cookie(secure)))
 }
 
-/// A page's query string: the first value of each parameter (unknown ones ignored).
-#[derive(Debug, Default)]
-struct PageParams {
-    pairs: Vec<(String, String)>,
-}
-
-impl PageParams {
-    fn of(uri: &Uri) -> Self {
-        Self {
-            pairs: form_urlencoded::parse(uri.query().unwrap_or("").as_bytes())
-                .map(|(k, v)| (k.into_owned(), v.into_owned()))
-                .collect(),
-        }
-    }
-
-    /// The first non-empty value of `name`, trimmed.
-    fn get(&self, name: &str) -> Option<&str> {
-        self.pairs
-            .iter()
-            .find(|(k, _)| k == name)
-            .map(|(_, v)| v.trim())
-            .filter(|v| !v.is_empty())
-    }
-
-    /// The pass-through parameters present.
-    fn extra(&self) -> Vec<(String, String)> {
-        data::PASS_THROUGH
-            .iter()
-            .filter_map(|name| self.get(name).map(|v| ((*name).to_owned(), v.to_owned())))
-            .collect()
-    }
-
-    fn selection(&self) -> Selection {
-        Selection {
-            period: String::new(),
-            level: level_kind(self.get("level")),
-            site: self.get("site").map(str::to_owned),
-            extra: self.extra(),
-        }
+/// What the page shows as chosen.
+fn selection(params: &ReportParams) -> Selection {
+    Selection {
+        period: String::new(),
+        level: level_kind(params.level.as_deref()),
+        site: params.site.clone(),
+        extra: data::pass_through(params),
     }
 }
 
@@ -388,32 +332,6 @@ async fn site_choices(state: &AppState) -> Vec<SiteChoice> {
     }
 }
 
-fn today() -> Date {
-    time::OffsetDateTime::now_utc().date()
-}
-
-/// The default week, cached per data version and day.
-async fn default_week(state: &AppState, pages: &Pages) -> Result<Period, ApiError> {
-    let version = state
-        .store()
-        .data_version()
-        .await
-        .map_err(crate::store_error)?;
-    let day = today();
-    if let Ok(cache) = pages.default_week.lock()
-        && let Some((v, d, p)) = *cache
-        && v == version
-        && d == day
-    {
-        return Ok(p);
-    }
-    let p = data::default_week(state, day).await?;
-    if let Ok(mut cache) = pages.default_week.lock() {
-        *cache = Some((version, day, p));
-    }
-    Ok(p)
-}
-
 fn level_kind(level: Option<&str>) -> LevelKind {
     level
         .and_then(|l| l.parse::<LevelKind>().ok())
@@ -422,7 +340,7 @@ fn level_kind(level: Option<&str>) -> LevelKind {
 
 async fn report_page(
     State(state): State<AppState>,
-    Extension(pages): Extension<Arc<Pages>>,
+    State(pages): State<Arc<PageState>>,
     headers: HeaderMap,
     uri: Uri,
 ) -> Response {
@@ -430,18 +348,18 @@ async fn report_page(
         Ok(v) => v,
         Err(r) => return r,
     };
-    let params = PageParams::of(&uri);
+    let mut params = data::page_params(uri.query().unwrap_or(""));
     let mut ctx = PageContext {
         viewer: Some(viewer),
-        selection: params.selection(),
+        selection: selection(&params),
         sites: site_choices(&state).await,
         previous: None,
         next: None,
         notice: None,
     };
-    let period_text = match params.get("period") {
-        Some(p) => p.to_owned(),
-        None => match default_week(&state, &pages).await {
+    let period_text = match params.period.clone() {
+        Some(p) => p,
+        None => match data::default_week(&state).await {
             Ok(p) => {
                 ctx.notice = Some(format!(
                     "Showing {p}, the latest complete week with data. Choose another period above."
@@ -462,15 +380,8 @@ async fn report_page(
         ctx.previous = data::previous(p).map(|x| x.to_string());
         ctx.next = p.next().map(|x| x.to_string());
     }
-    let extra = ctx.selection.extra.clone();
-    let query = data::PageQuery {
-        period: Some(&period_text),
-        level: params.get("level"),
-        site: params.get("site"),
-        extra: &extra,
-        ..data::PageQuery::default()
-    };
-    match data::report(&state, query).await {
+    params.period = Some(period_text);
+    match data::report(&state, &params).await {
         Ok(report) => html(StatusCode::OK, render::render_report(&report, &ctx)),
         Err(e) => {
             let (message, details) = words(&e);
@@ -484,7 +395,7 @@ async fn report_page(
 
 async fn series_page(
     State(state): State<AppState>,
-    Extension(pages): Extension<Arc<Pages>>,
+    State(pages): State<Arc<PageState>>,
     headers: HeaderMap,
     uri: Uri,
 ) -> Response {
@@ -492,10 +403,10 @@ async fn series_page(
         Ok(v) => v,
         Err(r) => return r,
     };
-    let params = PageParams::of(&uri);
+    let params = data::page_params(uri.query().unwrap_or(""));
     let ctx = PageContext {
         viewer: Some(viewer),
-        selection: params.selection(),
+        selection: selection(&params),
         sites: site_choices(&state).await,
         previous: None,
         next: None,
@@ -503,21 +414,18 @@ async fn series_page(
     };
     let result = async {
         let (from, to) =
-            series_bounds(&state, &pages, params.get("from"), params.get("to")).await?;
-        let query = data::PageQuery {
-            from: Some(&from),
-            to: Some(&to),
-            level: params.get("level"),
-            site: params.get("site"),
-            extra: &ctx.selection.extra,
-            ..data::PageQuery::default()
+            series_bounds(&state, params.from.as_deref(), params.to.as_deref()).await?;
+        let asked = ReportParams {
+            from: Some(from.clone()),
+            to: Some(to.clone()),
+            ..params.clone()
         };
-        let (points, alpha) = data::series(&state, query).await?;
+        let series = data::series(&state, &asked).await?;
         Ok::<_, ApiError>(SeriesView {
             from,
             to,
-            alpha,
-            points,
+            alpha: series.parameters.alpha,
+            points: series.periods.clone(),
         })
     }
     .await;
@@ -528,8 +436,8 @@ async fn series_page(
             html(
                 e.status(),
                 render::render_series_problem(
-                    params.get("from").unwrap_or(""),
-                    params.get("to").unwrap_or(""),
+                    params.from.as_deref().unwrap_or(""),
+                    params.to.as_deref().unwrap_or(""),
                     &ctx,
                     &message,
                     &details,
@@ -544,7 +452,6 @@ async fn series_page(
 /// periods before `to`.
 async fn series_bounds(
     state: &AppState,
-    pages: &Pages,
     from: Option<&str>,
     to: Option<&str>,
 ) -> Result<(String, String), ApiError> {
@@ -555,7 +462,7 @@ async fn series_bounds(
     let to_p = match to {
         Some(t) => data::parse_period(t, "to")?,
         None => {
-            let week = default_week(state, pages).await?;
+            let week = data::default_week(state).await?;
             match from_p {
                 Some(f) if f.granularity() != week.granularity() => {
                     Period::containing(f.granularity(), week.last_day()).unwrap_or(week)

@@ -647,4 +647,47 @@ mod flow {
         assert_eq!(s, StatusCode::OK);
         assert!(body.starts_with("<svg"));
     }
+
+    #[tokio::test]
+    async fn a_page_and_the_json_endpoint_share_one_cached_report() {
+        let f = fixture_with(true).await;
+        let (_, token) = key(&f.store, KeyRole::Read).await;
+        let (_, headers, _) = send(&f.app, post_form("/sign-in", form(&token, None), &[])).await;
+        let cookie = cookie_pair(headers[header::SET_COOKIE].to_str().unwrap());
+        // The page's site picker is not a filter at the site level: the same report.
+        let (s, _, _) = send(
+            &f.app,
+            get("/report?period=2026-W16&site=KES&alpha=0.01", Some(&cookie)),
+        )
+        .await;
+        assert_eq!(s, StatusCode::OK);
+        let json = Request::get("/v1/reports?period=2026-W16&alpha=0.010")
+            .header(header::AUTHORIZATION, format!("Bearer {token}"))
+            .body(Body::empty())
+            .unwrap();
+        let (s, headers, body) = send(&f.app, json).await;
+        assert_eq!(s, StatusCode::OK, "{body}");
+        assert_eq!(
+            headers["server-timing"], "cache;desc=hit",
+            "the page's report answers the JSON request"
+        );
+        let series = |path: &str| {
+            Request::get(path)
+                .header(header::AUTHORIZATION, format!("Bearer {token}"))
+                .body(Body::empty())
+                .unwrap()
+        };
+        let (s, _, _) = send(
+            &f.app,
+            get("/series?from=2026-W10&to=2026-W16", Some(&cookie)),
+        )
+        .await;
+        assert_eq!(s, StatusCode::OK);
+        let (_, headers, _) = send(
+            &f.app,
+            series("/v1/reports/series?from=2026-W10&to=2026-W16"),
+        )
+        .await;
+        assert_eq!(headers["server-timing"], "cache;desc=hit");
+    }
 }

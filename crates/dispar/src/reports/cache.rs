@@ -1,45 +1,57 @@
-//! Rendered report bodies kept in memory, keyed by (normalized request, data version).
+//! Computed reports kept in memory, keyed by (normalized request, data version).
 //!
 //! A write bumps the store's data version, so a request after it has a new key and
 //! misses; entries of older versions are dropped as soon as a newer version is
-//! stored. The cache is bounded by entries and by bytes, least recently used out
-//! first. One mutex guards it; every operation is a hash lookup, except an eviction,
-//! which scans the (at most a few hundred) entries.
+//! stored. The cache is bounded by entries and by bytes (each entry's size is given
+//! by whoever stores it), least recently used out first. One mutex guards it; every
+//! operation is a hash lookup, except an eviction, which scans the (at most a few
+//! hundred) entries. Values are cloned out, so they should be cheap to clone
+//! (`Arc`s and `Bytes`).
 
 use std::collections::HashMap;
 use std::sync::Mutex;
 
-use axum::body::Bytes;
-
 /// Default bound on entries.
 pub const DEFAULT_ENTRIES: usize = 256;
-/// Default bound on the bytes of all bodies together (64 MiB).
-pub const DEFAULT_BYTES: usize = 64 * 1024 * 1024;
+/// Default bound on the bytes of all entries together (128 MiB).
+pub const DEFAULT_BYTES: usize = 128 * 1024 * 1024;
 
 #[derive(Debug)]
-struct Entry {
-    body: Bytes,
+struct Entry<V> {
+    value: V,
+    size: usize,
     version: u64,
     last_used: u64,
 }
 
-#[derive(Debug, Default)]
-struct Inner {
-    map: HashMap<String, Entry>,
+#[derive(Debug)]
+struct Inner<V> {
+    map: HashMap<String, Entry<V>>,
     bytes: usize,
     tick: u64,
     newest_version: u64,
 }
 
-/// A bounded, least-recently-used cache of report bodies.
+impl<V> Default for Inner<V> {
+    fn default() -> Self {
+        Self {
+            map: HashMap::new(),
+            bytes: 0,
+            tick: 0,
+            newest_version: 0,
+        }
+    }
+}
+
+/// A bounded, least-recently-used cache of computed reports.
 #[derive(Debug)]
-pub struct ReportCache {
-    inner: Mutex<Inner>,
+pub struct ReportCache<V> {
+    inner: Mutex<Inner<V>>,
     max_entries: usize,
     max_bytes: usize,
 }
 
-impl Default for ReportCache {
+impl<V: Clone> Default for ReportCache<V> {
     fn default() -> Self {
         Self::new(DEFAULT_ENTRIES, DEFAULT_BYTES)
     }
@@ -49,8 +61,8 @@ fn full_key(key: &str, version: u64) -> String {
     format!("{version}|{key}")
 }
 
-impl ReportCache {
-    /// A cache of at most `max_entries` bodies and `max_bytes` bytes; a body larger
+impl<V: Clone> ReportCache<V> {
+    /// A cache of at most `max_entries` entries and `max_bytes` bytes; an entry larger
     /// than a quarter of `max_bytes` is never kept.
     pub fn new(max_entries: usize, max_bytes: usize) -> Self {
         Self {
@@ -60,7 +72,7 @@ impl ReportCache {
         }
     }
 
-    fn lock(&self) -> std::sync::MutexGuard<'_, Inner> {
+    fn lock(&self) -> std::sync::MutexGuard<'_, Inner<V>> {
         // A panic while holding the lock leaves a consistent map (every mutation is
         // completed before anything that could panic), so a poisoned lock is usable.
         self.inner
@@ -68,20 +80,21 @@ impl ReportCache {
             .unwrap_or_else(std::sync::PoisonError::into_inner)
     }
 
-    /// The body stored for `key` at data `version`, marking it recently used.
-    pub fn get(&self, key: &str, version: u64) -> Option<Bytes> {
+    /// The value stored for `key` at data `version`, marking it recently used.
+    pub fn get(&self, key: &str, version: u64) -> Option<V> {
         let mut inner = self.lock();
         inner.tick += 1;
         let tick = inner.tick;
         let entry = inner.map.get_mut(&full_key(key, version))?;
         entry.last_used = tick;
-        Some(entry.body.clone())
+        Some(entry.value.clone())
     }
 
-    /// Stores `body` for `key` at data `version`. Entries of versions older than the
-    /// newest seen are dropped; then the least recently used go until both bounds hold.
-    pub fn insert(&self, key: &str, version: u64, body: Bytes) {
-        if body.len() > self.max_bytes / 4 {
+    /// Stores `value`, counted as `size` bytes, for `key` at data `version`. Entries
+    /// of versions older than the newest seen are dropped; then the least recently
+    /// used go until both bounds hold.
+    pub fn insert(&self, key: &str, version: u64, value: V, size: usize) {
+        if size > self.max_bytes / 4 {
             return;
         }
         let mut inner = self.lock();
@@ -92,22 +105,22 @@ impl ReportCache {
         if version > inner.newest_version {
             inner.newest_version = version;
             inner.map.retain(|_, e| e.version >= version);
-            inner.bytes = inner.map.values().map(|e| e.body.len()).sum();
+            inner.bytes = inner.map.values().map(|e| e.size).sum();
         }
         inner.tick += 1;
         let tick = inner.tick;
-        let len = body.len();
         if let Some(old) = inner.map.insert(
             full_key(key, version),
             Entry {
-                body,
+                value,
+                size,
                 version,
                 last_used: tick,
             },
         ) {
-            inner.bytes -= old.body.len();
+            inner.bytes -= old.size;
         }
-        inner.bytes += len;
+        inner.bytes += size;
         while inner.map.len() > self.max_entries || inner.bytes > self.max_bytes {
             let Some(oldest) = inner
                 .map
@@ -118,7 +131,7 @@ impl ReportCache {
                 break;
             };
             if let Some(e) = inner.map.remove(&oldest) {
-                inner.bytes -= e.body.len();
+                inner.bytes -= e.size;
             }
         }
     }
@@ -138,14 +151,20 @@ impl ReportCache {
 mod tests {
     use super::*;
 
-    fn body(s: &str) -> Bytes {
-        Bytes::from(s.to_owned())
+    fn body(s: &str) -> String {
+        s.to_owned()
+    }
+
+    /// Stores `value` counted by its length.
+    fn put(c: &ReportCache<String>, key: &str, version: u64, value: String) {
+        let size = value.len();
+        c.insert(key, version, value, size);
     }
 
     #[test]
     fn a_body_is_found_only_at_its_version() {
-        let c = ReportCache::default();
-        c.insert("a", 3, body("x"));
+        let c = ReportCache::<String>::default();
+        put(&c, "a", 3, body("x"));
         assert_eq!(c.get("a", 3), Some(body("x")));
         assert!(c.get("a", 4).is_none());
         assert!(c.get("b", 3).is_none());
@@ -153,23 +172,23 @@ mod tests {
 
     #[test]
     fn a_newer_version_drops_the_older_entries() {
-        let c = ReportCache::default();
-        c.insert("a", 1, body("x"));
-        c.insert("b", 1, body("y"));
-        c.insert("a", 2, body("z"));
+        let c = ReportCache::<String>::default();
+        put(&c, "a", 1, body("x"));
+        put(&c, "b", 1, body("y"));
+        put(&c, "a", 2, body("z"));
         assert_eq!(c.len(), 1);
         // A slow request finishing with data already superseded is not kept.
-        c.insert("b", 1, body("y"));
+        put(&c, "b", 1, body("y"));
         assert_eq!(c.len(), 1);
     }
 
     #[test]
     fn the_least_recently_used_entry_goes_first() {
         let c = ReportCache::new(2, 1 << 20);
-        c.insert("a", 1, body("1"));
-        c.insert("b", 1, body("2"));
+        put(&c, "a", 1, body("1"));
+        put(&c, "b", 1, body("2"));
         assert!(c.get("a", 1).is_some());
-        c.insert("c", 1, body("3"));
+        put(&c, "c", 1, body("3"));
         assert!(c.get("a", 1).is_some());
         assert!(c.get("b", 1).is_none());
         assert!(c.get("c", 1).is_some());
@@ -178,10 +197,10 @@ mod tests {
     #[test]
     fn the_byte_bound_holds_and_huge_bodies_are_not_kept() {
         let c = ReportCache::new(100, 40);
-        c.insert("big", 1, body(&"x".repeat(11)));
+        put(&c, "big", 1, body(&"x".repeat(11)));
         assert!(c.is_empty());
         for k in ["a", "b", "c", "d", "e"] {
-            c.insert(k, 1, body(&"x".repeat(10)));
+            put(&c, k, 1, body(&"x".repeat(10)));
         }
         assert_eq!(c.len(), 4);
         assert!(c.get("a", 1).is_none());

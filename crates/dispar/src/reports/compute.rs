@@ -1,8 +1,10 @@
 //! From a checked request to a report: the store's sums per group (SQL), the groups'
-//! display names, and the pure builder of `dispar-core` (statistics in Rust). The HTTP
-//! handlers and `dispar report` share these functions, so both give the same report.
+//! display names, and the pure builder of `dispar-core` (statistics in Rust). In
+//! the server only the `ReportService` calls these, so the JSON endpoints, the pages
+//! and `dispar report` give the same report.
 
 use std::collections::{BTreeMap, HashMap};
+use std::time::Instant;
 
 use dispar_core::period::Period;
 use dispar_core::report::build::CAUTIONS;
@@ -111,14 +113,25 @@ pub async fn load(
     })
 }
 
-/// The report of `period` over `groups` (pure; CPU-bound for many groups).
-pub fn build(spec: &ReportSpec, period: Period, groups: &[GroupCounts]) -> Report {
-    build_report(&spec.request(period), groups)
+/// The report of `period` over `groups` (pure; CPU-bound for many groups), the
+/// statistics giving up at `deadline`.
+pub fn build(
+    spec: &ReportSpec,
+    period: Period,
+    groups: &[GroupCounts],
+    deadline: Option<Instant>,
+) -> Report {
+    build_report(&spec.request(period, deadline), groups)
 }
 
 /// One period's verdict for a series.
-pub fn summary(spec: &ReportSpec, period: Period, groups: &[GroupCounts]) -> SeriesPoint {
-    build_summary(&spec.request(period), groups)
+pub fn summary(
+    spec: &ReportSpec,
+    period: Period,
+    groups: &[GroupCounts],
+    deadline: Option<Instant>,
+) -> SeriesPoint {
+    build_summary(&spec.request(period, deadline), groups)
 }
 
 /// The parameters as a report echoes them.
@@ -149,14 +162,4 @@ pub fn to_json(report: &Report) -> serde_json::Result<Vec<u8>> {
     let mut out = Vec::with_capacity(estimate);
     serde_json::to_writer(&mut out, report)?;
     Ok(out)
-}
-
-/// Loads and builds a report: what `dispar report` runs.
-pub async fn report(
-    store: &dyn Store,
-    spec: &ReportSpec,
-    period: Period,
-) -> Result<(Report, u64), StoreError> {
-    let loaded = load(store, spec, &period, Detail::Report).await?;
-    Ok((build(spec, period, &loaded.groups), loaded.data_version))
 }

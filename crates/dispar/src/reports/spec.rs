@@ -1,5 +1,5 @@
-//! What a report is asked for, checked: the parameters of `GET /v1/reports`,
-//! `GET /v1/reports/series` and `dispar report`, parsed once for all three.
+//! What a report is asked for, checked: the [`ReportParams`] of `GET /v1/reports`,
+//! `GET /v1/reports/series`, the pages and `dispar report`, checked once for all.
 //!
 //! Every problem is collected (not only the first), each as a
 //! [`FieldError`] whose `field` is the query parameter's name (`period`, `alpha`,
@@ -9,11 +9,13 @@
 use dispar_core::code::{ProductCode, SiteCode};
 use dispar_core::error::FieldError;
 use dispar_core::period::Period;
-use dispar_core::report::{Filters, Level, LevelKind, Parameters, RawParameters, ReportRequest};
+use dispar_core::report::{Filters, Level, LevelKind, Parameters, ReportRequest};
 use dispar_store::AggregateQuery;
 use time::format_description::FormatItem;
 use time::macros::format_description;
 use time::{OffsetDateTime, UtcOffset};
+
+use super::params::ReportParams;
 
 /// Most periods one series may hold (`GET /v1/reports/series`); more is a 422 on `to`.
 pub const MAX_SERIES_PERIODS: usize = 400;
@@ -22,39 +24,6 @@ pub const MAX_SERIES_PERIODS: usize = 400;
 /// microseconds), so equal instants give equal text.
 const INSTANT: &[FormatItem<'static>] =
     format_description!("[year]-[month]-[day]T[hour]:[minute]:[second].[subsecond digits:6]Z");
-
-/// The parameters as received (query string values or command-line flags), unchecked.
-#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
-pub struct RawQuery<'a> {
-    /// `period` (reports).
-    pub period: Option<&'a str>,
-    /// `from` (series).
-    pub from: Option<&'a str>,
-    /// `to` (series).
-    pub to: Option<&'a str>,
-    /// `level`: `site` (default), `line`, `all-lines`.
-    pub level: Option<&'a str>,
-    /// `site`: for `level=line` the site whose lines are compared, otherwise a filter.
-    pub site: Option<&'a str>,
-    /// `product` filter.
-    pub product: Option<&'a str>,
-    /// `alpha`.
-    pub alpha: Option<&'a str>,
-    /// `method`.
-    pub method: Option<&'a str>,
-    /// `pairwise`.
-    pub pairwise: Option<&'a str>,
-    /// `adjust`.
-    pub adjust: Option<&'a str>,
-    /// `resamples`.
-    pub resamples: Option<&'a str>,
-    /// `min_difference`.
-    pub min_difference: Option<&'a str>,
-    /// `overdispersion`.
-    pub overdispersion: Option<&'a str>,
-    /// `as_of` (RFC 3339).
-    pub as_of: Option<&'a str>,
-}
 
 /// Everything of a report request but its period(s), checked and normalized.
 #[derive(Debug, Clone, PartialEq)]
@@ -67,8 +36,17 @@ pub struct ReportSpec {
     pub parameters: Parameters,
     /// Read the data as it stood at this instant (UTC, whole microseconds).
     pub as_of: Option<OffsetDateTime>,
-    /// When the statistics give up (the request's time limit); not part of the key.
-    pub deadline: Option<std::time::Instant>,
+}
+
+/// The periods of a series, `from` to `to` in steps of their kind: never empty.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Span {
+    /// The first period.
+    pub from: Period,
+    /// The last period.
+    pub to: Period,
+    /// Every period from `from` to `to`, in order.
+    pub periods: Vec<Period>,
 }
 
 fn required(field: &str, example: &str) -> FieldError {
@@ -110,8 +88,8 @@ pub fn format_as_of(t: OffsetDateTime) -> String {
 impl ReportSpec {
     /// Checks level, filters, statistical parameters and `as_of`, collecting every
     /// problem into `errors` (the period fields are checked by the callers).
-    fn parse_into(raw: &RawQuery<'_>, errors: &mut Vec<FieldError>) -> Option<ReportSpec> {
-        let site = match raw.site {
+    fn parse_into(raw: &ReportParams, errors: &mut Vec<FieldError>) -> Option<ReportSpec> {
+        let site = match raw.site.as_deref() {
             Some(s) => match SiteCode::parse_field(s, "site") {
                 Ok(code) => Some(code),
                 Err(e) => {
@@ -121,7 +99,7 @@ impl ReportSpec {
             },
             None => None,
         };
-        let product = match raw.product {
+        let product = match raw.product.as_deref() {
             Some(s) => match ProductCode::parse_field(s, "product") {
                 Ok(code) => Some(code),
                 Err(e) => {
@@ -134,27 +112,23 @@ impl ReportSpec {
         // A bad site code was reported above; `level=line` with a bad site must not
         // also say "site is required".
         let level = if raw.site.is_some() && site.is_none() {
-            if let Some(Err(e)) = raw.level.map(|l| LevelKind::parse_field(l, "level")) {
+            if let Some(Err(e)) = raw
+                .level
+                .as_deref()
+                .map(|l| LevelKind::parse_field(l, "level"))
+            {
                 errors.push(e);
             }
             None
         } else {
-            Level::from_query(raw.level, site.as_ref())
+            Level::from_query(raw.level.as_deref(), site.as_ref())
                 .map_err(|e| errors.push(e))
                 .ok()
         };
-        let parameters = Parameters::from_raw(&RawParameters {
-            alpha: raw.alpha,
-            method: raw.method,
-            pairwise: raw.pairwise,
-            adjust: raw.adjust,
-            resamples: raw.resamples,
-            min_difference: raw.min_difference,
-            overdispersion: raw.overdispersion,
-        })
-        .map_err(|e| errors.extend(e.into_errors()))
-        .ok();
-        let as_of = match raw.as_of {
+        let parameters = Parameters::from_text(|name| raw.get(name))
+            .map_err(|e| errors.extend(e.into_errors()))
+            .ok();
+        let as_of = match raw.as_of.as_deref() {
             Some(s) => match parse_as_of(s) {
                 Ok(t) => Some(Some(t)),
                 Err(e) => {
@@ -169,14 +143,13 @@ impl ReportSpec {
             filters: Filters { site, product },
             parameters: parameters?,
             as_of: as_of?,
-            deadline: None,
         })
     }
 
     /// A one-period report request: `period` is required.
-    pub fn parse_report(raw: &RawQuery<'_>) -> Result<(ReportSpec, Period), Vec<FieldError>> {
+    pub fn parse_report(raw: &ReportParams) -> Result<(ReportSpec, Period), Vec<FieldError>> {
         let mut errors = Vec::new();
-        let period = parse_period_field(raw.period, "period", "2026-03")
+        let period = parse_period_field(raw.period.as_deref(), "period", "2026-03")
             .map_err(|e| errors.push(e))
             .ok();
         let spec = Self::parse_into(raw, &mut errors);
@@ -188,16 +161,19 @@ impl ReportSpec {
 
     /// A series request: `from` and `to` of the same kind (day, week, month, quarter,
     /// year), at most [`MAX_SERIES_PERIODS`] periods.
-    pub fn parse_series(raw: &RawQuery<'_>) -> Result<(ReportSpec, Vec<Period>), Vec<FieldError>> {
+    pub fn parse_series(raw: &ReportParams) -> Result<(ReportSpec, Span), Vec<FieldError>> {
         let mut errors = Vec::new();
-        let from = parse_period_field(raw.from, "from", "2026-W01")
+        let from = parse_period_field(raw.from.as_deref(), "from", "2026-W01")
             .map_err(|e| errors.push(e))
             .ok();
-        let to = parse_period_field(raw.to, "to", "2026-W26")
+        let to = parse_period_field(raw.to.as_deref(), "to", "2026-W26")
             .map_err(|e| errors.push(e))
             .ok();
         let periods = match (from, to) {
-            (Some(from), Some(to)) => series(from, to).map_err(|e| errors.push(e)).ok(),
+            (Some(from), Some(to)) => series(from, to)
+                .map(|periods| Span { from, to, periods })
+                .map_err(|e| errors.push(e))
+                .ok(),
             _ => None,
         };
         let spec = Self::parse_into(raw, &mut errors);
@@ -250,23 +226,17 @@ impl ReportSpec {
         }
     }
 
-    /// The report builder's request for `period`.
-    pub fn request(&self, period: Period) -> ReportRequest {
+    /// The report builder's request for `period`; the statistics give up at
+    /// `deadline`.
+    pub fn request(&self, period: Period, deadline: Option<std::time::Instant>) -> ReportRequest {
         ReportRequest {
             period: Some(period),
             level: Some(self.level.kind()),
             filters: self.filters.clone(),
             parameters: self.parameters.clone(),
             as_of: self.as_of.map(format_as_of),
-            deadline: self.deadline,
+            deadline,
         }
-    }
-
-    /// This spec with its statistics bounded to `limit` from now, so a report that
-    /// outlives its request stops using the CPU.
-    pub fn until(mut self, limit: std::time::Duration) -> Self {
-        self.deadline = std::time::Instant::now().checked_add(limit);
-        self
     }
 }
 
@@ -309,17 +279,17 @@ mod tests {
 
     #[test]
     fn a_report_needs_a_period_and_every_bad_parameter_is_named() {
-        let e = ReportSpec::parse_report(&RawQuery::default()).unwrap_err();
+        let e = ReportSpec::parse_report(&ReportParams::default()).unwrap_err();
         assert_eq!(fields(&e), ["period"]);
         assert_eq!(e[0].reason, "required");
-        let raw = RawQuery {
-            period: Some("2026-13"),
-            level: Some("plant"),
-            alpha: Some("2"),
-            method: Some("chi"),
-            as_of: Some("yesterday"),
-            product: Some("bad product"),
-            ..RawQuery::default()
+        let raw = ReportParams {
+            period: Some("2026-13".to_owned()),
+            level: Some("plant".to_owned()),
+            alpha: Some("2".to_owned()),
+            method: Some("chi".to_owned()),
+            as_of: Some("yesterday".to_owned()),
+            product: Some("bad product".to_owned()),
+            ..ReportParams::default()
         };
         let e = ReportSpec::parse_report(&raw).unwrap_err();
         assert_eq!(
@@ -330,17 +300,17 @@ mod tests {
 
     #[test]
     fn level_line_needs_a_site_but_a_bad_site_is_reported_once() {
-        let raw = RawQuery {
-            period: Some("2026-03"),
-            level: Some("line"),
-            ..RawQuery::default()
+        let raw = ReportParams {
+            period: Some("2026-03".to_owned()),
+            level: Some("line".to_owned()),
+            ..ReportParams::default()
         };
         let e = ReportSpec::parse_report(&raw).unwrap_err();
         assert_eq!(fields(&e), ["site"]);
         assert_eq!(e[0].reason, "required");
-        let raw = RawQuery {
-            site: Some("no/slash"),
-            ..raw
+        let raw = ReportParams {
+            site: Some("no/slash".to_owned()),
+            ..raw.clone()
         };
         let e = ReportSpec::parse_report(&raw).unwrap_err();
         assert_eq!(fields(&e), ["site"]);
@@ -349,19 +319,19 @@ mod tests {
 
     #[test]
     fn equal_requests_written_differently_have_one_key() {
-        let a = RawQuery {
-            period: Some("2026-03"),
-            alpha: Some("0.05"),
-            as_of: Some("2026-03-14T09:00:00+01:00"),
-            ..RawQuery::default()
+        let a = ReportParams {
+            period: Some("2026-03".to_owned()),
+            alpha: Some("0.05".to_owned()),
+            as_of: Some("2026-03-14T09:00:00+01:00".to_owned()),
+            ..ReportParams::default()
         };
-        let b = RawQuery {
-            period: Some("2026-03"),
-            alpha: Some("0.050"),
-            level: Some("site"),
-            method: Some("auto"),
-            as_of: Some("2026-03-14T08:00:00.000000Z"),
-            ..RawQuery::default()
+        let b = ReportParams {
+            period: Some("2026-03".to_owned()),
+            alpha: Some("0.050".to_owned()),
+            level: Some("site".to_owned()),
+            method: Some("auto".to_owned()),
+            as_of: Some("2026-03-14T08:00:00.000000Z".to_owned()),
+            ..ReportParams::default()
         };
         let (sa, _) = ReportSpec::parse_report(&a).unwrap();
         let (sb, _) = ReportSpec::parse_report(&b).unwrap();
@@ -371,9 +341,9 @@ mod tests {
             "{}",
             sa.key()
         );
-        let c = RawQuery {
-            alpha: Some("0.01"),
-            ..a
+        let c = ReportParams {
+            alpha: Some("0.01".to_owned()),
+            ..a.clone()
         };
         let (sc, _) = ReportSpec::parse_report(&c).unwrap();
         assert_ne!(sa.key(), sc.key());
@@ -381,40 +351,44 @@ mod tests {
 
     #[test]
     fn a_series_steps_by_the_period_kind_and_is_capped() {
-        let raw = RawQuery {
-            from: Some("2026-W01"),
-            to: Some("2026-W26"),
-            ..RawQuery::default()
+        let raw = ReportParams {
+            from: Some("2026-W01".to_owned()),
+            to: Some("2026-W26".to_owned()),
+            ..ReportParams::default()
         };
-        let (_, periods) = ReportSpec::parse_series(&raw).unwrap();
-        assert_eq!(periods.len(), 26);
-        assert_eq!(periods[25].to_string(), "2026-W26");
-        let mixed = RawQuery {
-            to: Some("2026-06"),
-            ..raw
+        let (_, span) = ReportSpec::parse_series(&raw).unwrap();
+        assert_eq!(span.periods.len(), 26);
+        assert_eq!(span.periods[25].to_string(), "2026-W26");
+        assert_eq!((span.from, span.to), (span.periods[0], span.periods[25]));
+        let mixed = ReportParams {
+            to: Some("2026-06".to_owned()),
+            ..raw.clone()
         };
         let e = ReportSpec::parse_series(&mixed).unwrap_err();
         assert_eq!(fields(&e), ["to"]);
         assert_eq!(e[0].reason, "mixed-granularity");
-        let reversed = RawQuery {
-            from: Some("2026-W10"),
-            to: Some("2026-W02"),
-            ..raw
+        let reversed = ReportParams {
+            from: Some("2026-W10".to_owned()),
+            to: Some("2026-W02".to_owned()),
+            ..raw.clone()
         };
         let e = ReportSpec::parse_series(&reversed).unwrap_err();
         assert_eq!(fields(&e), ["to"]);
-        let long = RawQuery {
-            from: Some("2025-01-01"),
-            to: Some("2026-12-31"),
-            ..raw
+        let long = ReportParams {
+            from: Some("2025-01-01".to_owned()),
+            to: Some("2026-12-31".to_owned()),
+            ..raw.clone()
         };
         let e = ReportSpec::parse_series(&long).unwrap_err();
         assert_eq!(e[0].reason, "too-many-periods");
-        let days = RawQuery {
-            from: Some("2026-01-01"),
-            to: Some("2026-12-31"),
-            ..raw
+        let days = ReportParams {
+            from: Some("2026-01-01".to_owned()),
+            to: Some("2026-12-31".to_owned()),
+            ..raw.clone()
         };
-        assert_eq!(ReportSpec::parse_series(&days).unwrap().1.len(), 365);
+        assert_eq!(
+            ReportSpec::parse_series(&days).unwrap().1.periods.len(),
+            365
+        );
     }
 }

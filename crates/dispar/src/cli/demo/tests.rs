@@ -26,9 +26,9 @@ use time::Date;
 use super::generate::{CATEGORIES, DemoData, DemoRecord, FIRST_DAY, LAST_DAY};
 use super::{DEFAULT_SEED, generate};
 
-const COMMITTED_SITES: &str = include_str!("../../../../demo-data/sites.csv");
-const COMMITTED_LINES: &str = include_str!("../../../../demo-data/lines.csv");
-const COMMITTED_COUNTS: &str = include_str!("../../../../demo-data/counts.csv");
+const COMMITTED_SITES: &str = include_str!("../../../../../demo-data/sites.csv");
+const COMMITTED_LINES: &str = include_str!("../../../../../demo-data/lines.csv");
+const COMMITTED_COUNTS: &str = include_str!("../../../../../demo-data/counts.csv");
 
 const FLAG_THRESHOLD: f64 = 3.0;
 

@@ -567,7 +567,7 @@ mod tests {
 
     #[test]
     fn weekly_batches_cover_every_record_once() {
-        let data = crate::demo::generate(crate::demo::DEFAULT_SEED);
+        let data = crate::cli::demo::generate(crate::cli::demo::DEFAULT_SEED);
         let weeks = weekly_batches(&data).unwrap();
         assert_eq!(weeks.len(), 25);
         assert_eq!(weeks[0].label, "2026-W02");

@@ -1,7 +1,7 @@
 //! `dispar report`: the report of one period straight from a database file, without a
-//! server, printed as text or JSON. Same parameters, same checks and the same code
-//! path as `GET /v1/reports` (`dispar::reports`: the store's sums, then the builder),
-//! so the JSON equals the API's body for the same data.
+//! server, printed as text or JSON. The same parameter type, the same checks and the
+//! same [`ReportService`] as `GET /v1/reports`, so the JSON equals the API's body for
+//! the same data.
 //!
 //! Exit codes: 0 the report was printed (whatever its verdict, including "not
 //! testable"); 2 an option is unusable (one line per problem on stderr, naming the
@@ -11,11 +11,10 @@
 use std::io::Write as _;
 use std::process::ExitCode;
 
-use dispar::reports::compute;
-use dispar::reports::spec::{RawQuery, ReportSpec};
+use dispar::reports::{ReportError, ReportParams, ReportService, ReportSpec};
 use dispar_store::StoreError;
 
-use crate::DatabaseArgs;
+use super::DatabaseArgs;
 
 /// Output format of `dispar report`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
@@ -32,43 +31,8 @@ pub enum Format {
 pub struct ReportArgs {
     #[command(flatten)]
     database: DatabaseArgs,
-    /// The period: 2026-03-14, 2026-W11, 2026-03, 2026-Q1, 2026, or 2026-03-01..2026-03-20.
-    #[arg(long)]
-    period: String,
-    /// What is compared: site (default), line (the lines of --site), all-lines.
-    #[arg(long, value_name = "site|line|all-lines")]
-    level: Option<String>,
-    /// For --level line the site whose lines are compared; otherwise only this site.
-    #[arg(long)]
-    site: Option<String>,
-    /// Only this product.
-    #[arg(long)]
-    product: Option<String>,
-    /// Significance level, between 0 and 1 (default 0.05).
-    #[arg(long)]
-    alpha: Option<String>,
-    /// Omnibus test: auto, pearson, g, exact.
-    #[arg(long, value_name = "auto|pearson|g|exact")]
-    method: Option<String>,
-    /// Pairwise test: auto, pearson, pearson-yates, fisher.
-    #[arg(long, value_name = "auto|pearson|pearson-yates|fisher")]
-    pairwise: Option<String>,
-    /// Adjustment of pairwise p-values: holm, bonferroni, hochberg, bh.
-    #[arg(long, value_name = "holm|bonferroni|hochberg|bh")]
-    adjust: Option<String>,
-    /// Monte Carlo resamples for exact conditional p-values (100 to 1000000).
-    #[arg(long, value_name = "N")]
-    resamples: Option<String>,
-    /// Smallest difference in rates that matters, in rate units (0.005 = half a point).
-    #[arg(long, value_name = "RATE")]
-    min_difference: Option<String>,
-    /// Overdispersion: estimate (estimate phi and say so) or widen (also widen the
-    /// flag rule's limit by sqrt(phi) when phi > 1).
-    #[arg(long, value_name = "estimate|widen")]
-    overdispersion: Option<String>,
-    /// Use the data as they stood at this RFC 3339 instant (e.g. 2026-04-01T00:00:00Z).
-    #[arg(long, value_name = "TIMESTAMP")]
-    as_of: Option<String>,
+    #[command(flatten)]
+    params: ReportParams,
     /// Output format.
     #[arg(long, value_enum, default_value_t = Format::Text)]
     format: Format,
@@ -126,23 +90,7 @@ pub async fn run(args: &ReportArgs) -> ExitCode {
 
 /// Does the work of [`run`]: the text to print, or an exit code and the message.
 async fn report(args: &ReportArgs) -> Result<String, (u8, String)> {
-    let raw = RawQuery {
-        period: Some(&args.period),
-        from: None,
-        to: None,
-        level: args.level.as_deref(),
-        site: args.site.as_deref(),
-        product: args.product.as_deref(),
-        alpha: args.alpha.as_deref(),
-        method: args.method.as_deref(),
-        pairwise: args.pairwise.as_deref(),
-        adjust: args.adjust.as_deref(),
-        resamples: args.resamples.as_deref(),
-        min_difference: args.min_difference.as_deref(),
-        overdispersion: args.overdispersion.as_deref(),
-        as_of: args.as_of.as_deref(),
-    };
-    let (spec, period) = ReportSpec::parse_report(&raw).map_err(|errors| {
+    let (spec, period) = ReportSpec::parse_report(&args.params).map_err(|errors| {
         let lines: Vec<String> = errors
             .iter()
             .map(|e| {
@@ -169,24 +117,29 @@ async fn report(args: &ReportArgs) -> Result<String, (u8, String)> {
             ),
         ));
     }
-    let store = crate::open(&args.database)
+    let store = super::open(&args.database)
         .await
         .map_err(|e| (EXIT_FAILURE, format!("dispar report: {e}")))?;
-    let result = compute::report(store.as_ref(), &spec, period).await;
+    // No time limit: the person at the terminal decides how long to wait.
+    let result = ReportService::new(store.clone(), None)
+        .report(&spec, period)
+        .await;
     store.close().await;
-    let (report, _version) = result.map_err(|e| match e {
-        StoreError::UnknownSite { site } => (
-            EXIT_BAD_INPUT,
-            format!("dispar report: --site: site {site} is not registered"),
-        ),
-        other => (
-            EXIT_FAILURE,
-            format!("dispar report: cannot read the counts: {other}"),
-        ),
-    })?;
+    let report = result
+        .map_err(|e| match e {
+            ReportError::Store(StoreError::UnknownSite { site }) => (
+                EXIT_BAD_INPUT,
+                format!("dispar report: --site: site {site} is not registered"),
+            ),
+            other => (
+                EXIT_FAILURE,
+                format!("dispar report: cannot read the counts: {other}"),
+            ),
+        })?
+        .value;
     match args.format {
         Format::Text => Ok(report.to_text()),
-        Format::Json => serde_json::to_string_pretty(&report)
+        Format::Json => serde_json::to_string_pretty(report.as_ref())
             .map(|mut s| {
                 s.push('\n');
                 s

@@ -1,0 +1,50 @@
+//! The pages' own state, held in the `AppState`: the page sessions and the
+//! default week of the last look-up.
+
+use std::sync::Mutex;
+
+use dispar_core::period::Period;
+use time::Date;
+
+use super::session::Sessions;
+
+/// What the pages keep between requests.
+#[derive(Debug)]
+pub struct PageState {
+    /// The signed-in sessions.
+    pub sessions: Sessions,
+    /// (data version, today, default week) of the last look-up.
+    default_week: Mutex<Option<(u64, Date, Period)>>,
+}
+
+impl Default for PageState {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+impl PageState {
+    /// No sessions, nothing looked up.
+    pub fn new() -> Self {
+        Self {
+            sessions: Sessions::new(),
+            default_week: Mutex::new(None),
+        }
+    }
+
+    /// The default week found at data `version` on `day`, if that was the last
+    /// look-up.
+    pub fn default_week(&self, version: u64, day: Date) -> Option<Period> {
+        match *self.default_week.lock().ok()? {
+            Some((v, d, p)) if v == version && d == day => Some(p),
+            _ => None,
+        }
+    }
+
+    /// Remembers the default week found at data `version` on `day`.
+    pub fn remember_default_week(&self, version: u64, day: Date, week: Period) {
+        if let Ok(mut cache) = self.default_week.lock() {
+            *cache = Some((version, day, week));
+        }
+    }
+}
