@@ -6,8 +6,12 @@
 //!
 //! ```text
 //! cargo run --release -p dispar-system-tests --example report_bench -- \
-//!     [--out DIR] [--python /work/venv-ref/bin/python] [--misses 30] [--hits 200]
+//!     [--out DIR] [--python /tmp/venv-ref/bin/python] [--misses 30] [--hits 200]
 //! ```
+//!
+//! `--python` names an interpreter with `tools/reference/requirements.txt` installed (the
+//! virtual environment of `tools/reference/README.md`); without it the Python side is
+//! skipped.
 //!
 //! Built with `--release`, the harness builds and runs the release server (or the
 //! binary in `DISPAR_BIN`). The data (deterministic, splitmix64): sites S001..S200,

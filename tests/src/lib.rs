@@ -1,6 +1,6 @@
-//! Harness for the black-box system tests in `tests/tests/*.rs`: start the real
-//! `dispar` binary on port 0 with a fresh SQLite file, make keys with its command
-//! line, and talk HTTP.
+//! Harness for the black-box system tests in `tests/tests/system/` (one test binary, one
+//! module per area): start the real `dispar` binary on port 0 with a fresh SQLite file,
+//! make keys with its command line, and talk HTTP.
 //!
 //! # Finding the binary
 //!

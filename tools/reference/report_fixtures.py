@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""Reference values for the period-report system tests (tests/tests/reports.rs).
+"""Reference values for the period-report system tests (tests/tests/system/reports.rs).
 
 Writes tests/fixtures/reports.json: the sites, lines and daily count records the test
 posts to a real server, the corrections it posts later, and for each report (period,
@@ -37,7 +37,9 @@ Sources, named again in each case's "sources":
 Deterministic: the data are written out below; rerunning with the pinned versions
 gives a byte-identical file.
 
-    /work/venv-ref/bin/python tools/reference/report_fixtures.py
+    /tmp/venv-ref/bin/python tools/reference/report_fixtures.py
+
+(the virtual environment of tools/reference/README.md, with requirements.txt installed).
 """
 
 from __future__ import annotations

@@ -317,10 +317,9 @@ mod tests {
 
     #[test]
     fn h_matches_mpmath() {
-        // h(alpha, k) from mpmath 1.3.0 at mp.dps = 30 (script
-        // /work/notes/stats-scripts/anom_ref.py): k = 3 by the hexagon integral, k = 5 by
-        // the Fourier identity with g from mp.erfc (independent of the Weideman w here);
-        // findroot to 1e-24.
+        // h(alpha, k) from mpmath 1.3.0 at mp.dps = 30 (tools/reference/unit_values.py):
+        // k = 3 by the hexagon integral, k = 5 by the Fourier identity with g from mpmath's
+        // complex erf (independent of the Weideman w here); findroot to 1e-24.
         for &(alpha, k, h) in MPMATH_H {
             let got = critical(alpha, k).expect("valid");
             assert_rel(got.h, h, 1e-11, &format!("alpha {alpha} k {k}"));

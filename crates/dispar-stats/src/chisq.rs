@@ -377,7 +377,7 @@ mod tests {
     #[test]
     fn log10_p_stays_finite_where_p_underflows() {
         // Reference: mpmath 1.3.0, log10(gammainc(df/2, x/2, inf, regularized=True)),
-        // computed with mp.dps = 50 by the stats helper (expressions beside the constants).
+        // computed with mp.dps = 50 (the expressions are beside the constants).
         let a = upper_tail(1500.0, 1).expect("valid");
         assert!(a.log10_p.is_finite());
         assert_rel(a.log10_p, MP_1500_1, 1e-13, "1500, 1");

@@ -398,8 +398,8 @@ mod tests {
 
     #[test]
     fn tea_tasting_and_large_tables_match_mpmath() {
-        // Exact sums of hypergeometric terms with mpmath 1.3.0 (mp.dps = 60), computed by
-        // the stats helper: two-sided with the 1 + 1e-7 tie rule.
+        // Exact sums of hypergeometric terms with mpmath 1.3.0 (mp.dps = 60): two-sided
+        // with the 1 + 1e-7 tie rule.
         for &(t, want, want_log10) in MPMATH_FISHER {
             let f = fisher(t[0], t[1], t[2], t[3]);
             assert_rel(f.log10_p, want_log10, 1e-12, &format!("{t:?} log10"));
@@ -409,7 +409,7 @@ mod tests {
         }
     }
 
-    // Script: /work/notes/stats-scripts/fisher_ref.py (mpmath 1.3.0, loggamma, mp.dps = 60).
+    // From tools/reference/unit_values.py (mpmath 1.3.0, loggamma, mp.dps = 60).
     const MPMATH_FISHER: &[([u64; 4], f64, f64)] = &[
         (
             [3, 1, 1, 3],

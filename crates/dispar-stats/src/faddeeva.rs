@@ -108,8 +108,8 @@ mod tests {
 
     #[test]
     fn faddeeva_matches_mpmath_in_the_upper_half_plane() {
-        // w(z) = exp(-z^2) erfc(-iz), mpmath 1.3.0 at mp.dps = 30 (stats helper's script
-        // /work/notes/stats-scripts/anom_ref.py).
+        // w(z) = exp(-z^2) erfc(-iz), mpmath 1.3.0 at mp.dps = 30
+        // (tools/reference/unit_values.py).
         for &(re, im, wre, wim) in MPMATH_W {
             let w = faddeeva(Complex { re, im });
             let mag = (wre * wre + wim * wim).sqrt();
