@@ -116,8 +116,8 @@ mod tests {
         // 99.8%, p0 = 0.0137, n = 48210, widened by sqrt(2.25) = 1.5:
         // 0.01124597703882074990 and 0.01615402296117925010.
         let band = Funnel::new(0.0137, 0.998, 1.5).expect("valid").at(48_210.0);
-        close(band.lower, 0.011_245_977_038_820_750, 1e-16, "99.8% lower");
-        close(band.upper, 0.016_154_022_961_179_250, 1e-16, "99.8% upper");
+        close(band.lower, 0.011_245_977_038_820_75, 1e-16, "99.8% lower");
+        close(band.upper, 0.016_154_022_961_179_25, 1e-16, "99.8% upper");
     }
 
     #[test]

@@ -1,5 +1,5 @@
-//! The HTML pages for people: sign in with a read key, then the report page and the
-//! series page, rendered on the server (SVG charts, no script, no external assets).
+//! The HTML pages for people: sign in with an API key with read access (read or
+//! admin), then the report page and the series page, rendered on the server (SVG charts, no script, no external assets).
 //!
 //! | path | what |
 //! |------|------|
@@ -11,9 +11,11 @@
 //! | `GET /series?from=&to=&level=&site=` | verdicts per period (default: the 12 weeks up to that week) |
 //! | `GET /favicon.svg` | the pages' icon |
 //!
-//! Modules: [`render`] (pure HTML), [`charts`] (pure SVG), [`format`] (escaping and
-//! numbers), [`session`] (cookie and session store), [`data`] (reports from the
-//! store, as the JSON endpoints compute them).
+//! Modules: [`view`] (the pages' view models: words and formatted numbers computed
+//! from a report), [`render`] (their HTML, through maud, which escapes every value it
+//! interpolates), [`charts`] (SVG chart models and their markup, through maud too),
+//! [`format`] (numbers), [`session`] (cookies and page sessions), [`data`] (reports
+//! from the store, as the JSON endpoints compute them).
 //!
 //! Security: the key is only ever in the body of the sign-in POST. The session cookie
 //! is `HttpOnly; SameSite=Strict; Path=/` (+ `Secure` over https, see
@@ -26,6 +28,7 @@ pub mod data;
 pub mod format;
 pub mod render;
 pub mod session;
+pub mod view;
 
 #[cfg(test)]
 mod tests;
@@ -48,8 +51,8 @@ use crate::auth::{parse_token, secret_matches};
 use crate::error::ApiError;
 use crate::state::AppState;
 
-use self::render::{PageContext, Selection, SeriesView, SiteChoice, Viewer};
 use self::session::{SecureCookies, Sessions};
+use self::view::{PageContext, Selection, SeriesView, SiteChoice, Viewer};
 
 /// Settings of the pages.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
@@ -90,7 +93,7 @@ pub fn router_with(config: PageConfig) -> Router<AppState> {
 }
 
 /// An HTML page with the headers every page carries.
-fn html(status: StatusCode, body: String) -> Response {
+pub(crate) fn html(status: StatusCode, body: String) -> Response {
     let csp = format!(
         "default-src 'none'; style-src {}; img-src 'self'; form-action 'self'; frame-ancestors 'none'; base-uri 'none'",
         render::style_hash()
@@ -275,7 +278,7 @@ async fn sign_in(
     let Some(token) = parse_token(form.key.trim()) else {
         return refuse(
             StatusCode::UNAUTHORIZED,
-            "That is not a dispar key. A key looks like dsp_12_ followed by 64 letters and digits.",
+            "That is not a dispar key. A key looks like `dsp_12_` followed by 64 hexadecimal digits (0-9 and a-f).",
             next,
         );
     };
@@ -295,7 +298,7 @@ async fn sign_in(
     if key.role == KeyRole::Ingest {
         return refuse(
             StatusCode::FORBIDDEN,
-            "An ingest key cannot open reports; sign in with a read key.",
+            "An ingest key cannot open reports; sign in with an API key with read access (read or admin).",
             next,
         );
     }
