@@ -19,7 +19,8 @@
 //!
 //! Security: the key is only ever in the body of the sign-in POST. The session cookie
 //! is `HttpOnly; SameSite=Strict; Path=/` (+ `Secure` over https, see
-//! [`session::SecureCookies`]). Form posts from another origin are refused. Pages are
+//! [`session::SecureCookies`]); the session itself is a row in the database (only its
+//! id's hash), so it survives a restart and every instance knows it. Form posts from another origin are refused. Pages are
 //! sent with `Cache-Control: no-store` and a Content-Security-Policy that allows no
 //! script and only the page's own style sheet.
 
@@ -41,9 +42,10 @@ use axum::http::{HeaderMap, StatusCode, Uri};
 use axum::response::{IntoResponse, Redirect, Response};
 use axum::routing::{get, post};
 use axum::{Extension, Router};
+use axum_extra::extract::cookie::CookieJar;
 use dispar_core::period::Period;
 use dispar_core::report::LevelKind;
-use dispar_store::KeyRole;
+use dispar_store::{KeyRole, NewPageSession};
 use serde::Deserialize;
 use time::Date;
 
@@ -51,7 +53,7 @@ use crate::auth::{parse_token, secret_matches};
 use crate::error::ApiError;
 use crate::state::AppState;
 
-use self::session::{SecureCookies, Sessions};
+use self::session::{MAX_SESSIONS_PER_KEY, SESSION_TTL, SecureCookies};
 use self::view::{PageContext, Selection, SeriesView, SiteChoice, Viewer};
 
 /// Settings of the pages.
@@ -61,11 +63,11 @@ pub struct PageConfig {
     pub secure_cookies: SecureCookies,
 }
 
-/// The pages' own state: sessions and the cached default period.
+/// The pages' own state: their settings and the cached default period (sessions are
+/// in the store).
 #[derive(Debug)]
 struct Pages {
     config: PageConfig,
-    sessions: Sessions,
     /// (data version, today, default week) of the last look-up.
     default_week: Mutex<Option<(u64, Date, Period)>>,
 }
@@ -75,11 +77,10 @@ pub fn router() -> Router<AppState> {
     router_with(PageConfig::default())
 }
 
-/// The page routes with `config`. Each call has its own sessions.
+/// The page routes with `config`.
 pub fn router_with(config: PageConfig) -> Router<AppState> {
     let pages = Arc::new(Pages {
         config,
-        sessions: Sessions::new(),
         default_week: Mutex::new(None),
     });
     Router::new()
@@ -120,16 +121,15 @@ pub(crate) fn html(status: StatusCode, body: String) -> Response {
     response
 }
 
-/// 303 to `location` with `Set-Cookie` when given.
-fn see_other(location: &str, cookie: Option<String>) -> Response {
-    let mut response = Redirect::to(location).into_response();
-    let h = response.headers_mut();
-    h.insert(header::CACHE_CONTROL, HeaderValue::from_static("no-store"));
-    if let Some(c) = cookie
-        && let Ok(v) = HeaderValue::from_str(&c)
-    {
-        h.insert(header::SET_COOKIE, v);
-    }
+/// 303 to `location`, with the cookies of `jar` when given.
+fn see_other(location: &str, jar: Option<CookieJar>) -> Response {
+    let mut response = match jar {
+        Some(jar) => (jar, Redirect::to(location)).into_response(),
+        None => Redirect::to(location).into_response(),
+    };
+    response
+        .headers_mut()
+        .insert(header::CACHE_CONTROL, HeaderValue::from_static("no-store"));
     response
 }
 
@@ -155,12 +155,7 @@ async fn home() -> Response {
 }
 
 /// The signed-in viewer of a request, or the redirect to the sign-in page.
-async fn viewer(
-    state: &AppState,
-    pages: &Pages,
-    headers: &HeaderMap,
-    uri: &Uri,
-) -> Result<Viewer, Response> {
+async fn viewer(state: &AppState, headers: &HeaderMap, uri: &Uri) -> Result<Viewer, Response> {
     let to_sign_in = || {
         let mut q = form_urlencoded::Serializer::new(String::new());
         let here = uri
@@ -169,11 +164,17 @@ async fn viewer(
         q.append_pair("next", &here);
         see_other(&format!("/sign-in?{}", q.finish()), None)
     };
-    let Some(id) = session::session_id(headers) else {
+    let Some(hash) = session::session_hash(&CookieJar::from_headers(headers)) else {
         return Err(to_sign_in());
     };
-    let Some(s) = pages.sessions.get(&id) else {
-        return Err(to_sign_in());
+    let found = state
+        .store()
+        .find_page_session(&hash, time::OffsetDateTime::now_utc())
+        .await;
+    let s = match found {
+        Ok(Some(s)) => s,
+        Ok(None) => return Err(to_sign_in()),
+        Err(e) => return Err(problem_page(&crate::store_error(e))),
     };
     // The key is looked up again: a revoked key ends its sessions.
     match state.store().find_key(s.key_id).await {
@@ -185,7 +186,9 @@ async fn viewer(
             })
         }
         Ok(_) => {
-            pages.sessions.remove(&id);
+            if let Err(e) = state.store().delete_page_session(&hash).await {
+                tracing::warn!(error = %e, "page: could not end the session of a refused key");
+            }
             Err(to_sign_in())
         }
         Err(e) => Err(problem_page(&crate::store_error(e))),
@@ -245,6 +248,7 @@ struct SignInForm {
 async fn sign_in(
     State(state): State<AppState>,
     Extension(pages): Extension<Arc<Pages>>,
+    jar: CookieJar,
     headers: HeaderMap,
     form: Result<Form<SignInForm>, axum::extract::rejection::FormRejection>,
 ) -> Response {
@@ -302,7 +306,7 @@ async fn sign_in(
             next,
         );
     }
-    let id = match pages.sessions.create(key.id, key.role) {
+    let id = match session::new_session_id() {
         Ok(id) => id,
         Err(e) => {
             return problem_page(&ApiError::internal(format!(
@@ -310,27 +314,50 @@ async fn sign_in(
             )));
         }
     };
+    let now = time::OffsetDateTime::now_utc();
+    let ttl = time::Duration::try_from(SESSION_TTL).unwrap_or(time::Duration::HOUR);
+    let new = NewPageSession {
+        id_hash: id.hash,
+        key_id: key.id,
+        created_at: now,
+        expires_at: now + ttl,
+    };
+    if let Err(e) = state
+        .store()
+        .create_page_session(&new, MAX_SESSIONS_PER_KEY)
+        .await
+    {
+        return problem_page(&crate::store_error(e));
+    }
     tracing::Span::current().record("key_id", key.id);
     tracing::info!(key_id = key.id, role = %key.role, "signed in to the pages");
     let secure = pages.config.secure_cookies.secure_for(&headers);
     see_other(
         next.unwrap_or("/report"),
-        Some(session::set_cookie(&id, secure)),
+        Some(jar.add(session::session_cookie(id.cookie_value, secure))),
     )
 }
 
-async fn sign_out(Extension(pages): Extension<Arc<Pages>>, headers: HeaderMap) -> Response {
+async fn sign_out(
+    State(state): State<AppState>,
+    Extension(pages): Extension<Arc<Pages>>,
+    jar: CookieJar,
+    headers: HeaderMap,
+) -> Response {
     if session::cross_site(&headers) {
         return html(
             StatusCode::FORBIDDEN,
             render::render_sign_in(Some("Sign out from this server's own pages."), None),
         );
     }
-    if let Some(id) = session::session_id(&headers) {
-        pages.sessions.remove(&id);
+    if let Some(hash) = session::session_hash(&jar)
+        && let Err(e) = state.store().delete_page_session(&hash).await
+    {
+        // The cookie is removed below all the same; the row expires on its own.
+        tracing::warn!(error = %e, "page: could not delete a session at sign-out");
     }
     let secure = pages.config.secure_cookies.secure_for(&headers);
-    see_other("/sign-in", Some(session::clear_cookie(secure)))
+    see_other("/sign-in", Some(jar.add(session::removal_cookie(secure))))
 }
 
 /// A page's query string: the first value of each parameter (unknown ones ignored).
@@ -429,7 +456,7 @@ async fn report_page(
     headers: HeaderMap,
     uri: Uri,
 ) -> Response {
-    let viewer = match viewer(&state, &pages, &headers, &uri).await {
+    let viewer = match viewer(&state, &headers, &uri).await {
         Ok(v) => v,
         Err(r) => return r,
     };
@@ -491,7 +518,7 @@ async fn series_page(
     headers: HeaderMap,
     uri: Uri,
 ) -> Response {
-    let viewer = match viewer(&state, &pages, &headers, &uri).await {
+    let viewer = match viewer(&state, &headers, &uri).await {
         Ok(v) => v,
         Err(r) => return r,
     };

@@ -584,8 +584,80 @@ mod flow {
             headers[header::SET_COOKIE]
                 .to_str()
                 .unwrap()
-                .ends_with("; Secure")
+                .contains("; Secure")
         );
+    }
+
+    /// The page routes over a new store and state on the database file `path`: one
+    /// server instance (or the same server after a restart).
+    async fn instance(path: &std::path::Path) -> (Router, Arc<dyn Store>) {
+        let store = dispar_store::open(&format!("sqlite:{}", path.display()))
+            .await
+            .unwrap();
+        let state = AppState::new(store.clone(), Limits::default());
+        (crate::page::router().with_state(state), store)
+    }
+
+    #[tokio::test]
+    async fn a_session_survives_a_restart_is_shared_by_instances_and_ends_at_sign_out() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("pages.db");
+        let (first, store) = instance(&path).await;
+        let (_, token) = key(&store, KeyRole::Read).await;
+        let (s, headers, _) = send(&first, post_form("/sign-in", form(&token, None), &[])).await;
+        assert_eq!(s, StatusCode::SEE_OTHER);
+        let cookie = cookie_pair(headers[header::SET_COOKIE].to_str().unwrap());
+        let (s, _, _) = send(&first, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::OK, "the instance that signed in");
+
+        // A second instance on the same database knows the session.
+        let (second, second_store) = instance(&path).await;
+        let (s, _, body) = send(&second, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::OK, "another instance: {body}");
+
+        // Restart: every store closed, new state over the same file.
+        second_store.close().await;
+        store.close().await;
+        drop((first, second));
+        let (restarted, store) = instance(&path).await;
+        let (s, _, body) = send(&restarted, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::OK, "after the restart: {body}");
+        assert!(body.contains("id=\"series-chart\""), "{body}");
+
+        // Signing out ends it everywhere, even for a copy of the old cookie.
+        let (s, _, _) = send(
+            &restarted,
+            post_form("/sign-out", String::new(), &[("cookie", &cookie)]),
+        )
+        .await;
+        assert_eq!(s, StatusCode::SEE_OTHER);
+        let (s, headers, _) = send(&restarted, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::SEE_OTHER);
+        assert!(
+            headers[header::LOCATION]
+                .to_str()
+                .unwrap()
+                .starts_with("/sign-in")
+        );
+        let (other, other_store) = instance(&path).await;
+        let (s, _, _) = send(&other, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::SEE_OTHER, "ended for every instance");
+        other_store.close().await;
+        store.close().await;
+    }
+
+    #[tokio::test]
+    async fn a_cookie_the_store_never_issued_is_not_a_session() {
+        let f = fixture().await;
+        let (s, _, _) = send(
+            &f.app,
+            get(
+                "/series",
+                Some("dispar_session=0123456789abcdef0123456789abcdef"),
+            ),
+        )
+        .await;
+        assert_eq!(s, StatusCode::SEE_OTHER);
     }
 
     #[tokio::test]
