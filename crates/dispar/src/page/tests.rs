@@ -517,19 +517,20 @@ mod flow {
             (
                 "hello",
                 StatusCode::UNAUTHORIZED,
-                "That is not a dispar key.",
+                "followed by 64 hexadecimal digits (0-9 and a-f).",
             ),
             ("", StatusCode::UNAUTHORIZED, "That is not a dispar key."),
             (
                 ingest.as_str(),
                 StatusCode::FORBIDDEN,
-                "An ingest key cannot open reports",
+                "An ingest key cannot open reports; sign in with an API key with read access (read or admin).",
             ),
         ] {
             let (s, headers, body) = send(&f.app, post_form("/sign-in", form(k, None), &[])).await;
             assert_eq!(s, status, "{k:?}: {body}");
             assert!(headers.get(header::SET_COOKIE).is_none(), "{k:?}");
             assert!(body.contains(words), "{k:?}: {body}");
+            assert!(!body.contains("letters and digits"), "{k:?}: {body}");
         }
 
         // A key in the query string is never read.
@@ -728,5 +729,324 @@ mod flow {
         let (s, _, body) = send(&f.app, get("/favicon.svg", None)).await;
         assert_eq!(s, StatusCode::OK);
         assert!(body.starts_with("<svg"));
+        // The problem type pages: the page shell, code spans as <code>, no backticks.
+        let (s, headers, body) = send(&f.app, get("/problems/unauthorized", None)).await;
+        assert_eq!(s, StatusCode::OK);
+        assert!(headers.contains_key(header::CONTENT_SECURITY_POLICY));
+        let doc = scraper::Html::parse_document(&body);
+        let code: Vec<String> = doc
+            .select(&sel("#problem-description code"))
+            .map(|c| c.text().collect())
+            .collect();
+        assert_eq!(
+            code,
+            vec!["Authorization: Bearer <key>", "dispar keys create"],
+            "{body}"
+        );
+        assert!(!page_text(&doc).contains('`'), "{body}");
     }
+}
+
+// ---- hostile names, parsed ----------------------------------------------------------
+
+/// Names that would run script or break out of an attribute or the SVG if a page
+/// wrote them unescaped.
+const HOSTILE: [&str; 5] = [
+    "<script>alert(1)</script>",
+    "\" onerror=alert(1) x=\"",
+    "</svg><img src=x onerror=alert(2)>",
+    "'quoted' & \"double\"",
+    "javascript:alert(3)",
+];
+
+/// What the parsed page holds that could execute, as messages (empty when none).
+fn executable_parts(doc: &scraper::Html) -> Vec<String> {
+    let mut found = Vec::new();
+    for el in doc.select(&sel("*")) {
+        let name = el.value().name();
+        if matches!(name, "script" | "img" | "iframe" | "object" | "embed") {
+            found.push(format!("a <{name}> element"));
+        }
+        for (attr, value) in el.value().attrs() {
+            if attr.to_ascii_lowercase().starts_with("on") {
+                found.push(format!("attribute {attr}={value:?} on <{name}>"));
+            }
+            let url = matches!(
+                attr,
+                "href" | "src" | "action" | "formaction" | "xlink:href" | "data" | "poster"
+            );
+            if url && value.trim().to_ascii_lowercase().starts_with("javascript:") {
+                found.push(format!("a javascript: URL in {attr} of <{name}>"));
+            }
+        }
+    }
+    found
+}
+
+/// All text of the page (text nodes, not attributes).
+fn page_text(doc: &scraper::Html) -> String {
+    doc.root_element().text().collect()
+}
+
+/// Parses `html` and checks that nothing executable got through, that the page has
+/// `svgs` SVG elements (a `</svg>` in a name cannot close one early) and that each of
+/// `shown` appears as text.
+fn assert_inert(what: &str, html: &str, svgs: usize, shown: &[&str]) -> scraper::Html {
+    let doc = scraper::Html::parse_document(html);
+    let bad = executable_parts(&doc);
+    assert!(bad.is_empty(), "{what}: {bad:?}");
+    assert_eq!(
+        doc.select(&sel("svg")).count(),
+        svgs,
+        "{what}: svg elements"
+    );
+    let text = page_text(&doc);
+    for s in shown {
+        assert!(text.contains(s), "{what}: {s:?} not shown as text");
+    }
+    doc
+}
+
+fn hostile_groups() -> Vec<GroupCounts> {
+    let mut groups = five_sites();
+    for (g, h) in groups.iter_mut().zip(HOSTILE) {
+        g.name = h.to_owned();
+        g.label = Some(format!("{h} name"));
+        g.defects = BTreeMap::from([(h.to_owned(), g.defective / 2), ("seal".to_owned(), 3)]);
+    }
+    // One more group with no units, so the "Excluded" list shows a hostile name too.
+    groups.push(group(HOSTILE[0], "x", 0, 0));
+    groups.last_mut().unwrap().name = format!("{} excluded", HOSTILE[2]);
+    groups
+}
+
+fn hostile_ctx() -> PageContext {
+    let mut c = ctx();
+    c.viewer = Some(Viewer {
+        key_id: 3,
+        role: HOSTILE[0].to_owned(),
+    });
+    c.selection.period = HOSTILE[1].to_owned();
+    c.selection.site = Some(HOSTILE[2].to_owned());
+    c.selection.extra = vec![("alpha".to_owned(), HOSTILE[1].to_owned())];
+    c.sites = HOSTILE
+        .iter()
+        .map(|h| SiteChoice {
+            code: (*h).to_owned(),
+            name: format!("{h} site"),
+        })
+        .collect();
+    c.previous = Some(HOSTILE[4].to_owned());
+    c.next = Some(HOSTILE[2].to_owned());
+    c.notice = Some(HOSTILE[0].to_owned());
+    c
+}
+
+#[test]
+fn every_page_keeps_hostile_names_as_text() {
+    let mut parameters = Parameters {
+        min_difference: Some(0.001),
+        ..Parameters::default()
+    };
+    parameters.alpha = 0.05;
+    let report = report_of(&hostile_groups(), parameters);
+    assert!(report.test.is_some() && !report.excluded.is_empty());
+    let c = hostile_ctx();
+    let html = render_report(&report, &c);
+    let doc = assert_inert("report", &html, 2, &HOSTILE);
+    // The names are in the table, the charts' labels, the pairs and the categories.
+    assert_eq!(doc.select(&sel("table#groups tbody tr")).count(), 5);
+    assert_eq!(doc.select(&sel("svg#rates-chart g.group")).count(), 5);
+    assert_eq!(doc.select(&sel("svg#funnel-chart g.group")).count(), 5);
+    let first = doc
+        .select(&sel("table#groups tbody tr"))
+        .next()
+        .and_then(|tr| tr.value().attr("data-name"))
+        .map(str::to_owned);
+    assert_eq!(first.as_deref(), Some(HOSTILE[0]), "attribute kept whole");
+    let options: Vec<&str> = doc
+        .select(&sel("select#site option"))
+        .filter_map(|o| o.value().attr("value"))
+        .collect();
+    assert_eq!(options[1..], HOSTILE, "site codes as option values");
+    let hidden = doc
+        .select(&sel("input[type=hidden][name=alpha]"))
+        .next()
+        .and_then(|i| i.value().attr("value"));
+    assert_eq!(hidden, Some(HOSTILE[1]));
+    assert!(page_text(&doc).contains(&format!("{} excluded", HOSTILE[2])));
+
+    let problem = super::render::render_report_problem(&c, HOSTILE[0], &[HOSTILE[1].to_owned()]);
+    assert_inert("report problem", &problem, 0, &HOSTILE[..2]);
+
+    let series = super::view::SeriesView {
+        from: HOSTILE[3].to_owned(),
+        to: HOSTILE[2].to_owned(),
+        alpha: 0.05,
+        points: vec![report.summary(), report.summary()],
+    };
+    let html = super::render::render_series(&series, &c);
+    let doc = assert_inert("series", &html, 1, &HOSTILE);
+    assert_eq!(doc.select(&sel("svg#series-chart .period")).count(), 2);
+    let problem = super::render::render_series_problem(HOSTILE[1], HOSTILE[4], &c, HOSTILE[2], &[]);
+    assert_inert("series problem", &problem, 0, &[HOSTILE[2]]);
+
+    let sign_in = render_sign_in(Some(HOSTILE[2]), Some(HOSTILE[1]));
+    let doc = assert_inert("sign-in", &sign_in, 0, &[HOSTILE[2]]);
+    let next = doc
+        .select(&sel("input[name=next]"))
+        .next()
+        .and_then(|i| i.value().attr("value"));
+    assert_eq!(next, Some(HOSTILE[1]));
+
+    let problem_type = super::render::render_problem_type(
+        HOSTILE[0],
+        400,
+        HOSTILE[1],
+        "Send `<b>x</b>` not <i>y</i>.",
+    );
+    let doc = assert_inert(
+        "problem type",
+        &problem_type,
+        0,
+        &[HOSTILE[0], "<b>x</b>", "<i>y</i>"],
+    );
+    let code: Vec<String> = doc
+        .select(&sel("#problem-description code"))
+        .map(|c| c.text().collect())
+        .collect();
+    assert_eq!(code, vec!["<b>x</b>".to_owned()], "the code span, escaped");
+    assert_eq!(doc.select(&sel("b, i")).count(), 0);
+}
+
+// ---- page wording --------------------------------------------------------------------
+
+/// Negative numbers written with an ASCII hyphen in text: a `-` before a digit that
+/// does not follow a letter or digit (so `2026-W16`, `2026-04-13` and `1e-300` pass).
+fn ascii_minus_numbers(text: &str) -> Vec<String> {
+    let chars: Vec<char> = text.chars().collect();
+    chars
+        .windows(3)
+        .filter(|w| w[1] == '-' && w[2].is_ascii_digit() && !w[0].is_alphanumeric())
+        .map(|w| w.iter().collect())
+        .collect()
+}
+
+#[test]
+fn the_page_text_has_none_of_the_reported_glitches() {
+    // 664,474 units in all; two groups, so one pair.
+    let groups = vec![
+        group("AAA", "Aston", 400_000, 4_000),
+        group("BBB", "Barrow", 264_474, 2_100),
+    ];
+    let report = report_of(&groups, Parameters::default());
+    let html = render_report(&report, &ctx());
+    let doc = scraper::Html::parse_document(&html);
+    let text = page_text(&doc);
+    assert!(
+        text.contains("664,474") && !text.contains("664474"),
+        "thousands separators"
+    );
+    assert!(
+        text.contains("1 pair") && !text.contains("1 pairs"),
+        "singular pair"
+    );
+    assert!(
+        text.contains("Cram\u{e9}r's V") && !text.contains("Cramer"),
+        "accent"
+    );
+    assert!(
+        !text.contains('\u{2191}') && !text.contains('\u{2193}'),
+        "no arrows ↑↓"
+    );
+    assert!(
+        text.contains('\u{25b2}') && text.contains('\u{25bc}'),
+        "▲ and ▼"
+    );
+    assert_eq!(
+        ascii_minus_numbers(&text),
+        Vec::<String>::new(),
+        "true minus signs"
+    );
+    assert!(
+        text.contains("\u{2212}"),
+        "the negative difference uses U+2212"
+    );
+    for heading in [
+        "Pairwise comparisons",
+        "Flagged contributors",
+        "Cautions",
+        "Groups",
+    ] {
+        assert!(
+            doc.select(&sel("h2"))
+                .any(|h| h.text().collect::<String>() == heading),
+            "heading {heading}"
+        );
+    }
+    let significant: Vec<String> = doc
+        .select(&sel("table#pairwise tbody td"))
+        .map(|td| td.text().collect())
+        .collect();
+    assert!(significant.contains(&"yes".to_owned()), "{significant:?}");
+    assert!(
+        significant.iter().all(|c| c != "differ" && c != "\u{2014}"),
+        "the significant column says yes or no: {significant:?}"
+    );
+    assert!(text.contains("significant at \u{3b1} = 0.05"));
+    // Each colour meaning has words or a shape beside it: flagged rows carry a tag.
+    for tr in doc.select(&sel(
+        "table#groups tbody tr.flag-above, table#groups tbody tr.flag-below",
+    )) {
+        let t: String = tr.text().collect();
+        assert!(t.contains('\u{25b2}') || t.contains('\u{25bc}'), "{t}");
+    }
+
+    // p underflows: "p < 1e-300", never "p = < 1e-300".
+    let huge = report_of(
+        &[
+            group("A", "a", 1_000_000, 100_000),
+            group("B", "b", 1_000_000, 10_000),
+        ],
+        Parameters::default(),
+    );
+    let text = page_text(&scraper::Html::parse_document(&render_report(
+        &huge,
+        &ctx(),
+    )));
+    assert!(
+        text.contains("p < 1e-300") && !text.contains("p = <"),
+        "{text}"
+    );
+    assert_eq!(ascii_minus_numbers(&text), Vec::<String>::new());
+
+    // The series: ▲ beside the flagged group, verdict words, no arrows.
+    let series = super::view::SeriesView {
+        from: "2026-W15".to_owned(),
+        to: "2026-W16".to_owned(),
+        alpha: 0.05,
+        points: vec![
+            report.summary(),
+            report_of(&five_sites(), Parameters::default()).summary(),
+        ],
+    };
+    let doc = scraper::Html::parse_document(&super::render::render_series(&series, &ctx()));
+    let text = page_text(&doc);
+    assert!(
+        text.contains("KES \u{25b2}") && !text.contains('\u{2191}'),
+        "{text}"
+    );
+    let verdicts: Vec<String> = doc
+        .select(&sel("table#series tbody .tag"))
+        .map(|t| t.text().collect())
+        .collect();
+    assert_eq!(verdicts, vec!["significant", "significant"]);
+    assert_eq!(ascii_minus_numbers(&text), Vec::<String>::new());
+
+    // Sign-in: any key with read access.
+    let text = page_text(&scraper::Html::parse_document(&render_sign_in(None, None)));
+    assert!(
+        text.contains("API key with read access (a read or admin key"),
+        "{text}"
+    );
 }
