@@ -283,8 +283,8 @@ async function main() {
   await page.locator('svg#series-chart').waitFor();
   assert.equal(await page.locator('table#series tbody tr').count(), 17, '17 weeks W10..W26');
   assert.equal(await page.locator('svg#series-chart .period').count(), 17);
-  assert.match(await page.locator('table#series tbody tr[data-period="2026-W16"]').innerText(), /KES ↑/);
-  assert.doesNotMatch(await page.locator('table#series tbody tr[data-period="2026-W13"]').innerText(), /KES ↑/);
+  assert.match(await page.locator('table#series tbody tr[data-period="2026-W16"]').innerText(), /KES ▲/);
+  assert.doesNotMatch(await page.locator('table#series tbody tr[data-period="2026-W13"]').innerText(), /KES ▲/);
   await page.screenshot({ path: join(outDir, 'series.png'), fullPage: true });
 
   // 8. The key never appeared in a URL.

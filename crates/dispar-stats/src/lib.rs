@@ -13,6 +13,7 @@
 //! | [`residuals`] | per-cell expected, contribution, Pearson and adjusted (Haberman) residuals | `cells(&Table) -> Vec<Cell>` |
 //! | [`effect`] | Cramer's V and the bias-corrected V | `cramers_v`, `cramers_v_corrected` |
 //! | [`interval`] | Wilson score interval; Newcombe's hybrid score interval for p1 - p2 | `Interval`, `wilson(x, n, confidence)`, `newcombe_difference(x1, n1, x2, n2, confidence)` |
+//! | [`funnel`] | funnel-plot limits for a rate against sample size, with their normal quantile | `Funnel::new(pooled, coverage, scale)`, `Funnel::at(n) -> Interval` |
 //! | [`adjust`] | Holm, Bonferroni, Hochberg, Benjamini-Hochberg | `adjust(&[f64], Adjustment) -> Vec<f64>` |
 //! | [`anom`] | analysis-of-means critical value h(alpha, k), computed exactly (Sidak fallback) | `critical(alpha, k) -> AnomCritical {h, method}`, `sidak` |
 //! | [`overdispersion`] | Spiegelhalter's multiplicative factor from winsorised z-scores; additive tau^2 | `spiegelhalter(z, fraction) -> Overdispersion`, `tau_squared` |
@@ -53,6 +54,7 @@ pub mod effect;
 mod error;
 pub mod exact;
 mod faddeeva;
+pub mod funnel;
 pub mod interval;
 mod loader;
 pub mod montecarlo;

@@ -37,6 +37,12 @@
 //! Reports over the current data read monthly sums (kept up to date by every write)
 //! for the whole months of a range and the daily rows for the days at its edges;
 //! `as_of` reports read the history. The schema is in this crate's `migrations/sqlite`.
+//!
+//! # Page sessions
+//!
+//! The HTML pages' browser sessions live in the database (`page_sessions`), so they
+//! survive a restart and every instance on one database knows them. The store only
+//! sees the SHA-256 of a session id; the id is in the person's cookie.
 
 mod counts;
 mod error;
@@ -44,6 +50,7 @@ mod keys;
 mod options;
 mod plan;
 mod reports;
+mod sessions;
 mod sites;
 mod sqlite;
 mod store;
@@ -59,6 +66,7 @@ pub use crate::error::{RecordError, RecordProblem, StoreError};
 pub use crate::keys::{ApiKey, KeyId, KeyRole, UnknownRole};
 pub use crate::options::{Backend, OpenOptions, backend_of};
 pub use crate::reports::{Aggregate, AggregateQuery, GroupTotals, Level};
+pub use crate::sessions::{NewPageSession, PageSession};
 pub use crate::sites::{SiteWithLines, Upserted};
 pub use crate::sqlite::SqliteStore;
 pub use crate::store::{Store, StoreStats};

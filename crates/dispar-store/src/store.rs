@@ -12,6 +12,7 @@ use crate::counts::{
 use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::reports::{Aggregate, AggregateQuery};
+use crate::sessions::{NewPageSession, PageSession};
 use crate::sites::{SiteWithLines, Upserted};
 
 /// Row counts, for metrics and tests.
@@ -121,6 +122,25 @@ pub trait Store: Send + Sync + std::fmt::Debug {
     /// Revokes a key ([`StoreError::NotFound`] if there is none; revoking again keeps
     /// the first revocation time).
     async fn revoke_key(&self, id: KeyId) -> Result<(), StoreError>;
+
+    /// Starts a page session, in one transaction: sessions that expired by
+    /// `session.created_at` are purged, the oldest sessions of the same key are ended so
+    /// that at most `max_per_key` stay live with the new one, and the new one is stored.
+    async fn create_page_session(
+        &self,
+        session: &NewPageSession,
+        max_per_key: usize,
+    ) -> Result<(), StoreError>;
+
+    /// The session with this id hash, if it is still live at `now`.
+    async fn find_page_session(
+        &self,
+        id_hash: &[u8; 32],
+        now: OffsetDateTime,
+    ) -> Result<Option<PageSession>, StoreError>;
+
+    /// Ends a session (signing out); true when there was one.
+    async fn delete_page_session(&self, id_hash: &[u8; 32]) -> Result<bool, StoreError>;
 
     /// Sums counts per group over a date range, from the current data or as of an
     /// instant.

@@ -10,7 +10,7 @@ use axum::extract::{MatchedPath, Path, Request, State};
 use axum::http::header::{self, HeaderValue};
 use axum::http::{Method, StatusCode};
 use axum::middleware::Next;
-use axum::response::{Html, IntoResponse, Response};
+use axum::response::{IntoResponse, Response};
 use axum::routing::get;
 
 use crate::error::{ApiError, PROBLEM_JSON, ProblemKind};
@@ -77,26 +77,23 @@ async fn render_metrics(State(state): State<AppState>) -> impl IntoResponse {
     )
 }
 
-/// A short HTML page describing a problem type.
-async fn problem_page(Path(slug): Path<String>) -> Result<Html<String>, ApiError> {
+/// A short HTML page describing a problem type (rendered like the other pages, so
+/// with their escaping, style sheet and headers).
+async fn problem_page(Path(slug): Path<String>) -> Result<Response, ApiError> {
     let Some(kind) = ProblemKind::from_slug(&slug) else {
         return Err(ApiError::not_found(format!(
             "There is no problem type {slug:?}."
         )));
     };
-    Ok(Html(format!(
-        "<!doctype html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{title}</title></head>\n<body><h1>{title}</h1><p>HTTP status {status}. Problem type <code>{uri}</code>.</p><p>{text}</p></body></html>\n",
-        title = kind.title(),
-        status = kind.status().as_u16(),
-        uri = kind.type_uri(),
-        text = escape_html(kind.description()),
-    )))
-}
-
-fn escape_html(s: &str) -> String {
-    s.replace('&', "&amp;")
-        .replace('<', "&lt;")
-        .replace('>', "&gt;")
+    Ok(crate::page::html(
+        StatusCode::OK,
+        crate::page::render::render_problem_type(
+            kind.title(),
+            kind.status().as_u16(),
+            &kind.type_uri(),
+            kind.description(),
+        ),
+    ))
 }
 
 /// Fallback for unknown paths: 404 problem.

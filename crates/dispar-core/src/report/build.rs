@@ -475,7 +475,8 @@ fn fill_from_analysis(
     if let Some(mc) = a.monte_carlo {
         cautions.push(format!(
             "The p-value is a Monte Carlo estimate from {} random tables (standard error {:.4}); the same data always give the same value.",
-            mc.resamples, mc.std_error
+            super::text::fmt_count(mc.resamples),
+            mc.std_error
         ));
     }
     if a.reject
@@ -485,7 +486,8 @@ fn fill_from_analysis(
     {
         cautions.push(format!(
             "With {} units inspected, even small differences are statistically significant (Cramér's V = {:.3}); judge the rate differences and their intervals, or give a minimum difference of interest.",
-            report.totals.inspected, a.cramers_v
+            super::text::fmt_count(report.totals.inspected),
+            a.cramers_v
         ));
     }
 }

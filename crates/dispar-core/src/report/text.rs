@@ -18,6 +18,20 @@ use super::params::LevelKind;
 /// p-value are listed (the JSON always has every pair).
 pub const TEXT_MAX_PAIRS: usize = 30;
 
+/// A whole number with thousands separators: `664,474` (for sentences people read;
+/// tables of counts meant for machines keep plain digits).
+pub fn fmt_count(n: u64) -> String {
+    let digits = n.to_string();
+    let mut out = String::with_capacity(digits.len() + digits.len() / 3);
+    for (i, c) in digits.chars().enumerate() {
+        if i > 0 && (digits.len() - i).is_multiple_of(3) {
+            out.push(',');
+        }
+        out.push(c);
+    }
+    out
+}
+
 /// A p-value for people: 4 decimals, scientific below 0.0001, and the power of ten
 /// when it underflows to 0.
 pub fn fmt_p(p: f64, log10_p: f64) -> String {

@@ -13,6 +13,7 @@ mod counts;
 mod db;
 mod keys;
 mod reports;
+mod sessions;
 mod sites;
 
 use async_trait::async_trait;
@@ -29,6 +30,7 @@ use crate::counts::{
 use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::reports::{Aggregate, AggregateQuery};
+use crate::sessions::{NewPageSession, PageSession};
 use crate::sites::{SiteWithLines, Upserted};
 use crate::store::{Store, StoreStats};
 
@@ -140,6 +142,26 @@ impl Store for SqliteStore {
 
     async fn revoke_key(&self, id: KeyId) -> Result<(), StoreError> {
         self.revoke_key_impl(id).await
+    }
+
+    async fn create_page_session(
+        &self,
+        session: &NewPageSession,
+        max_per_key: usize,
+    ) -> Result<(), StoreError> {
+        self.create_page_session_impl(session, max_per_key).await
+    }
+
+    async fn find_page_session(
+        &self,
+        id_hash: &[u8; 32],
+        now: OffsetDateTime,
+    ) -> Result<Option<PageSession>, StoreError> {
+        self.find_page_session_impl(id_hash, now).await
+    }
+
+    async fn delete_page_session(&self, id_hash: &[u8; 32]) -> Result<bool, StoreError> {
+        self.delete_page_session_impl(id_hash).await
     }
 
     async fn aggregate(&self, query: &AggregateQuery) -> Result<Aggregate, StoreError> {

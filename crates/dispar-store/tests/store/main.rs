@@ -10,6 +10,7 @@ mod counts;
 mod idempotency;
 mod keys;
 mod reports;
+mod sessions;
 mod sites;
 mod sqlite;
 mod story;

@@ -1,24 +1,17 @@
-//! Text for the page: HTML escaping and number formats.
-//!
-//! Every string that reaches the page goes through [`escape`] (text and attribute
-//! values alike); site and line names are user input.
+//! Text for the page: number formats. Escaping is not done here: every page is
+//! built with maud, which escapes each interpolated value.
 
 use std::fmt::Write as _;
 
-/// Escapes `s` for HTML text and for double- or single-quoted attribute values.
-pub fn escape(s: &str) -> String {
-    let mut out = String::with_capacity(s.len());
-    for c in s.chars() {
-        match c {
-            '&' => out.push_str("&amp;"),
-            '<' => out.push_str("&lt;"),
-            '>' => out.push_str("&gt;"),
-            '"' => out.push_str("&quot;"),
-            '\'' => out.push_str("&#39;"),
-            c => out.push(c),
-        }
+/// The true minus sign (U+2212), for every negative number a page shows.
+pub const MINUS: char = '\u{2212}';
+
+/// Replaces an ASCII hyphen-minus leading a number with the true minus sign.
+fn true_minus(s: String) -> String {
+    match s.strip_prefix('-') {
+        Some(rest) => format!("{MINUS}{rest}"),
+        None => s,
     }
-    out
 }
 
 /// Below this a p-value is shown as `< 1e-300` (with its log10 in a tooltip): the
@@ -51,27 +44,42 @@ pub fn fmt_p(p: f64) -> String {
     }
 }
 
-/// `log10 p = -412.3`, for a tooltip next to a p-value.
+/// `p = 0.032`, or `p < 1e-300` when p underflows (never `p = < 1e-300`).
+///
+/// ```
+/// use dispar::page::format::p_equals;
+/// assert_eq!(p_equals(0.03217), "p = 0.032");
+/// assert_eq!(p_equals(0.0), "p < 1e-300");
+/// ```
+pub fn p_equals(p: f64) -> String {
+    let shown = fmt_p(p);
+    match shown.strip_prefix("< ") {
+        Some(bound) => format!("p < {bound}"),
+        None => format!("p = {shown}"),
+    }
+}
+
+/// `log10 p = −412.3` (true minus sign), for a tooltip next to a p-value.
 pub fn fmt_log10_p(log10_p: f64) -> String {
     if log10_p.is_finite() {
-        format!("log10 p = {log10_p:.1}")
+        format!("log10 p = {}", true_minus(format!("{log10_p:.1}")))
     } else {
         String::new()
     }
 }
 
-/// A whole number with thousands separators: `1,234,567`.
-pub fn fmt_count(n: u64) -> String {
-    let digits = n.to_string();
-    let mut out = String::with_capacity(digits.len() + digits.len() / 3);
-    for (i, c) in digits.chars().enumerate() {
-        if i > 0 && (digits.len() - i).is_multiple_of(3) {
-            out.push(',');
-        }
-        out.push(c);
-    }
-    out
+/// `n` with the singular or the plural noun: `1 pair`, `2 pairs`, `1,024 pairs`.
+pub fn count_of(n: usize, singular: &str, plural: &str) -> String {
+    format!(
+        "{} {}",
+        fmt_count(u64::try_from(n).unwrap_or(u64::MAX)),
+        if n == 1 { singular } else { plural }
+    )
 }
+
+/// A whole number with thousands separators: `1,234,567` (the core's, so the cautions
+/// it writes and the pages group digits alike).
+pub use dispar_core::report::text::fmt_count;
 
 /// A proportion as a percentage: two decimals from 0.1% up (`2.02%`), three
 /// significant digits below (`0.0123%`), `0%` for zero.
@@ -101,13 +109,17 @@ pub fn fmt_share(s: f64) -> String {
     }
 }
 
-/// A signed difference of two proportions in percentage points: `+0.86 pp`.
+/// A signed difference of two proportions in percentage points: `+0.86 pp`,
+/// `−0.86 pp` (true minus sign), `0.00 pp`.
 pub fn fmt_pp(d: f64) -> String {
-    if d.is_finite() {
-        format!("{:+.2} pp", d * 100.0)
-    } else {
-        "n/a".to_owned()
+    if !d.is_finite() {
+        return "n/a".to_owned();
     }
+    let s = format!("{:+.2}", d * 100.0);
+    if s == "-0.00" || s == "+0.00" {
+        return "0.00 pp".to_owned();
+    }
+    format!("{} pp", true_minus(s))
 }
 
 /// A signed z-score or residual with one decimal: `+27.5`, `−8.9` (true minus sign).
@@ -119,7 +131,7 @@ pub fn fmt_signed(x: f64) -> String {
     if s == "-0.0" || s == "+0.0" {
         return "0.0".to_owned();
     }
-    s.replacen('-', "\u{2212}", 1)
+    true_minus(s)
 }
 
 /// A statistic or expected count: thousands separators, `decimals` decimals.
@@ -134,7 +146,7 @@ pub fn fmt_num(x: f64, decimals: usize) -> String {
     };
     let mut out = String::new();
     if x < 0.0 && text.bytes().any(|b| (b'1'..=b'9').contains(&b)) {
-        out.push('\u{2212}');
+        out.push(MINUS);
     }
     match int.parse::<u64>() {
         Ok(n) => out.push_str(&fmt_count(n)),
@@ -166,15 +178,6 @@ mod tests {
     use super::*;
 
     #[test]
-    fn markup_characters_are_escaped_in_text_and_attributes() {
-        assert_eq!(
-            escape(r#"<script>alert("x")</script> & 'y'"#),
-            "&lt;script&gt;alert(&quot;x&quot;)&lt;/script&gt; &amp; &#39;y&#39;"
-        );
-        assert_eq!(escape("Kestelmoor"), "Kestelmoor");
-    }
-
-    #[test]
     fn p_values_are_short_and_never_zero() {
         let cases = [
             (1.0, "1"),
@@ -192,7 +195,10 @@ mod tests {
         for (p, want) in cases {
             assert_eq!(fmt_p(p), want, "p = {p:e}");
         }
-        assert_eq!(fmt_log10_p(-412.34), "log10 p = -412.3");
+        assert_eq!(fmt_log10_p(-412.34), "log10 p = \u{2212}412.3");
+        assert_eq!(p_equals(0.5), "p = 0.500");
+        assert_eq!(p_equals(5e-310), "p < 1e-300");
+        assert_eq!(p_equals(f64::NAN), "p = n/a");
     }
 
     #[test]
@@ -208,7 +214,11 @@ mod tests {
         assert_eq!(fmt_pct(1.0), "100.00%");
         assert_eq!(fmt_share(0.4321), "43.2%");
         assert_eq!(fmt_pp(0.0086), "+0.86 pp");
-        assert_eq!(fmt_pp(-0.0086), "-0.86 pp");
+        assert_eq!(fmt_pp(-0.0086), "\u{2212}0.86 pp");
+        assert_eq!(fmt_pp(-0.000_01), "0.00 pp");
+        assert_eq!(count_of(1, "pair", "pairs"), "1 pair");
+        assert_eq!(count_of(0, "pair", "pairs"), "0 pairs");
+        assert_eq!(count_of(664_474, "unit", "units"), "664,474 units");
         assert_eq!(fmt_signed(27.46), "+27.5");
         assert_eq!(fmt_signed(-8.91), "\u{2212}8.9");
         assert_eq!(fmt_signed(-0.01), "0.0");

@@ -1,5 +1,5 @@
-//! The HTML pages for people: sign in with a read key, then the report page and the
-//! series page, rendered on the server (SVG charts, no script, no external assets).
+//! The HTML pages for people: sign in with an API key with read access (read or
+//! admin), then the report page and the series page, rendered on the server (SVG charts, no script, no external assets).
 //!
 //! | path | what |
 //! |------|------|
@@ -11,14 +11,16 @@
 //! | `GET /series?from=&to=&level=&site=` | verdicts per period (default: the 12 weeks up to that week) |
 //! | `GET /favicon.svg` | the pages' icon |
 //!
-//! Modules: [`render`] (pure HTML), [`charts`] (pure SVG), [`format`] (escaping and
-//! numbers), [`session`] (cookie and session store), [`state`] (the pages' state in
-//! `AppState`), [`data`] (reports from the report service the JSON
-//! endpoints use).
+//! Modules: [`view`] (the pages' view models: words and formatted numbers computed
+//! from a report), [`render`] (their HTML, through maud, which escapes every value it
+//! interpolates), [`charts`] (SVG chart models and their markup, through maud too),
+//! [`format`] (numbers), [`session`] (cookies and page sessions), [`state`] (the pages' state in
+//! `AppState`), [`data`] (reports from the report service the JSON endpoints use).
 //!
 //! Security: the key is only ever in the body of the sign-in POST. The session cookie
 //! is `HttpOnly; SameSite=Strict; Path=/` (+ `Secure` over https, see
-//! [`session::SecureCookies`]). Form posts from another origin are refused. Pages are
+//! [`session::SecureCookies`]); the session itself is a row in the database (only its
+//! id's hash), so it survives a restart and every instance knows it. Form posts from another origin are refused. Pages are
 //! sent with `Cache-Control: no-store` and a Content-Security-Policy that allows no
 //! script and only the page's own style sheet.
 
@@ -28,11 +30,10 @@ pub mod format;
 pub mod render;
 pub mod session;
 pub mod state;
+pub mod view;
 
 #[cfg(test)]
 mod tests;
-
-use std::sync::Arc;
 
 use axum::Router;
 use axum::extract::{Form, State};
@@ -40,9 +41,10 @@ use axum::http::header::{self, HeaderValue};
 use axum::http::{HeaderMap, StatusCode, Uri};
 use axum::response::{IntoResponse, Redirect, Response};
 use axum::routing::{get, post};
+use axum_extra::extract::cookie::CookieJar;
 use dispar_core::period::Period;
 use dispar_core::report::LevelKind;
-use dispar_store::KeyRole;
+use dispar_store::{KeyRole, NewPageSession};
 use serde::Deserialize;
 
 use crate::auth::{parse_token, secret_matches};
@@ -50,11 +52,10 @@ use crate::error::ApiError;
 use crate::reports::ReportParams;
 use crate::state::AppState;
 
-use self::render::{PageContext, Selection, SeriesView, SiteChoice, Viewer};
-use self::session::SecureCookies;
-use self::state::PageState;
+use self::session::{MAX_SESSIONS_PER_KEY, SESSION_TTL, SecureCookies};
+use self::view::{PageContext, Selection, SeriesView, SiteChoice, Viewer};
 
-/// The page routes; their sessions are in the [`AppState`].
+/// The page routes; their state is in the [`AppState`].
 pub fn router() -> Router<AppState> {
     Router::new()
         .route("/", get(home))
@@ -66,7 +67,7 @@ pub fn router() -> Router<AppState> {
 }
 
 /// An HTML page with the headers every page carries.
-fn html(status: StatusCode, body: String) -> Response {
+pub(crate) fn html(status: StatusCode, body: String) -> Response {
     let csp = format!(
         "default-src 'none'; style-src {}; img-src 'self'; form-action 'self'; frame-ancestors 'none'; base-uri 'none'",
         render::style_hash()
@@ -93,16 +94,15 @@ fn html(status: StatusCode, body: String) -> Response {
     response
 }
 
-/// 303 to `location` with `Set-Cookie` when given.
-fn see_other(location: &str, cookie: Option<String>) -> Response {
-    let mut response = Redirect::to(location).into_response();
-    let h = response.headers_mut();
-    h.insert(header::CACHE_CONTROL, HeaderValue::from_static("no-store"));
-    if let Some(c) = cookie
-        && let Ok(v) = HeaderValue::from_str(&c)
-    {
-        h.insert(header::SET_COOKIE, v);
-    }
+/// 303 to `location`, with the cookies of `jar` when given.
+fn see_other(location: &str, jar: Option<CookieJar>) -> Response {
+    let mut response = match jar {
+        Some(jar) => (jar, Redirect::to(location)).into_response(),
+        None => Redirect::to(location).into_response(),
+    };
+    response
+        .headers_mut()
+        .insert(header::CACHE_CONTROL, HeaderValue::from_static("no-store"));
     response
 }
 
@@ -128,12 +128,7 @@ async fn home() -> Response {
 }
 
 /// The signed-in viewer of a request, or the redirect to the sign-in page.
-async fn viewer(
-    state: &AppState,
-    pages: &PageState,
-    headers: &HeaderMap,
-    uri: &Uri,
-) -> Result<Viewer, Response> {
+async fn viewer(state: &AppState, headers: &HeaderMap, uri: &Uri) -> Result<Viewer, Response> {
     let to_sign_in = || {
         let mut q = form_urlencoded::Serializer::new(String::new());
         let here = uri
@@ -142,11 +137,17 @@ async fn viewer(
         q.append_pair("next", &here);
         see_other(&format!("/sign-in?{}", q.finish()), None)
     };
-    let Some(id) = session::session_id(headers) else {
+    let Some(hash) = session::session_hash(&CookieJar::from_headers(headers)) else {
         return Err(to_sign_in());
     };
-    let Some(s) = pages.sessions.get(&id) else {
-        return Err(to_sign_in());
+    let found = state
+        .store()
+        .find_page_session(&hash, time::OffsetDateTime::now_utc())
+        .await;
+    let s = match found {
+        Ok(Some(s)) => s,
+        Ok(None) => return Err(to_sign_in()),
+        Err(e) => return Err(problem_page(&ApiError::from(e))),
     };
     // The key is looked up again: a revoked key ends its sessions.
     match state.store().find_key(s.key_id).await {
@@ -158,7 +159,9 @@ async fn viewer(
             })
         }
         Ok(_) => {
-            pages.sessions.remove(&id);
+            if let Err(e) = state.store().delete_page_session(&hash).await {
+                tracing::warn!(error = %e, "page: could not end the session of a refused key");
+            }
             Err(to_sign_in())
         }
         Err(e) => Err(problem_page(&ApiError::from(e))),
@@ -217,7 +220,7 @@ struct SignInForm {
 
 async fn sign_in(
     State(state): State<AppState>,
-    State(pages): State<Arc<PageState>>,
+    jar: CookieJar,
     headers: HeaderMap,
     form: Result<Form<SignInForm>, axum::extract::rejection::FormRejection>,
 ) -> Response {
@@ -251,7 +254,7 @@ async fn sign_in(
     let Some(token) = parse_token(form.key.trim()) else {
         return refuse(
             StatusCode::UNAUTHORIZED,
-            "That is not a dispar key. A key looks like dsp_12_ followed by 64 letters and digits.",
+            "That is not a dispar key. A key looks like `dsp_12_` followed by 64 hexadecimal digits (0-9 and a-f).",
             next,
         );
     };
@@ -271,11 +274,11 @@ async fn sign_in(
     if key.role == KeyRole::Ingest {
         return refuse(
             StatusCode::FORBIDDEN,
-            "An ingest key cannot open reports; sign in with a read key.",
+            "An ingest key cannot open reports; sign in with an API key with read access (read or admin).",
             next,
         );
     }
-    let id = match pages.sessions.create(key.id, key.role) {
+    let id = match session::new_session_id() {
         Ok(id) => id,
         Err(e) => {
             return problem_page(&ApiError::internal(format!(
@@ -283,27 +286,45 @@ async fn sign_in(
             )));
         }
     };
+    let now = time::OffsetDateTime::now_utc();
+    let ttl = time::Duration::try_from(SESSION_TTL).unwrap_or(time::Duration::HOUR);
+    let new = NewPageSession {
+        id_hash: id.hash,
+        key_id: key.id,
+        created_at: now,
+        expires_at: now + ttl,
+    };
+    if let Err(e) = state
+        .store()
+        .create_page_session(&new, MAX_SESSIONS_PER_KEY)
+        .await
+    {
+        return problem_page(&ApiError::from(e));
+    }
     tracing::Span::current().record("key_id", key.id);
     tracing::info!(key_id = key.id, role = %key.role, "signed in to the pages");
     let secure = SecureCookies::Auto.secure_for(&headers);
     see_other(
         next.unwrap_or("/report"),
-        Some(session::set_cookie(&id, secure)),
+        Some(jar.add(session::session_cookie(id.cookie_value, secure))),
     )
 }
 
-async fn sign_out(State(pages): State<Arc<PageState>>, headers: HeaderMap) -> Response {
+async fn sign_out(State(state): State<AppState>, jar: CookieJar, headers: HeaderMap) -> Response {
     if session::cross_site(&headers) {
         return html(
             StatusCode::FORBIDDEN,
             render::render_sign_in(Some("Sign out from this server's own pages."), None),
         );
     }
-    if let Some(id) = session::session_id(&headers) {
-        pages.sessions.remove(&id);
+    if let Some(hash) = session::session_hash(&jar)
+        && let Err(e) = state.store().delete_page_session(&hash).await
+    {
+        // The cookie is removed below all the same; the row expires on its own.
+        tracing::warn!(error = %e, "page: could not delete a session at sign-out");
     }
     let secure = SecureCookies::Auto.secure_for(&headers);
-    see_other("/sign-in", Some(session::clear_cookie(secure)))
+    see_other("/sign-in", Some(jar.add(session::removal_cookie(secure))))
 }
 
 /// What the page shows as chosen.
@@ -338,13 +359,8 @@ fn level_kind(level: Option<&str>) -> LevelKind {
         .unwrap_or(LevelKind::Site)
 }
 
-async fn report_page(
-    State(state): State<AppState>,
-    State(pages): State<Arc<PageState>>,
-    headers: HeaderMap,
-    uri: Uri,
-) -> Response {
-    let viewer = match viewer(&state, &pages, &headers, &uri).await {
+async fn report_page(State(state): State<AppState>, headers: HeaderMap, uri: Uri) -> Response {
+    let viewer = match viewer(&state, &headers, &uri).await {
         Ok(v) => v,
         Err(r) => return r,
     };
@@ -393,13 +409,8 @@ async fn report_page(
     }
 }
 
-async fn series_page(
-    State(state): State<AppState>,
-    State(pages): State<Arc<PageState>>,
-    headers: HeaderMap,
-    uri: Uri,
-) -> Response {
-    let viewer = match viewer(&state, &pages, &headers, &uri).await {
+async fn series_page(State(state): State<AppState>, headers: HeaderMap, uri: Uri) -> Response {
+    let viewer = match viewer(&state, &headers, &uri).await {
         Ok(v) => v,
         Err(r) => return r,
     };

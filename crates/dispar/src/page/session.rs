@@ -1,20 +1,22 @@
-//! Browser sessions for the pages: a person signs in once with a read key and gets a
-//! session cookie; the key never travels again, and never in a URL.
+//! Browser sessions for the pages: a person signs in once with an API key with read
+//! access and gets a session cookie; the key never travels again, and never in a URL.
 //!
 //! A session id is 128 random bits from the operating system, sent as 32 hex digits
 //! in the cookie [`COOKIE`] (`HttpOnly`, `SameSite=Strict`, `Path=/`, and `Secure`
-//! when the page was served over https). The server keeps, in memory, the id -> (key
-//! id, role, expiry) map: a restart signs everyone out, and with several instances a
-//! session is only known to the instance that made it (sign in again). Each page
-//! request looks the key up again, so revoking the key ends its sessions.
+//! when the page was served over https), written and read with axum-extra's
+//! `CookieJar`. The database keeps SHA-256 of the id's bytes with the key id and the
+//! session's lifetime (`Store::create_page_session`), as it keeps only the hash of an
+//! API key's secret: sessions survive a restart, every instance on one database knows
+//! them, and a copy of the table signs nobody in. Each page request looks the key up
+//! again, so revoking the key ends its sessions.
 
-use std::collections::HashMap;
-use std::sync::Mutex;
-use std::time::{Duration, Instant};
+use std::time::Duration;
 
 use axum::http::HeaderMap;
 use axum::http::header;
-use dispar_store::{KeyId, KeyRole};
+use axum_extra::extract::cookie::{Cookie, CookieJar, SameSite};
+
+use crate::auth::hash_secret;
 
 /// Name of the session cookie.
 pub const COOKIE: &str = "dispar_session";
@@ -22,11 +24,70 @@ pub const COOKIE: &str = "dispar_session";
 /// How long a session lasts from sign-in.
 pub const SESSION_TTL: Duration = Duration::from_secs(12 * 60 * 60);
 
-/// Most sessions held at once; signing in beyond it ends the oldest session.
-pub const MAX_SESSIONS: usize = 10_000;
-
-/// Most live sessions of one API key (people sharing a read key on a few screens).
+/// Most live sessions of one API key (people sharing a read key on a few screens);
+/// signing in beyond it ends that key's oldest session. No overall cap is needed:
+/// sessions are rows in the database, at most this many per key an admin made.
 pub const MAX_SESSIONS_PER_KEY: usize = 50;
+
+/// Random bytes in a session id.
+const ID_BYTES: usize = 16;
+
+/// A new session id: the cookie's value and the hash the store keeps.
+pub struct NewSessionId {
+    /// 32 hex digits, for the cookie.
+    pub cookie_value: String,
+    /// SHA-256 of the id's bytes.
+    pub hash: [u8; 32],
+}
+
+impl std::fmt::Debug for NewSessionId {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("NewSessionId").finish_non_exhaustive()
+    }
+}
+
+/// Makes a random session id.
+pub fn new_session_id() -> Result<NewSessionId, getrandom::Error> {
+    let mut bytes = [0u8; ID_BYTES];
+    getrandom::fill(&mut bytes)?;
+    Ok(NewSessionId {
+        cookie_value: hex::encode(bytes),
+        hash: hash_secret(&bytes),
+    })
+}
+
+/// The hash of the session id in the request's cookies, if one of ours is there
+/// (32 hex digits).
+pub fn session_hash(jar: &CookieJar) -> Option<[u8; 32]> {
+    let value = jar.get(COOKIE)?.value_trimmed();
+    let mut bytes = [0u8; ID_BYTES];
+    hex::decode_to_slice(value, &mut bytes).ok()?;
+    Some(hash_secret(&bytes))
+}
+
+/// The cookie that starts a session.
+pub fn session_cookie(value: String, secure: bool) -> Cookie<'static> {
+    Cookie::build((COOKIE, value))
+        .path("/")
+        .max_age(time::Duration::seconds(
+            i64::try_from(SESSION_TTL.as_secs()).unwrap_or(i64::MAX),
+        ))
+        .http_only(true)
+        .same_site(SameSite::Strict)
+        .secure(secure)
+        .build()
+}
+
+/// The cookie that removes the session cookie (same attributes, empty, `Max-Age=0`).
+pub fn removal_cookie(secure: bool) -> Cookie<'static> {
+    Cookie::build((COOKIE, ""))
+        .path("/")
+        .max_age(time::Duration::ZERO)
+        .http_only(true)
+        .same_site(SameSite::Strict)
+        .secure(secure)
+        .build()
+}
 
 /// When to mark the session cookie `Secure`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
@@ -73,136 +134,6 @@ pub fn came_over_https(headers: &HeaderMap) -> bool {
             })
         });
     forwarded_proto || forwarded
-}
-
-/// What a session stands for.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct Session {
-    /// The API key signed in with.
-    pub key_id: KeyId,
-    /// Its role at sign-in.
-    pub role: KeyRole,
-    /// When the session ends.
-    pub expires: Instant,
-}
-
-/// The sessions of one server process.
-#[derive(Debug, Default)]
-pub struct Sessions {
-    map: Mutex<HashMap<String, Session>>,
-}
-
-impl Sessions {
-    /// An empty set.
-    pub fn new() -> Self {
-        Self::default()
-    }
-
-    fn lock(&self) -> std::sync::MutexGuard<'_, HashMap<String, Session>> {
-        // A panic while holding the lock leaves a usable map (no invariant spans
-        // several entries), so a poisoned lock is taken over.
-        self.map
-            .lock()
-            .unwrap_or_else(std::sync::PoisonError::into_inner)
-    }
-
-    /// Starts a session for `key_id` and returns its id (32 hex digits).
-    pub fn create(&self, key_id: KeyId, role: KeyRole) -> Result<String, getrandom::Error> {
-        let mut bytes = [0u8; 16];
-        getrandom::fill(&mut bytes)?;
-        let id = hex::encode(bytes);
-        let now = Instant::now();
-        let mut map = self.lock();
-        map.retain(|_, s| s.expires > now);
-        // One key signing in again and again only pushes out its own oldest sessions,
-        // so it cannot sign everybody else out by filling the table.
-        let own: Vec<(&String, &Session)> =
-            map.iter().filter(|(_, s)| s.key_id == key_id).collect();
-        if own.len() >= MAX_SESSIONS_PER_KEY
-            && let Some(oldest) = own
-                .iter()
-                .min_by_key(|(_, s)| s.expires)
-                .map(|(k, _)| (*k).clone())
-        {
-            map.remove(&oldest);
-        }
-        if map.len() >= MAX_SESSIONS
-            && let Some(oldest) = map
-                .iter()
-                .min_by_key(|(_, s)| s.expires)
-                .map(|(k, _)| k.clone())
-        {
-            map.remove(&oldest);
-        }
-        map.insert(
-            id.clone(),
-            Session {
-                key_id,
-                role,
-                expires: now + SESSION_TTL,
-            },
-        );
-        Ok(id)
-    }
-
-    /// The live session with this id.
-    pub fn get(&self, id: &str) -> Option<Session> {
-        let mut map = self.lock();
-        match map.get(id) {
-            Some(s) if s.expires > Instant::now() => Some(s.clone()),
-            Some(_) => {
-                map.remove(id);
-                None
-            }
-            None => None,
-        }
-    }
-
-    /// Ends a session (signing out).
-    pub fn remove(&self, id: &str) {
-        self.lock().remove(id);
-    }
-
-    /// Sessions held (live or not yet purged).
-    pub fn len(&self) -> usize {
-        self.lock().len()
-    }
-
-    /// True when no session is held.
-    pub fn is_empty(&self) -> bool {
-        self.len() == 0
-    }
-}
-
-/// The session id in the request's `Cookie` headers, if it looks like one of ours.
-pub fn session_id(headers: &HeaderMap) -> Option<String> {
-    headers
-        .get_all(header::COOKIE)
-        .iter()
-        .filter_map(|v| v.to_str().ok())
-        .flat_map(|v| v.split(';'))
-        .filter_map(|pair| pair.split_once('='))
-        .find(|(name, _)| name.trim() == COOKIE)
-        .map(|(_, value)| value.trim().trim_matches('"'))
-        .filter(|v| v.len() == 32 && v.bytes().all(|b| b.is_ascii_hexdigit()))
-        .map(str::to_owned)
-}
-
-/// The `Set-Cookie` value that starts a session.
-pub fn set_cookie(id: &str, secure: bool) -> String {
-    format!(
-        "{COOKIE}={id}; Path=/; Max-Age={}; HttpOnly; SameSite=Strict{}",
-        SESSION_TTL.as_secs(),
-        if secure { "; Secure" } else { "" }
-    )
-}
-
-/// The `Set-Cookie` value that removes the session cookie.
-pub fn clear_cookie(secure: bool) -> String {
-    format!(
-        "{COOKIE}=; Path=/; Max-Age=0; HttpOnly; SameSite=Strict{}",
-        if secure { "; Secure" } else { "" }
-    )
 }
 
 /// `next` when it is a path of one of our pages (so a sign-in link cannot send the
@@ -258,34 +189,28 @@ mod tests {
     }
 
     #[test]
-    fn one_key_signing_in_repeatedly_pushes_out_only_its_own_sessions() {
-        let sessions = Sessions::new();
-        let other = sessions.create(2, KeyRole::Read).expect("random bytes");
-        let first = sessions.create(1, KeyRole::Read).expect("random bytes");
-        for _ in 0..MAX_SESSIONS_PER_KEY + 5 {
-            sessions.create(1, KeyRole::Read).expect("random bytes");
-        }
-        assert!(
-            sessions.get(&other).is_some(),
-            "another key's session survives"
-        );
-        assert!(
-            sessions.get(&first).is_none(),
-            "key 1's oldest session was ended"
-        );
-        let live_for_1 = sessions.lock().values().filter(|s| s.key_id == 1).count();
-        assert_eq!(live_for_1, MAX_SESSIONS_PER_KEY);
-    }
-
-    #[test]
     fn the_session_cookie_is_http_only_strict_and_secure_over_https() {
-        let c = set_cookie("0123456789abcdef0123456789abcdef", false);
-        assert_eq!(
-            c,
-            "dispar_session=0123456789abcdef0123456789abcdef; Path=/; Max-Age=43200; HttpOnly; SameSite=Strict"
+        let c = session_cookie("0123456789abcdef0123456789abcdef".to_owned(), false).to_string();
+        for part in [
+            "dispar_session=0123456789abcdef0123456789abcdef",
+            "HttpOnly",
+            "SameSite=Strict",
+            "Path=/",
+            "Max-Age=43200",
+        ] {
+            assert!(c.contains(part), "{part} in {c}");
+        }
+        assert!(!c.contains("Secure"), "{c}");
+        assert!(
+            session_cookie("x".to_owned(), true)
+                .to_string()
+                .contains("; Secure")
         );
-        assert!(set_cookie("x", true).ends_with("; Secure"));
-        assert!(clear_cookie(false).contains("Max-Age=0"));
+        let gone = removal_cookie(false).to_string();
+        assert!(
+            gone.contains("Max-Age=0") && gone.contains("HttpOnly") && gone.contains("Path=/"),
+            "{gone}"
+        );
     }
 
     #[test]
@@ -302,33 +227,32 @@ mod tests {
     }
 
     #[test]
-    fn sessions_are_found_by_id_and_end_on_sign_out() {
-        let s = Sessions::new();
-        let id = s.create(7, KeyRole::Read).unwrap();
-        assert_eq!(id.len(), 32);
-        assert_eq!(s.get(&id).map(|x| x.key_id), Some(7));
-        let other = s.create(7, KeyRole::Read).unwrap();
-        assert_ne!(id, other, "each sign-in gets a new random id");
-        s.remove(&id);
-        assert!(s.get(&id).is_none());
-        assert!(s.get(&other).is_some());
-    }
-
-    #[test]
-    fn the_session_id_is_read_from_among_other_cookies() {
-        let h = headers(&[(
+    fn the_session_id_is_read_from_among_other_cookies_and_only_its_hash_kept() {
+        let id = new_session_id().expect("random bytes");
+        assert_eq!(id.cookie_value.len(), 32);
+        assert_ne!(
+            id.cookie_value,
+            new_session_id().expect("random bytes").cookie_value,
+            "each sign-in gets a new random id"
+        );
+        let mut h = HeaderMap::new();
+        h.insert(
             "cookie",
-            "theme=dark; dispar_session=0123456789abcdef0123456789ABCDEF; x=1",
-        )]);
-        assert_eq!(
-            session_id(&h).as_deref(),
-            Some("0123456789abcdef0123456789ABCDEF")
+            HeaderValue::from_str(&format!(
+                "theme=dark; dispar_session={}; x=1",
+                id.cookie_value
+            ))
+            .expect("header"),
         );
-        assert_eq!(
-            session_id(&headers(&[("cookie", "dispar_session=short")])),
-            None
+        let jar = CookieJar::from_headers(&h);
+        assert_eq!(session_hash(&jar), Some(id.hash));
+        assert_ne!(
+            id.hash[..16],
+            hex::decode(&id.cookie_value).expect("hex")[..]
         );
-        assert_eq!(session_id(&headers(&[])), None);
+        let short = CookieJar::from_headers(&headers(&[("cookie", "dispar_session=short")]));
+        assert_eq!(session_hash(&short), None);
+        assert_eq!(session_hash(&CookieJar::from_headers(&headers(&[]))), None);
     }
 
     #[test]

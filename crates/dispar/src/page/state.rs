@@ -1,18 +1,14 @@
-//! The pages' own state, held in the `AppState`: the page sessions and the
-//! default week of the last look-up.
+//! The pages' own state, held in the `AppState`: the default week of the last
+//! look-up (page sessions are in the store, so every instance knows them).
 
 use std::sync::Mutex;
 
 use dispar_core::period::Period;
 use time::Date;
 
-use super::session::Sessions;
-
 /// What the pages keep between requests.
 #[derive(Debug)]
 pub struct PageState {
-    /// The signed-in sessions.
-    pub sessions: Sessions,
     /// (data version, today, default week) of the last look-up.
     default_week: Mutex<Option<(u64, Date, Period)>>,
 }
@@ -24,10 +20,9 @@ impl Default for PageState {
 }
 
 impl PageState {
-    /// No sessions, nothing looked up.
+    /// Nothing looked up yet.
     pub fn new() -> Self {
         Self {
-            sessions: Sessions::new(),
             default_week: Mutex::new(None),
         }
     }

@@ -11,7 +11,8 @@ use dispar_core::report::{
 };
 use tower::ServiceExt as _;
 
-use super::render::{PageContext, Selection, SiteChoice, Viewer, render_report, render_sign_in};
+use super::render::{render_report, render_sign_in};
+use super::view::{PageContext, Selection, SiteChoice, Viewer};
 
 fn group(code: &str, name: &str, inspected: u64, defective: u64) -> GroupCounts {
     GroupCounts {
@@ -66,6 +67,10 @@ fn five_sites() -> Vec<GroupCounts> {
     ]
 }
 
+fn sel(css: &str) -> scraper::Selector {
+    scraper::Selector::parse(css).unwrap()
+}
+
 fn count(haystack: &str, needle: &str) -> usize {
     haystack.matches(needle).count()
 }
@@ -74,12 +79,12 @@ fn count(haystack: &str, needle: &str) -> usize {
 fn the_page_opens_with_the_verdict_then_the_table_and_both_charts() {
     let report = report_of(&five_sites(), Parameters::default());
     let html = render_report(&report, &ctx());
-    assert!(html.starts_with("<!doctype html>"), "{}", &html[..40]);
+    assert!(html.starts_with("<!DOCTYPE html>"), "{}", &html[..40]);
     let order = [
         "id=\"verdict\"",
         "<table id=\"groups\"",
-        "<svg id=\"rates-chart\"",
-        "<svg id=\"funnel-chart\"",
+        "id=\"rates-chart\"",
+        "id=\"funnel-chart\"",
         "id=\"pairwise\"",
         "id=\"flagged\"",
         "id=\"samples\"",
@@ -94,22 +99,27 @@ fn the_page_opens_with_the_verdict_then_the_table_and_both_charts() {
         })
         .collect();
     assert!(positions.windows(2).all(|w| w[0] < w[1]), "{positions:?}");
-    let p = super::format::escape(&super::format::fmt_p(report.test.as_ref().unwrap().p_value));
+    let p = super::format::p_equals(report.test.as_ref().unwrap().p_value);
     assert!(
         html.contains(&format!(
-            "Sites differ in defect rate (p = {p}, Pearson chi-square, 4 df)."
+            "The difference in defect rate between the sites is significant at \u{3b1} = 0.05 ({p}, Pearson chi-square, 4 df)."
         )),
         "verdict sentence"
     );
-    assert!(html.contains("flagged: <strong>KES</strong> above the pooled rate (2.02% against"));
+    assert!(html.contains(
+        "4 sites flagged: \u{25b2} <strong>KES</strong> above the pooled rate (2.02% against"
+    ));
     // One row per site in the table, one mark per site in each chart.
     let table = &html[html.find("<table id=\"groups\"").unwrap()..];
     let table = &table[..table.find("</table>").unwrap()];
     assert_eq!(count(table, " data-name="), 5);
     assert_eq!(count(&html, "<g class=\"group "), 10);
-    for c in &report.cautions {
-        assert!(html.contains(&super::format::escape(c)), "caution {c}");
-    }
+    let doc = scraper::Html::parse_document(&html);
+    let shown: Vec<String> = doc
+        .select(&sel("#cautions li"))
+        .map(|li| li.text().collect())
+        .collect();
+    assert_eq!(shown, report.cautions, "every caution, as text");
     assert_eq!(count(&html, "<section"), count(&html, "</section>"));
     assert_eq!(count(&html, "<svg"), count(&html, "</svg>"));
     assert_eq!(count(&html, "<table"), count(&html, "</table>"));
@@ -148,7 +158,7 @@ fn the_defect_categories_are_shown_between_the_flags_and_the_sample_sizes() {
         assert!(html.contains(row), "{row} missing");
     }
     // KES's mix (83% seal-leak against 48% overall) makes the association obvious.
-    assert!(html.contains("The defect mix differs between the groups ("));
+    assert!(html.contains("The defect mix differs between the groups: significant at"));
     let table = &html[html.find("<table id=\"category-mix\"").expect("mix table")..];
     let table = &table[..table.find("</table>").expect("end of mix table")];
     assert_eq!(count(table, "<th scope=\"row\">"), 5, "{table}");
@@ -216,11 +226,11 @@ fn p_values_are_written_for_people() {
     );
     let html = render_report(&huge, &ctx());
     assert!(
-        html.contains("(p = &lt; 1e-300, "),
+        html.contains("(p &lt; 1e-300, ") && !html.contains("p = &lt;"),
         "underflow shown as a bound"
     );
     assert!(
-        html.contains(&format!("log10 p = {:.1}", t.log10_p)),
+        html.contains(&format!("log10 p = \u{2212}{:.1}", -t.log10_p)),
         "log10 p kept"
     );
     let no_difference = report_of(
@@ -228,7 +238,7 @@ fn p_values_are_written_for_people() {
         Parameters::default(),
     );
     let html = render_report(&no_difference, &ctx());
-    assert!(html.contains("class=\"same\""));
+    assert!(html.contains("id=\"verdict\" class=\"not-significant\""));
     assert!(html.contains("This is not proof that they are equal."));
 }
 
@@ -258,7 +268,7 @@ fn a_period_that_cannot_be_tested_says_why_and_still_lists_the_groups() {
         html.contains("id=\"funnel-missing\""),
         "no funnel at a pooled rate of 0"
     );
-    assert!(html.contains("<svg id=\"rates-chart\""));
+    assert!(html.contains("id=\"rates-chart\""));
 }
 
 #[test]
@@ -507,19 +517,20 @@ mod flow {
             (
                 "hello",
                 StatusCode::UNAUTHORIZED,
-                "That is not a dispar key.",
+                "followed by 64 hexadecimal digits (0-9 and a-f).",
             ),
             ("", StatusCode::UNAUTHORIZED, "That is not a dispar key."),
             (
                 ingest.as_str(),
                 StatusCode::FORBIDDEN,
-                "An ingest key cannot open reports",
+                "An ingest key cannot open reports; sign in with an API key with read access (read or admin).",
             ),
         ] {
             let (s, headers, body) = send(&f.app, post_form("/sign-in", form(k, None), &[])).await;
             assert_eq!(s, status, "{k:?}: {body}");
             assert!(headers.get(header::SET_COOKIE).is_none(), "{k:?}");
             assert!(body.contains(words), "{k:?}: {body}");
+            assert!(!body.contains("letters and digits"), "{k:?}: {body}");
         }
 
         // A key in the query string is never read.
@@ -574,8 +585,80 @@ mod flow {
             headers[header::SET_COOKIE]
                 .to_str()
                 .unwrap()
-                .ends_with("; Secure")
+                .contains("; Secure")
         );
+    }
+
+    /// The page routes over a new store and state on the database file `path`: one
+    /// server instance (or the same server after a restart).
+    async fn instance(path: &std::path::Path) -> (Router, Arc<dyn Store>) {
+        let store = dispar_store::open(&format!("sqlite:{}", path.display()))
+            .await
+            .unwrap();
+        let state = AppState::new(store.clone(), Limits::default());
+        (crate::page::router().with_state(state), store)
+    }
+
+    #[tokio::test]
+    async fn a_session_survives_a_restart_is_shared_by_instances_and_ends_at_sign_out() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("pages.db");
+        let (first, store) = instance(&path).await;
+        let (_, token) = key(&store, KeyRole::Read).await;
+        let (s, headers, _) = send(&first, post_form("/sign-in", form(&token, None), &[])).await;
+        assert_eq!(s, StatusCode::SEE_OTHER);
+        let cookie = cookie_pair(headers[header::SET_COOKIE].to_str().unwrap());
+        let (s, _, _) = send(&first, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::OK, "the instance that signed in");
+
+        // A second instance on the same database knows the session.
+        let (second, second_store) = instance(&path).await;
+        let (s, _, body) = send(&second, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::OK, "another instance: {body}");
+
+        // Restart: every store closed, new state over the same file.
+        second_store.close().await;
+        store.close().await;
+        drop((first, second));
+        let (restarted, store) = instance(&path).await;
+        let (s, _, body) = send(&restarted, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::OK, "after the restart: {body}");
+        assert!(body.contains("id=\"series-chart\""), "{body}");
+
+        // Signing out ends it everywhere, even for a copy of the old cookie.
+        let (s, _, _) = send(
+            &restarted,
+            post_form("/sign-out", String::new(), &[("cookie", &cookie)]),
+        )
+        .await;
+        assert_eq!(s, StatusCode::SEE_OTHER);
+        let (s, headers, _) = send(&restarted, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::SEE_OTHER);
+        assert!(
+            headers[header::LOCATION]
+                .to_str()
+                .unwrap()
+                .starts_with("/sign-in")
+        );
+        let (other, other_store) = instance(&path).await;
+        let (s, _, _) = send(&other, get("/series", Some(&cookie))).await;
+        assert_eq!(s, StatusCode::SEE_OTHER, "ended for every instance");
+        other_store.close().await;
+        store.close().await;
+    }
+
+    #[tokio::test]
+    async fn a_cookie_the_store_never_issued_is_not_a_session() {
+        let f = fixture().await;
+        let (s, _, _) = send(
+            &f.app,
+            get(
+                "/series",
+                Some("dispar_session=0123456789abcdef0123456789abcdef"),
+            ),
+        )
+        .await;
+        assert_eq!(s, StatusCode::SEE_OTHER);
     }
 
     #[tokio::test]
@@ -646,6 +729,21 @@ mod flow {
         let (s, _, body) = send(&f.app, get("/favicon.svg", None)).await;
         assert_eq!(s, StatusCode::OK);
         assert!(body.starts_with("<svg"));
+        // The problem type pages: the page shell, code spans as <code>, no backticks.
+        let (s, headers, body) = send(&f.app, get("/problems/unauthorized", None)).await;
+        assert_eq!(s, StatusCode::OK);
+        assert!(headers.contains_key(header::CONTENT_SECURITY_POLICY));
+        let doc = scraper::Html::parse_document(&body);
+        let code: Vec<String> = doc
+            .select(&sel("#problem-description code"))
+            .map(|c| c.text().collect())
+            .collect();
+        assert_eq!(
+            code,
+            vec!["Authorization: Bearer <key>", "dispar keys create"],
+            "{body}"
+        );
+        assert!(!page_text(&doc).contains('`'), "{body}");
     }
 
     #[tokio::test]
@@ -690,4 +788,308 @@ mod flow {
         .await;
         assert_eq!(headers["server-timing"], "cache;desc=hit");
     }
+}
+
+// ---- hostile names, parsed ----------------------------------------------------------
+
+/// Names that would run script or break out of an attribute or the SVG if a page
+/// wrote them unescaped.
+const HOSTILE: [&str; 5] = [
+    "<script>alert(1)</script>",
+    "\" onerror=alert(1) x=\"",
+    "</svg><img src=x onerror=alert(2)>",
+    "'quoted' & \"double\"",
+    "javascript:alert(3)",
+];
+
+/// What the parsed page holds that could execute, as messages (empty when none).
+fn executable_parts(doc: &scraper::Html) -> Vec<String> {
+    let mut found = Vec::new();
+    for el in doc.select(&sel("*")) {
+        let name = el.value().name();
+        if matches!(name, "script" | "img" | "iframe" | "object" | "embed") {
+            found.push(format!("a <{name}> element"));
+        }
+        for (attr, value) in el.value().attrs() {
+            if attr.to_ascii_lowercase().starts_with("on") {
+                found.push(format!("attribute {attr}={value:?} on <{name}>"));
+            }
+            let url = matches!(
+                attr,
+                "href" | "src" | "action" | "formaction" | "xlink:href" | "data" | "poster"
+            );
+            if url && value.trim().to_ascii_lowercase().starts_with("javascript:") {
+                found.push(format!("a javascript: URL in {attr} of <{name}>"));
+            }
+        }
+    }
+    found
+}
+
+/// All text of the page (text nodes, not attributes).
+fn page_text(doc: &scraper::Html) -> String {
+    doc.root_element().text().collect()
+}
+
+/// Parses `html` and checks that nothing executable got through, that the page has
+/// `svgs` SVG elements (a `</svg>` in a name cannot close one early) and that each of
+/// `shown` appears as text.
+fn assert_inert(what: &str, html: &str, svgs: usize, shown: &[&str]) -> scraper::Html {
+    let doc = scraper::Html::parse_document(html);
+    let bad = executable_parts(&doc);
+    assert!(bad.is_empty(), "{what}: {bad:?}");
+    assert_eq!(
+        doc.select(&sel("svg")).count(),
+        svgs,
+        "{what}: svg elements"
+    );
+    let text = page_text(&doc);
+    for s in shown {
+        assert!(text.contains(s), "{what}: {s:?} not shown as text");
+    }
+    doc
+}
+
+fn hostile_groups() -> Vec<GroupCounts> {
+    let mut groups = five_sites();
+    for (g, h) in groups.iter_mut().zip(HOSTILE) {
+        g.code = h.to_owned();
+        g.name = Some(format!("{h} name"));
+        g.defects = BTreeMap::from([(h.to_owned(), g.defective / 2), ("seal".to_owned(), 3)]);
+    }
+    // One more group with no units, so the "Excluded" list shows a hostile name too.
+    groups.push(group(HOSTILE[0], "x", 0, 0));
+    groups.last_mut().unwrap().code = format!("{} excluded", HOSTILE[2]);
+    groups
+}
+
+fn hostile_ctx() -> PageContext {
+    let mut c = ctx();
+    c.viewer = Some(Viewer {
+        key_id: 3,
+        role: HOSTILE[0].to_owned(),
+    });
+    c.selection.period = HOSTILE[1].to_owned();
+    c.selection.site = Some(HOSTILE[2].to_owned());
+    c.selection.extra = vec![("alpha".to_owned(), HOSTILE[1].to_owned())];
+    c.sites = HOSTILE
+        .iter()
+        .map(|h| SiteChoice {
+            code: (*h).to_owned(),
+            name: format!("{h} site"),
+        })
+        .collect();
+    c.previous = Some(HOSTILE[4].to_owned());
+    c.next = Some(HOSTILE[2].to_owned());
+    c.notice = Some(HOSTILE[0].to_owned());
+    c
+}
+
+#[test]
+fn every_page_keeps_hostile_names_as_text() {
+    let mut parameters = Parameters {
+        min_difference: Some(0.001),
+        ..Parameters::default()
+    };
+    parameters.alpha = 0.05;
+    let report = report_of(&hostile_groups(), parameters);
+    assert!(report.test.is_some() && !report.excluded.is_empty());
+    let c = hostile_ctx();
+    let html = render_report(&report, &c);
+    let doc = assert_inert("report", &html, 2, &HOSTILE);
+    // The names are in the table, the charts' labels, the pairs and the categories.
+    assert_eq!(doc.select(&sel("table#groups tbody tr")).count(), 5);
+    assert_eq!(doc.select(&sel("svg#rates-chart g.group")).count(), 5);
+    assert_eq!(doc.select(&sel("svg#funnel-chart g.group")).count(), 5);
+    let first = doc
+        .select(&sel("table#groups tbody tr"))
+        .next()
+        .and_then(|tr| tr.value().attr("data-name"))
+        .map(str::to_owned);
+    assert_eq!(first.as_deref(), Some(HOSTILE[0]), "attribute kept whole");
+    let options: Vec<&str> = doc
+        .select(&sel("select#site option"))
+        .filter_map(|o| o.value().attr("value"))
+        .collect();
+    assert_eq!(options[1..], HOSTILE, "site codes as option values");
+    let hidden = doc
+        .select(&sel("input[type=hidden][name=alpha]"))
+        .next()
+        .and_then(|i| i.value().attr("value"));
+    assert_eq!(hidden, Some(HOSTILE[1]));
+    assert!(page_text(&doc).contains(&format!("{} excluded", HOSTILE[2])));
+
+    let problem = super::render::render_report_problem(&c, HOSTILE[0], &[HOSTILE[1].to_owned()]);
+    assert_inert("report problem", &problem, 0, &HOSTILE[..2]);
+
+    let series = super::view::SeriesView {
+        from: HOSTILE[3].to_owned(),
+        to: HOSTILE[2].to_owned(),
+        alpha: 0.05,
+        points: vec![report.summary(), report.summary()],
+    };
+    let html = super::render::render_series(&series, &c);
+    let doc = assert_inert("series", &html, 1, &HOSTILE);
+    assert_eq!(doc.select(&sel("svg#series-chart .period")).count(), 2);
+    let problem = super::render::render_series_problem(HOSTILE[1], HOSTILE[4], &c, HOSTILE[2], &[]);
+    assert_inert("series problem", &problem, 0, &[HOSTILE[2]]);
+
+    let sign_in = render_sign_in(Some(HOSTILE[2]), Some(HOSTILE[1]));
+    let doc = assert_inert("sign-in", &sign_in, 0, &[HOSTILE[2]]);
+    let next = doc
+        .select(&sel("input[name=next]"))
+        .next()
+        .and_then(|i| i.value().attr("value"));
+    assert_eq!(next, Some(HOSTILE[1]));
+
+    let problem_type = super::render::render_problem_type(
+        HOSTILE[0],
+        400,
+        HOSTILE[1],
+        "Send `<b>x</b>` not <i>y</i>.",
+    );
+    let doc = assert_inert(
+        "problem type",
+        &problem_type,
+        0,
+        &[HOSTILE[0], "<b>x</b>", "<i>y</i>"],
+    );
+    let code: Vec<String> = doc
+        .select(&sel("#problem-description code"))
+        .map(|c| c.text().collect())
+        .collect();
+    assert_eq!(code, vec!["<b>x</b>".to_owned()], "the code span, escaped");
+    assert_eq!(doc.select(&sel("b, i")).count(), 0);
+}
+
+// ---- page wording --------------------------------------------------------------------
+
+/// Negative numbers written with an ASCII hyphen in text: a `-` before a digit that
+/// does not follow a letter or digit (so `2026-W16`, `2026-04-13` and `1e-300` pass).
+fn ascii_minus_numbers(text: &str) -> Vec<String> {
+    let chars: Vec<char> = text.chars().collect();
+    chars
+        .windows(3)
+        .filter(|w| w[1] == '-' && w[2].is_ascii_digit() && !w[0].is_alphanumeric())
+        .map(|w| w.iter().collect())
+        .collect()
+}
+
+#[test]
+fn the_page_text_has_none_of_the_reported_glitches() {
+    // 664,474 units in all; two groups, so one pair.
+    let groups = vec![
+        group("AAA", "Aston", 400_000, 4_000),
+        group("BBB", "Barrow", 264_474, 2_100),
+    ];
+    let report = report_of(&groups, Parameters::default());
+    let html = render_report(&report, &ctx());
+    let doc = scraper::Html::parse_document(&html);
+    let text = page_text(&doc);
+    assert!(
+        text.contains("664,474") && !text.contains("664474"),
+        "thousands separators"
+    );
+    assert!(
+        text.contains("1 pair") && !text.contains("1 pairs"),
+        "singular pair"
+    );
+    assert!(
+        text.contains("Cram\u{e9}r's V") && !text.contains("Cramer"),
+        "accent"
+    );
+    assert!(
+        !text.contains('\u{2191}') && !text.contains('\u{2193}'),
+        "no arrows ↑↓"
+    );
+    assert!(
+        text.contains('\u{25b2}') && text.contains('\u{25bc}'),
+        "▲ and ▼"
+    );
+    assert_eq!(
+        ascii_minus_numbers(&text),
+        Vec::<String>::new(),
+        "true minus signs"
+    );
+    assert!(
+        text.contains("\u{2212}"),
+        "the negative difference uses U+2212"
+    );
+    for heading in [
+        "Pairwise comparisons",
+        "Flagged contributors",
+        "Cautions",
+        "Groups",
+    ] {
+        assert!(
+            doc.select(&sel("h2"))
+                .any(|h| h.text().collect::<String>() == heading),
+            "heading {heading}"
+        );
+    }
+    let significant: Vec<String> = doc
+        .select(&sel("table#pairwise tbody td"))
+        .map(|td| td.text().collect())
+        .collect();
+    assert!(significant.contains(&"yes".to_owned()), "{significant:?}");
+    assert!(
+        significant.iter().all(|c| c != "differ" && c != "\u{2014}"),
+        "the significant column says yes or no: {significant:?}"
+    );
+    assert!(text.contains("significant at \u{3b1} = 0.05"));
+    // Each colour meaning has words or a shape beside it: flagged rows carry a tag.
+    for tr in doc.select(&sel(
+        "table#groups tbody tr.flag-above, table#groups tbody tr.flag-below",
+    )) {
+        let t: String = tr.text().collect();
+        assert!(t.contains('\u{25b2}') || t.contains('\u{25bc}'), "{t}");
+    }
+
+    // p underflows: "p < 1e-300", never "p = < 1e-300".
+    let huge = report_of(
+        &[
+            group("A", "a", 1_000_000, 100_000),
+            group("B", "b", 1_000_000, 10_000),
+        ],
+        Parameters::default(),
+    );
+    let text = page_text(&scraper::Html::parse_document(&render_report(
+        &huge,
+        &ctx(),
+    )));
+    assert!(
+        text.contains("p < 1e-300") && !text.contains("p = <"),
+        "{text}"
+    );
+    assert_eq!(ascii_minus_numbers(&text), Vec::<String>::new());
+
+    // The series: ▲ beside the flagged group, verdict words, no arrows.
+    let series = super::view::SeriesView {
+        from: "2026-W15".to_owned(),
+        to: "2026-W16".to_owned(),
+        alpha: 0.05,
+        points: vec![
+            report.summary(),
+            report_of(&five_sites(), Parameters::default()).summary(),
+        ],
+    };
+    let doc = scraper::Html::parse_document(&super::render::render_series(&series, &ctx()));
+    let text = page_text(&doc);
+    assert!(
+        text.contains("KES \u{25b2}") && !text.contains('\u{2191}'),
+        "{text}"
+    );
+    let verdicts: Vec<String> = doc
+        .select(&sel("table#series tbody .tag"))
+        .map(|t| t.text().collect())
+        .collect();
+    assert_eq!(verdicts, vec!["significant", "significant"]);
+    assert_eq!(ascii_minus_numbers(&text), Vec::<String>::new());
+
+    // Sign-in: any key with read access.
+    let text = page_text(&scraper::Html::parse_document(&render_sign_in(None, None)));
+    assert!(
+        text.contains("API key with read access (a read or admin key"),
+        "{text}"
+    );
 }
