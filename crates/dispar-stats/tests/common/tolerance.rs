@@ -76,6 +76,18 @@ pub const ANOM_H_ABS: f64 = 1e-10;
 /// generator's maxpts) is recorded per case as `h_accuracy`; allow this many of those.
 pub const ANOM_SCIPY_ACCURACIES: f64 = 4.0;
 
+/// ANOM h for unequal sizes against a simulation of the residuals' joint normal
+/// (tools/reference/anom_sizes.py): the simulated quantile is off by its standard error
+/// `se_h` (recorded per case, 3e-4 to 1.5e-3); four of them make a false alarm over the
+/// 13 cases unlikely (two-sided 6e-5 each) while a real error of a few 1e-3 still fails.
+pub const ANOM_SIM_SES: f64 = 4.0;
+
+/// ANOM h for unequal sizes against the same integral solved with scipy's Faddeeva
+/// function and adaptive quadrature (tools/reference/anom_sizes.py `h_formula`): QUADPACK
+/// at 1e-13 and brentq at xtol 1e-13 leave ~1e-11 in h; the equal-size case agrees with
+/// the balanced constant to 1e-13. Absolute.
+pub const ANOM_FORMULA_ABS: f64 = 1e-9;
+
 /// Floor for the scipy comparison (k = 2 is exact in scipy too).
 pub const ANOM_SCIPY_FLOOR: f64 = 1e-6;
 
