@@ -48,6 +48,7 @@
 pub mod adjust;
 pub mod analysis;
 pub mod anom;
+pub mod baseline;
 pub mod chisq;
 pub mod effect;
 mod error;
