@@ -88,6 +88,24 @@ pub const ANOM_SIM_SES: f64 = 4.0;
 /// the balanced constant to 1e-13. Absolute.
 pub const ANOM_FORMULA_ABS: f64 = 1e-9;
 
+/// Baseline comparison against the Python reference (tools/reference/baseline_fixtures.py):
+/// the same arithmetic in float64 (sums of integers exact, a handful of divisions, square
+/// roots and logs; the moving ranges add up at most a few dozen terms): relative.
+pub const BASELINE_REL: f64 = 1e-11;
+
+/// z near 0 (a period at its baseline rate) has no relative accuracy to speak of: an
+/// absolute floor of a few hundred EPS.
+pub const BASELINE_Z_ABS: f64 = 1e-12;
+
+/// z on the exact path: Phi^-1 of Fisher's p, which dispar-stats computes in log space
+/// (FISHER_PER_LN_FACTORIAL: ~1e-9 relative in p at the largest N here) and scipy by
+/// summing the hypergeometric pmf; dz = dp / (p z) ~ 1e-9 / z relative. Also the width
+/// of the band around the limit inside which the two verdicts may differ.
+pub const BASELINE_Z_EXACT_REL: f64 = 1e-8;
+
+/// The difference p - pbar cancels when the rates are close: absolute floor.
+pub const BASELINE_DIFFERENCE_ABS: f64 = 1e-15;
+
 /// Floor for the scipy comparison (k = 2 is exact in scipy too).
 pub const ANOM_SCIPY_FLOOR: f64 = 1e-6;
 
