@@ -2,7 +2,7 @@
 //! rate tables (k x 2), per-group rates, flags, overdispersion and pairwise follow-ups.
 
 use crate::adjust::Adjustment;
-use crate::anom::{AnomCritical, critical};
+use crate::anom::{AnomCritical, critical_for_sizes};
 use crate::chisq::{
     critical_value, degrees_of_freedom, likelihood_ratio, pearson, upper_tail_unchecked, yates,
 };
@@ -220,7 +220,8 @@ pub struct RateAnalysis {
     pub test: Analysis,
     /// Total defective / total inspected over the tested groups.
     pub pooled_rate: f64,
-    /// The ANOM critical value for the tested groups.
+    /// The ANOM critical value for the tested groups' sizes
+    /// ([`crate::anom::critical_for_sizes`]).
     pub anom: AnomCritical,
     /// The limit flags use: anom.h, times sqrt(phi) when widening applied.
     pub limit: f64,
@@ -356,7 +357,7 @@ pub fn analyze(table: &Table, options: &Options) -> Result<Analysis, StatsError>
 /// Groups that inspected nothing are dropped (listed in `test.dropped_rows`). When no
 /// tested group has a defective unit (or every unit is defective) the result is
 /// `Err(StatsError::NotTestable(..))` with reason `TooFewColumns`. Flags compare each
-/// group's adjusted residual with the ANOM critical value h(alpha, k) (widened by
+/// group's adjusted residual with the ANOM critical value h for the groups' sizes (widened by
 /// sqrt(phi) under [`Dispersion::Widen`] when overdispersion is present).
 ///
 /// ```
@@ -380,7 +381,10 @@ pub fn analyze_rates(groups: &[(u64, u64)], options: &Options) -> Result<RateAna
         x_total += groups[i].1;
     }
     let pooled = x_total as f64 / n_total as f64;
-    let anom = critical(options.alpha, k)?;
+    // The residuals' correlations depend on the groups' shares of the units, so h is the
+    // one for these sizes (the balanced constant only when they are equal).
+    let sizes: Vec<u64> = kept.iter().map(|&i| groups[i].0).collect();
+    let anom = critical_for_sizes(options.alpha, &sizes)?;
     let pooled_var = pooled * (1.0 - pooled);
     let z_scores: Vec<f64> = kept
         .iter()
@@ -515,6 +519,29 @@ mod tests {
             assert_eq!(g.flag, None);
             assert_rel(g.share_of_x2, 0.05, 1e-13, "share of X^2");
         }
+    }
+
+    #[test]
+    fn flags_use_the_critical_value_for_the_groups_own_sizes() {
+        // Issue 9: sizes 8,976 / 1,518 / 22,595 at alpha 0.01 have h = 2.8796, not the
+        // balanced 2.9135; a residual between the two is flagged only with the sizes' h.
+        let groups = [(8_976u64, 80u64), (1_518, 14), (22_595, 200)];
+        let sizes: Vec<u64> = groups.iter().map(|g| g.0).collect();
+        let opts = Options {
+            alpha: 0.01,
+            ..Options::default()
+        };
+        let r = analyze_rates(&groups, &opts).expect("testable");
+        let own = crate::anom::critical_for_sizes(0.01, &sizes).expect("valid");
+        assert_eq!(r.anom, own);
+        assert_eq!(r.limit, own.h);
+        assert!(r.anom.h < crate::anom::critical(0.01, 3).expect("valid").h - 0.03);
+        // A dropped (empty) group does not enter the size profile.
+        let with_empty = [(8_976u64, 80u64), (0, 0), (1_518, 14), (22_595, 200)];
+        assert_eq!(
+            analyze_rates(&with_empty, &opts).expect("testable").anom,
+            own
+        );
     }
 
     #[test]

@@ -15,9 +15,11 @@
 //! | [`interval`] | Wilson score interval; Newcombe's hybrid score interval for p1 - p2 | `Interval`, `wilson(x, n, confidence)`, `newcombe_difference(x1, n1, x2, n2, confidence)` |
 //! | [`funnel`] | funnel-plot limits for a rate against sample size, with their normal quantile | `Funnel::new(pooled, coverage, scale)`, `Funnel::at(n) -> Interval` |
 //! | [`adjust`] | Holm, Bonferroni, Hochberg, Benjamini-Hochberg | `adjust(&[f64], Adjustment) -> Vec<f64>` |
-//! | [`anom`] | analysis-of-means critical value h(alpha, k), computed exactly (Sidak fallback) | `critical(alpha, k) -> AnomCritical {h, method}`, `sidak` |
+//! | [`anom`] | analysis-of-means critical value h, computed exactly for equal or unequal group sizes (Sidak fallback) | `critical(alpha, k) -> AnomCritical {h, method}`, `critical_for_sizes(alpha, &sizes)`, `sidak` |
 //! | [`overdispersion`] | Spiegelhalter's multiplicative factor from winsorised z-scores; additive tau^2 | `spiegelhalter(z, fraction) -> Overdispersion`, `tau_squared` |
-//! | [`pairwise`] | all pairs of groups as 2 x 2 tables, adjusted p, rate difference with Newcombe CI | `pairwise(&[(inspected, defective)], &PairwiseOptions) -> Vec<Pair>` |
+//! | [`pairwise`] | all pairs of groups as 2 x 2 tables, adjusted p over the testable pairs, rate difference with Newcombe CI | `pairwise(&[(inspected, defective)], &PairwiseOptions) -> Vec<Pair>`, `Untestable` |
+//! | [`baseline`] | a group's period against its own baseline: Laney sigma_z, earlier excursions left out, exact for small counts, Šidák or three-sigma limit, verdict | `compare((inspected, defective), &baseline, &BaselineOptions) -> Comparison {verdict, reason, method, rate, z, limit, ..}`, `Limit`, `Verdict`, `Reason`, `Method` |
+//! | [`spread`] | the usual spread between groups over the baseline periods (Spiegelhalter's phi from the pooled z-scores) and each group's above/below record | `usual_spread(&periods, groups, winsor_fraction) -> UsualSpread {overdispersion, periods, groups}` |
 //! | [`analysis`] | the whole analysis with method choice and reasons | `analyze(&Table, &Options) -> Analysis`, `analyze_rates(&[(inspected, defective)], &Options) -> RateAnalysis` |
 //!
 //! Errors are one enum, [`StatsError`]; a table on which no test is possible is
@@ -49,6 +51,7 @@
 pub mod adjust;
 pub mod analysis;
 pub mod anom;
+pub mod baseline;
 pub mod chisq;
 pub mod effect;
 mod error;
@@ -61,6 +64,7 @@ pub mod montecarlo;
 pub mod overdispersion;
 pub mod pairwise;
 pub mod residuals;
+pub mod spread;
 pub mod table;
 #[cfg(test)]
 mod testutil;

@@ -65,6 +65,27 @@ impl Default for PairwiseOptions {
     }
 }
 
+/// Why a pair is no test.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Untestable {
+    /// Neither group has a defective unit: the pair's table has an empty column, so every
+    /// table with its margins is the observed one and no outcome could speak against
+    /// equal rates.
+    NoDefectives,
+    /// Every unit of both groups is defective (the other empty column).
+    NoConforming,
+}
+
+impl Untestable {
+    /// The reason in words.
+    pub fn reason(self) -> &'static str {
+        match self {
+            Untestable::NoDefectives => "neither group has a defective unit",
+            Untestable::NoConforming => "every unit of both groups is defective",
+        }
+    }
+}
+
 /// One pair of groups.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Pair {
@@ -72,17 +93,22 @@ pub struct Pair {
     pub a: usize,
     /// Index of the second group.
     pub b: usize,
-    /// The test used.
+    /// The test used; for an untestable pair the one the method would have chosen (none
+    /// ran).
     pub method: PairTest,
-    /// The X^2 statistic (None for Fisher's test).
+    /// Set when the pair is no test; it then has no statistic and no p, and is left out
+    /// of the adjustment.
+    pub untestable: Option<Untestable>,
+    /// The X^2 statistic (None for Fisher's test and for an untestable pair).
     pub statistic: Option<f64>,
-    /// Raw two-sided p.
-    pub p: f64,
-    /// log10 of the raw p, finite where p underflows.
-    pub log10_p: f64,
-    /// p adjusted across all pairs.
-    pub p_adjusted: f64,
-    /// `p_adjusted < alpha`.
+    /// Raw two-sided p (None for an untestable pair).
+    pub p: Option<f64>,
+    /// log10 of the raw p, finite where p underflows (None for an untestable pair).
+    pub log10_p: Option<f64>,
+    /// p adjusted across the testable pairs only (as R's `p.adjust` treats missing
+    /// p-values); None for an untestable pair.
+    pub p_adjusted: Option<f64>,
+    /// `p_adjusted < alpha` (false for an untestable pair).
     pub reject: bool,
     /// rate_a - rate_b.
     pub difference: f64,
@@ -103,19 +129,29 @@ struct Group {
 }
 
 /// All pairs i < j of the groups `(inspected, defective)`, in the order (0,1), (0,2), ...,
-/// (1,2), ...; adjusted p across all of them.
+/// (1,2), ...; adjusted p across the testable ones (a pair in which neither group has a
+/// defective unit, or neither a conforming one, is marked [`Untestable`] and has no p).
 ///
 /// Errors: alpha outside (0, 1), a negative or non-finite minimum difference, a group with
 /// defective > inspected or with nothing inspected. Large inputs are split across the
 /// available cores (results do not depend on the split).
 ///
 /// ```
-/// use dispar_stats::pairwise::{pairwise, PairwiseOptions, PairTest};
+/// use dispar_stats::adjust::{adjust, Adjustment};
+/// use dispar_stats::pairwise::{pairwise, PairwiseOptions, PairTest, Untestable};
 /// let pairs = pairwise(&[(300, 36), (300, 63), (300, 38)], &PairwiseOptions::default())?;
 /// assert_eq!(pairs.len(), 3);
 /// assert_eq!((pairs[0].a, pairs[0].b), (0, 1));
 /// assert_eq!(pairs[0].method, PairTest::Pearson);
 /// assert!(pairs[0].p_adjusted >= pairs[0].p);
+/// // Neither group has a defective unit: no test, no p, not in the adjustment.
+/// let pairs = pairwise(&[(50, 0), (80, 0), (60, 9)], &PairwiseOptions::default())?;
+/// assert_eq!(pairs[0].untestable, Some(Untestable::NoDefectives));
+/// assert_eq!(pairs[0].p, None);
+/// let raw: Vec<f64> = pairs[1..].iter().filter_map(|p| p.p).collect();
+/// let holm = adjust(&raw, Adjustment::Holm); // a family of two, not three
+/// assert_eq!(pairs[1].p_adjusted, Some(holm[0]));
+/// assert_eq!(pairs[2].p_adjusted, Some(holm[1]));
 /// # Ok::<(), dispar_stats::StatsError>(())
 /// ```
 pub fn pairwise(groups: &[(u64, u64)], options: &PairwiseOptions) -> Result<Vec<Pair>, StatsError> {
@@ -199,10 +235,10 @@ pub fn pairwise(groups: &[(u64, u64)], options: &PairwiseOptions) -> Result<Vec<
         }
         all
     };
-    let raw: Vec<f64> = pairs.iter().map(|p| p.p).collect();
+    let raw: Vec<f64> = pairs.iter().filter_map(|p| p.p).collect();
     let adjusted = adjust(&raw, options.adjust);
-    for (pair, adj) in pairs.iter_mut().zip(adjusted) {
-        pair.p_adjusted = adj;
+    for (pair, adj) in pairs.iter_mut().filter(|p| p.p.is_some()).zip(adjusted) {
+        pair.p_adjusted = Some(adj);
         pair.reject = adj < options.alpha;
     }
     Ok(pairs)
@@ -255,7 +291,15 @@ fn one_pair(i: usize, g1: Group, j: usize, g2: Group, options: &PairwiseOptions)
             }
         }
     };
+    let untestable = if a + c == 0 {
+        Some(Untestable::NoDefectives)
+    } else if b + d == 0 {
+        Some(Untestable::NoConforming)
+    } else {
+        None
+    };
     let (statistic, p, log10_p) = match method {
+        _ if untestable.is_some() => (None, None, None),
         PairTest::Pearson | PairTest::PearsonYates => {
             let x2 = if method == PairTest::Pearson {
                 pearson_2x2(a, b, c, d)
@@ -263,11 +307,11 @@ fn one_pair(i: usize, g1: Group, j: usize, g2: Group, options: &PairwiseOptions)
                 yates_2x2(a, b, c, d)
             };
             let t = upper_tail_unchecked(x2, 1);
-            (Some(x2), t.p, t.log10_p)
+            (Some(x2), Some(t.p), Some(t.log10_p))
         }
         PairTest::Fisher => {
             let f = fisher(a, b, c, d);
-            (None, f.p_two_sided, f.log10_p)
+            (None, Some(f.p_two_sided), Some(f.log10_p))
         }
     };
     let ci = newcombe_from_wilson(g1.rate, g1.ci, g2.rate, g2.ci);
@@ -275,6 +319,7 @@ fn one_pair(i: usize, g1: Group, j: usize, g2: Group, options: &PairwiseOptions)
         a: i,
         b: j,
         method,
+        untestable,
         statistic,
         p,
         log10_p,
@@ -310,7 +355,7 @@ mod tests {
         let groups = [(300u64, 36u64), (300, 46), (300, 42), (300, 63), (300, 38)];
         let pairs = pairwise(&groups, &PairwiseOptions::default()).expect("valid");
         assert_eq!(pairs.len(), 10);
-        let raw: Vec<f64> = pairs.iter().map(|p| p.p).collect();
+        let raw: Vec<f64> = pairs.iter().map(|p| p.p.expect("testable")).collect();
         let holm = adjust(&raw, Adjustment::Holm);
         for (pair, h) in pairs.iter().zip(holm) {
             let (n1, x1) = groups[pair.a];
@@ -320,16 +365,88 @@ mod tests {
             assert_eq!(pair.method, PairTest::Pearson);
             assert_rel(pair.statistic.expect("chi-square"), x2s, 1e-14, "X^2");
             assert_rel(
-                pair.p,
+                pair.p.expect("testable"),
                 crate::chisq::upper_tail(x2s, 1).expect("ok").p,
                 1e-14,
                 "p",
             );
-            assert_eq!(pair.p_adjusted, h);
+            assert_eq!(pair.p_adjusted, Some(h));
+            assert_eq!(pair.untestable, None);
             let ci = crate::interval::newcombe_difference(x1, n1, x2, n2, 0.95).expect("ok");
             assert_rel(pair.difference_ci.lower, ci.lower, 1e-14, "lower");
             assert_rel(pair.difference_ci.upper, ci.upper, 1e-14, "upper");
         }
+    }
+
+    #[test]
+    fn a_pair_without_defectives_is_no_test_and_leaves_the_family() {
+        // Five groups, the first two without a defective unit: 9 testable pairs. Reference:
+        // scipy 1.17.1 fisher_exact (two-sided) per pair and statsmodels 0.15.0
+        // multipletests(method="holm") over the 9; with the no-test pair counted as p = 1
+        // (the old behaviour) statsmodels gives 0.003149 for (0, 2) instead of 0.002699.
+        let groups = [(400u64, 0u64), (350, 0), (300, 9), (500, 31), (450, 14)];
+        let opts = PairwiseOptions {
+            method: PairMethod::Fisher,
+            ..PairwiseOptions::default()
+        };
+        let pairs = pairwise(&groups, &opts).expect("valid");
+        assert_eq!(pairs.len(), 10);
+        let none = &pairs[0];
+        assert_eq!((none.a, none.b), (0, 1));
+        assert_eq!(none.untestable, Some(Untestable::NoDefectives));
+        assert_eq!((none.p, none.log10_p, none.p_adjusted), (None, None, None));
+        assert!(!none.reject);
+        assert_eq!(none.difference, 0.0);
+        const STATSMODELS: [(usize, usize, f64, f64); 9] = [
+            (
+                0,
+                2,
+                0.000_455_009_459_385_677_4,
+                0.002_699_365_214_517_027_4,
+            ),
+            (0, 3, 1.345_394_555_210_240_3e-8, 1.210_855_099_689_216_2e-7),
+            (
+                0,
+                4,
+                0.000_146_458_838_557_843_12,
+                0.001_025_211_869_904_901_8,
+            ),
+            (
+                1,
+                2,
+                0.000_890_051_721_915_962_1,
+                0.003_560_206_887_663_848_5,
+            ),
+            (1, 3, 5.738_301_543_553_676_4e-8, 4.590_641_234_842_941e-7),
+            (
+                1,
+                4,
+                0.000_449_894_202_419_504_55,
+                0.002_699_365_214_517_027_4,
+            ),
+            (2, 3, 0.045_536_826_545_534_3, 0.094_302_078_607_686_11),
+            (2, 4, 1.0, 1.0),
+            (3, 4, 0.031_434_026_202_562_03, 0.094_302_078_607_686_11),
+        ];
+        for (pair, &(a, b, p, holm)) in pairs[1..].iter().zip(&STATSMODELS) {
+            assert_eq!((pair.a, pair.b), (a, b));
+            assert_eq!(pair.untestable, None);
+            assert_rel(pair.p.expect("testable"), p, 1e-9, &format!("({a}, {b}) p"));
+            assert_rel(
+                pair.p_adjusted.expect("testable"),
+                holm,
+                1e-9,
+                &format!("({a}, {b}) Holm over 9"),
+            );
+        }
+        // Every unit defective in both groups is the other empty column.
+        let all = pairwise(&[(5, 5), (7, 7), (9, 3)], &opts).expect("valid");
+        assert_eq!(all[0].untestable, Some(Untestable::NoConforming));
+        assert_eq!(all[1].untestable, None);
+        assert_eq!(
+            Untestable::NoConforming.reason(),
+            "every unit of both groups is defective"
+        );
     }
 
     #[test]
@@ -342,7 +459,7 @@ mod tests {
         assert_eq!(pairs[0].method, PairTest::Fisher);
         assert_eq!(pairs[0].statistic, None);
         let f = fisher(1, 19, 6, 14);
-        assert_eq!(pairs[0].p, f.p_two_sided);
+        assert_eq!(pairs[0].p, Some(f.p_two_sided));
         // (20, 6) vs (1000, 100): expected defective in the small group 20 * 106/1020 < 5.
         assert_eq!(pairs[2].method, PairTest::Fisher);
     }

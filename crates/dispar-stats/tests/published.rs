@@ -212,3 +212,41 @@ fn newcombe_hybrid_score_difference_intervals() {
         );
     }
 }
+
+#[test]
+fn nist_proportion_control_chart_limits_around_a_baseline_rate() {
+    // NIST/SEMATECH e-Handbook of Statistical Methods, section 6.3.3.2, "Proportions
+    // Control Charts": 30 wafers of 50 chips, p̄ = 0.2313, three-sigma limits
+    // UCL = 0.4102 and LCL = 0.0524 (printed with 4 decimals). The values are from
+    // memory; they agree with the formula p̄ -/+ 3 sqrt(p̄(1 - p̄)/50) at p̄ = 347/1500 =
+    // 0.23133 (0.41025 and 0.05242), which is what is checked here, and with the
+    // handbook's rounding. The baseline below is constructed (not the handbook's wafer
+    // data): 30 periods of 50 with 347 defectives in all and moving ranges too small to
+    // raise sigma_z above 1, so `compare` with the three-sigma limit calls a period worse
+    // exactly when its rate is above the UCL and better when below the LCL.
+    use dispar_stats::baseline::{BaselineOptions, Limit, Verdict, compare};
+    let mut baseline: Vec<(u64, u64)> = (0..30).map(|j| (50, 11 + (j % 2))).collect();
+    baseline[0].1 += 2; // 15 x 11 + 15 x 12 = 345, plus 2
+    assert_eq!(baseline.iter().map(|b| b.1).sum::<u64>(), 347);
+    let opts = BaselineOptions {
+        limit: Limit::ThreeSigma,
+        ..BaselineOptions::default()
+    };
+    let p_bar = 347.0 / 1500.0;
+    let half = 3.0 * (p_bar * (1.0 - p_bar) / 50.0f64).sqrt();
+    assert!(within(p_bar, 0.2313, 4));
+    assert!(within(p_bar + half, 0.4102, 4), "UCL {}", p_bar + half);
+    assert!(within(p_bar - half, 0.0524, 4), "LCL {}", p_bar - half);
+    for (d, verdict) in [
+        (21, Verdict::Worse), // 0.42 > 0.4102
+        (20, Verdict::Usual), // 0.40
+        (3, Verdict::Usual),  // 0.06
+        (2, Verdict::Better), // 0.04 < 0.0524
+    ] {
+        let c = compare((50, d), &baseline, &opts).expect("valid");
+        assert_eq!(c.sigma_z, Some(1.0));
+        assert!(c.left_out.is_empty());
+        assert_eq!(c.verdict, verdict, "{d} of 50: z = {:?}", c.z);
+        assert!((c.rate.expect("rate") - p_bar).abs() < 1e-15);
+    }
+}

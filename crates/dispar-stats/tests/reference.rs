@@ -11,7 +11,7 @@ use common::{Checker, fixture};
 use dispar_stats::StatsError;
 use dispar_stats::adjust::{Adjustment, adjust};
 use dispar_stats::analysis::{Method, Options, TestUsed, analyze};
-use dispar_stats::anom::{AnomMethod, critical, sidak};
+use dispar_stats::anom::{AnomMethod, critical, critical_for_sizes, sidak};
 use dispar_stats::chisq::{
     critical_value, degrees_of_freedom, likelihood_ratio, pearson, upper_tail, yates,
 };
@@ -200,6 +200,21 @@ struct AnomCase {
     sidak_bound: f64,
     source: String,
     scipy: Option<AnomScipy>,
+}
+
+#[derive(Debug, Deserialize)]
+struct AnomSizesCase {
+    name: String,
+    sizes: Vec<u64>,
+    alpha: f64,
+    h: f64,
+    se_h: f64,
+    source: String,
+    h_formula: f64,
+    h_formula_source: String,
+    exceedance_at_formula: f64,
+    se_exceedance: f64,
+    quoted_h: Option<f64>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -925,6 +940,59 @@ fn anom_critical_values_match_the_computed_box_probability_roots() {
         );
     }
     ck.finish("ANOM critical values");
+}
+
+#[test]
+fn anom_critical_values_for_unequal_sizes_match_the_simulation() {
+    let fx = fixture::<AnomSizesCase>("anom_sizes.json");
+    let mut ck = Checker::new();
+    for c in &fx.cases {
+        let got =
+            critical_for_sizes(c.alpha, &c.sizes).unwrap_or_else(|e| panic!("{}: {e}", c.name));
+        ck.ok(
+            || format!("{}: method {:?}, expected Exact", c.name, got.method),
+            got.method == AnomMethod::Exact,
+        );
+        ck.close(
+            || format!("{} h (simulated +- {:.5}) [{}]", c.name, c.se_h, c.source),
+            got.h,
+            c.h,
+            0.0,
+            tol::ANOM_SIM_SES * c.se_h,
+        );
+        ck.close(
+            || format!("{} h [{}]", c.name, c.h_formula_source),
+            got.h,
+            c.h_formula,
+            0.0,
+            tol::ANOM_FORMULA_ABS,
+        );
+        // The simulation's own check of the formula: the fraction of draws beyond it is
+        // alpha within its binomial error.
+        ck.close(
+            || {
+                format!(
+                    "{}: simulated exceedance at the formula's h [{}]",
+                    c.name, c.source
+                )
+            },
+            c.exceedance_at_formula,
+            c.alpha,
+            0.0,
+            tol::ANOM_SIM_SES * c.se_exceedance,
+        );
+        if let Some(q) = c.quoted_h {
+            // The issue quotes three decimals of its own 16-million-draw simulation.
+            ck.close(
+                || format!("{} h against the value quoted in issue 9", c.name),
+                got.h,
+                q,
+                0.0,
+                tol::ANOM_SIM_SES * c.se_h + 5e-4,
+            );
+        }
+    }
+    ck.finish("ANOM critical values for unequal sizes vs simulation");
 }
 
 // ---------------------------------------------------------------------------------------

@@ -432,9 +432,12 @@ fn fill_from_analysis(
             difference: p.difference,
             difference_ci: ci(p.difference_ci),
             statistic: p.statistic,
-            p_value: p.p,
-            log10_p: p.log10_p,
-            p_adjusted: p.p_adjusted,
+            // An untestable pair (no defective, or no conforming unit, in either group)
+            // has no p and is outside the adjustment; the row keeps its former p = 1
+            // until the report model carries the reason.
+            p_value: p.p.unwrap_or(1.0),
+            log10_p: p.log10_p.unwrap_or(0.0),
+            p_adjusted: p.p_adjusted.unwrap_or(1.0),
             significant: p.reject,
             beyond_min_difference: p.practically_different,
         })

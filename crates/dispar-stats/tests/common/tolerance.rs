@@ -76,6 +76,36 @@ pub const ANOM_H_ABS: f64 = 1e-10;
 /// generator's maxpts) is recorded per case as `h_accuracy`; allow this many of those.
 pub const ANOM_SCIPY_ACCURACIES: f64 = 4.0;
 
+/// ANOM h for unequal sizes against a simulation of the residuals' joint normal
+/// (tools/reference/anom_sizes.py): the simulated quantile is off by its standard error
+/// `se_h` (recorded per case, 3e-4 to 1.5e-3); four of them make a false alarm over the
+/// 13 cases unlikely (two-sided 6e-5 each) while a real error of a few 1e-3 still fails.
+pub const ANOM_SIM_SES: f64 = 4.0;
+
+/// ANOM h for unequal sizes against the same integral solved with scipy's Faddeeva
+/// function and adaptive quadrature (tools/reference/anom_sizes.py `h_formula`): QUADPACK
+/// at 1e-13 and brentq at xtol 1e-13 leave ~1e-11 in h; the equal-size case agrees with
+/// the balanced constant to 1e-13. Absolute.
+pub const ANOM_FORMULA_ABS: f64 = 1e-9;
+
+/// Baseline comparison against the Python reference (tools/reference/baseline_fixtures.py):
+/// the same arithmetic in float64 (sums of integers exact, a handful of divisions, square
+/// roots and logs; the moving ranges add up at most a few dozen terms): relative.
+pub const BASELINE_REL: f64 = 1e-11;
+
+/// z near 0 (a period at its baseline rate) has no relative accuracy to speak of: an
+/// absolute floor of a few hundred EPS.
+pub const BASELINE_Z_ABS: f64 = 1e-12;
+
+/// z on the exact path: Phi^-1 of Fisher's p, which dispar-stats computes in log space
+/// (FISHER_PER_LN_FACTORIAL: ~1e-9 relative in p at the largest N here) and scipy by
+/// summing the hypergeometric pmf; dz = dp / (p z) ~ 1e-9 / z relative. Also the width
+/// of the band around the limit inside which the two verdicts may differ.
+pub const BASELINE_Z_EXACT_REL: f64 = 1e-8;
+
+/// The difference p - pbar cancels when the rates are close: absolute floor.
+pub const BASELINE_DIFFERENCE_ABS: f64 = 1e-15;
+
 /// Floor for the scipy comparison (k = 2 is exact in scipy too).
 pub const ANOM_SCIPY_FLOOR: f64 = 1e-6;
 
