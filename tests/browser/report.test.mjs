@@ -246,6 +246,10 @@ async function main() {
   assert.equal(await page.locator('svg#rates-chart g.group.above[data-name="KES"]').count(), 1);
   assert.equal(await page.locator('svg#funnel-chart g.group.above[data-name="KES"]').count(), 1);
   assert.match(await page.locator('#report-title').innerText(), /2026-W16 · 2026-04-13 to 2026-04-19/);
+  // The page opens with what changed against each site's own usual.
+  assert.match(await page.locator('#verdict h1#changes').innerText(), /^KES worse than its usual: 2\.02% against 0\.\d\d%$/);
+  assert.equal(await page.locator('table#groups tr[data-name="KES"] td[data-baseline="worse"]').count(), 1);
+  assert.ok(await page.locator('svg#reference-chart').isVisible(), 'the reference distribution is drawn');
   await page.screenshot({ path: join(outDir, `report-${DRIFT_WEEK}.png`), fullPage: true });
   await page.locator('#charts').screenshot({ path: join(outDir, `charts-${DRIFT_WEEK}.png`) });
   await page.emulateMedia({ media: 'print' });
@@ -285,6 +289,13 @@ async function main() {
   assert.equal(await page.locator('svg#series-chart .period').count(), 17);
   assert.match(await page.locator('table#series tbody tr[data-period="2026-W16"]').innerText(), /KES ▲/);
   assert.doesNotMatch(await page.locator('table#series tbody tr[data-period="2026-W13"]').innerText(), /KES ▲/);
+  // The headline names the changes, the strip rings them.
+  assert.match(await page.locator('#verdict h1').innerText(), /KES worse than its usual in 2026-W15–W18/);
+  for (const week of ['2026-W15', '2026-W16', '2026-W17', '2026-W18']) {
+    assert.equal(await page.locator(`svg#series-chart [data-period="${week}"] circle.ring.worse[data-name="KES"]`).count(), 1,
+      `KES ringed in ${week}`);
+  }
+  assert.equal(await page.locator('svg#series-chart [data-period="2026-W13"] circle.ring[data-name="KES"]').count(), 0);
   await page.screenshot({ path: join(outDir, 'series.png'), fullPage: true });
 
   // 8. The key never appeared in a URL.

@@ -1,9 +1,10 @@
-//! Ingest benchmark (not a test): the release `dispar` server, a fresh SQLite file,
+//! Ingest benchmark (not a test): the release `dispar` server, a fresh SQLite file (or a
+//! fresh PostgreSQL database with `DISPAR_TEST_POSTGRES`, see the harness docs),
 //! and N records posted as CSV batches over HTTP; prints records per second.
 //!
 //! ```text
 //! cargo run --release -p dispar-system-tests --example ingest_load -- \
-//!     [--records 200000] [--batch 5000] [--clients 1] [--sql-out rows.sql]
+//!     [--records 200000] [--batch 5000] [--clients 1] [--sql-out rows.sql] [--csv-out rows.csv]
 //! ```
 //!
 //! Built with `--release`, the harness builds and runs the release server (or the
@@ -31,6 +32,7 @@ struct Options {
     batch: usize,
     clients: usize,
     sql_out: Option<String>,
+    csv_out: Option<String>,
 }
 
 fn options() -> Options {
@@ -39,6 +41,7 @@ fn options() -> Options {
         batch: 5_000,
         clients: 1,
         sql_out: None,
+        csv_out: None,
     };
     let args: Vec<String> = std::env::args().skip(1).collect();
     let mut i = 0;
@@ -49,6 +52,7 @@ fn options() -> Options {
             "--batch" => o.batch = value.parse().expect("--batch N"),
             "--clients" => o.clients = value.parse().expect("--clients N"),
             "--sql-out" => o.sql_out = Some(value),
+            "--csv-out" => o.csv_out = Some(value),
             other => panic!("unknown argument {other}"),
         }
         i += 2;
@@ -218,6 +222,25 @@ fn sql(recs: &[Rec]) -> String {
 fn main() {
     let o = options();
     let recs = records(o.records);
+    if let Some(path) = &o.csv_out {
+        // Plain rows for a PostgreSQL COPY into one bare table (tools/bench/ingest_pg.sh).
+        let mut out = String::with_capacity(recs.len() * 48);
+        for r in &recs {
+            let _ = writeln!(
+                out,
+                "{},{},{},{},{},{},{},{}",
+                site_code(r.site),
+                line_code(r.line),
+                r.date,
+                r.inspected,
+                r.defective,
+                r.defects[0],
+                r.defects[1],
+                r.defects[2]
+            );
+        }
+        std::fs::write(path, out).unwrap();
+    }
     if let Some(path) = &o.sql_out {
         std::fs::write(path, sql(&recs)).expect("write the SQL file");
         eprintln!("wrote {} rows as SQL to {path}", recs.len());

@@ -6,7 +6,7 @@
 //!
 //! ```text
 //! cargo run --release -p dispar-system-tests --example report_bench -- \
-//!     [--out DIR] [--python /tmp/venv-ref/bin/python] [--misses 30] [--hits 200]
+//!     [--out DIR] [--python /tmp/venv-ref/bin/python] [--misses 30] [--hits 200] [--series 5]
 //! ```
 //!
 //! `--python` names an interpreter with `tools/reference/requirements.txt` installed (the
@@ -48,6 +48,7 @@ struct Options {
     python: Option<String>,
     misses: usize,
     hits: usize,
+    series: usize,
 }
 
 fn options() -> Options {
@@ -56,6 +57,7 @@ fn options() -> Options {
         python: None,
         misses: 30,
         hits: 200,
+        series: 5,
     };
     let args: Vec<String> = std::env::args().skip(1).collect();
     let mut i = 0;
@@ -66,6 +68,7 @@ fn options() -> Options {
             "--python" => o.python = Some(value),
             "--misses" => o.misses = value.parse().expect("--misses N"),
             "--hits" => o.hits = value.parse().expect("--hits N"),
+            "--series" => o.series = value.parse().expect("--series N"),
             other => panic!("unknown argument {other}"),
         }
         i += 2;
@@ -205,24 +208,33 @@ fn main() {
 
     let read = s.key("read", &[]);
     let path = format!("/v1/reports?period={MONTH}&level=site");
+    let path_off = format!("{path}&baseline=off");
     // Misses: before each, a correction of a record outside the month bumps the data
-    // version (new data arrived), so the same request is computed again.
+    // version (new data arrived), so the same request is computed again. With and without
+    // baselines alternate, so both see the same machine state.
     let mut misses = Vec::new();
+    let mut misses_off = Vec::new();
     let mut server = [Vec::new(), Vec::new(), Vec::new()];
     let mut report: Option<Value> = None;
     let mut body_bytes = 0;
     for i in 0..=o.misses {
-        bump(&s, i);
+        bump(&s, 2 * i);
         let t = Instant::now();
         let r = s.request("GET", &path, Some(&read), Body::None);
         let elapsed = t.elapsed();
         assert_eq!(r.status, 200, "{}", r.text);
+        bump(&s, 2 * i + 1);
+        let t = Instant::now();
+        let off = s.request("GET", &path_off, Some(&read), Body::None);
+        let elapsed_off = t.elapsed();
+        assert_eq!(off.status, 200, "{}", off.text);
         if i == 0 {
             // The first request after start also fills SQLite's page cache and the
             // ANOM constant for (alpha, 200 groups): not counted.
             continue;
         }
         misses.push(elapsed);
+        misses_off.push(elapsed_off);
         let timing = parse_timing(r.header("server-timing").unwrap_or(""));
         for (k, name) in ["db", "stats", "json"].iter().enumerate() {
             server[k].push(Duration::from_secs_f64(timing(name) / 1e3));
@@ -268,20 +280,39 @@ fn main() {
     let cli_report: Value = serde_json::from_slice(&cli.stdout).unwrap();
     assert_eq!(cli_report["test"], report["test"]);
 
-    // A year of weekly verdicts (52 periods x 200 sites), computed: after a bump each.
+    // A year of weekly verdicts (52 periods x 200 sites), computed: after a bump each,
+    // with baselines (the default, 8 earlier weeks) and without, alternating.
+    let series_path = "/v1/reports/series?from=2025-W01&to=2025-W52&level=site";
+    let series_off_path = format!("{series_path}&baseline=off");
     let mut series = Vec::new();
-    for i in 0..3 {
-        bump(&s, 1000 + i);
-        let t = Instant::now();
-        let r = s.request(
-            "GET",
-            "/v1/reports/series?from=2025-W01&to=2025-W52&level=site",
-            Some(&read),
-            Body::None,
-        );
-        series.push(t.elapsed());
-        assert_eq!(r.status, 200, "{}", r.text);
-        eprintln!("series: {}", r.header("server-timing").unwrap_or(""));
+    let mut series_off = Vec::new();
+    let mut changes = 0;
+    for i in 0..=o.series {
+        for (j, (p, into)) in [
+            (series_path, &mut series),
+            (&series_off_path, &mut series_off),
+        ]
+        .into_iter()
+        .enumerate()
+        {
+            bump(&s, 1000 + 2 * i + j);
+            let t = Instant::now();
+            let r = s.request("GET", p, Some(&read), Body::None);
+            let elapsed = t.elapsed();
+            assert_eq!(r.status, 200, "{}", r.text);
+            if i > 0 {
+                into.push(elapsed);
+            }
+            if j == 0 {
+                let v: Value = r.json();
+                changes = v["points"].as_array().map_or(0, |ps| {
+                    ps.iter()
+                        .map(|p| p["changes"].as_array().map_or(0, Vec::len))
+                        .sum()
+                });
+            }
+            eprintln!("series {p}: {}", r.header("server-timing").unwrap_or(""));
+        }
     }
 
     let metric = s.request("GET", "/metrics", None, Body::None).text;
@@ -303,7 +334,7 @@ fn main() {
         rows.len(),
         csv.len() / 1_000_000,
         report["groups"].as_array().unwrap().len(),
-        report["pairwise"].as_array().unwrap().len(),
+        report["pairs"].as_array().unwrap().len(),
         report["flagged"].as_array().unwrap().len(),
         body_bytes as f64 / 1e6,
         t["method"],
@@ -330,9 +361,26 @@ fn main() {
         "| `dispar report --format json` (new process) | 1 | | {:.1} | | |",
         cli_time.as_secs_f64() * 1e3
     );
+    let (omn, omd, op95, omx) = stats(misses_off);
+    println!(
+        "| cache miss, `baseline=off` | {} | {omn:.1} | {omd:.1} | {op95:.1} | {omx:.1} |",
+        o.misses
+    );
     let (smn, smd, sp95, smx) = stats(series);
     println!(
-        "| series 2025-W01..2025-W52, level=site (miss) | 3 | {smn:.0} | {smd:.0} | {sp95:.0} | {smx:.0} |"
+        "| series 2025-W01..2025-W52, level=site (miss) | {} | {smn:.0} | {smd:.0} | {sp95:.0} | {smx:.0} |",
+        o.series
+    );
+    let (fmn, fmd, fp95, fmx) = stats(series_off);
+    println!(
+        "| the same series, `baseline=off` (miss) | {} | {fmn:.0} | {fmd:.0} | {fp95:.0} | {fmx:.0} |",
+        o.series
+    );
+    println!();
+    println!(
+        "Baselines cost: single report {:.2}x, series {:.2}x the same request with `baseline=off` (medians); the series called {changes} changes in 52 x {SITES} site-weeks.",
+        md / omd,
+        smd / fmd
     );
     println!();
     let [db, st, js] = server;
@@ -385,11 +433,11 @@ fn main() {
         println!(
             "Agreement: X^2 {ours:.6} (dispar) vs {x2:.6} (scipy), rel. diff {:.1e}; pairs rejected after Holm: {} (dispar) vs {} (statsmodels)",
             (ours - x2).abs() / x2,
-            report["pairwise"]
+            report["pairs"]
                 .as_array()
                 .unwrap()
                 .iter()
-                .filter(|p| p["reject"] == true)
+                .filter(|p| p["significant"] == true)
                 .count(),
             py["pairwise"]["rejected"]
         );

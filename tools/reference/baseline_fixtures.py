@@ -3,21 +3,28 @@
 
 Writes crates/dispar-stats/tests/fixtures/baseline.json: a few hundred generated series
 (a group's baseline periods, oldest first, and its current period) with the baseline
-rate, sigma_z, z, limit, left-out periods and verdict computed here from the published
-formulas, independently of the Rust code:
+rate, dispersion phi, z, limit, left-out periods and verdict computed here from the
+published formulas, independently of the Rust code:
 
 - baseline rate: pooled sum d / sum n; Wilson interval from statsmodels
   proportion_confint(method="wilson");
-- Laney (2002), Quality Engineering 14(4): z_j = (p_j - pbar) / sqrt(pbar (1 - pbar) / n_j),
-  sigma_z = mean |z_j - z_{j-1}| / 1.128, floored at 1;
+- quasi-binomial dispersion, the Pearson moment estimator (McCullagh & Nelder 1989,
+  Generalized Linear Models, 2nd ed., section 4.5, from memory): X2_b = sum_j (d_j -
+  n_j pbar)^2 / (n_j pbar (1 - pbar)) over the m retained periods, phi = max(1, X2_b /
+  (m - 1)); sigma_z = sqrt(phi);
+- z in the prediction form: (p - pbar) / sqrt(phi pbar (1 - pbar) (1/n + 1/N));
 - small counts (n pbar < 5, n (1 - pbar) < 5, or fewer than 10 defective or 10 conforming
   units in the baseline): scipy.stats.fisher_exact two-sided p of [[d, n - d], [D, N - D]],
-  z = sign(p - pbar) norm.isf(p_exact / 2) / sigma_z;
-- robust exclusion: repeatedly judge each retained baseline period against the others by
-  the same rule, leave out the most extreme (the first on a tie) if beyond the limit,
-  never below min_periods;
-- limit: Sidak two-sided norm.isf(a / 2), a = 1 - (1 - alpha_f)^(1/k), or 3;
-- ratio: Katz et al. (1978) log interval widened by sigma_z (0.5 added to every cell
+  z = sign(p - pbar) norm.isf(p_exact / 2) / sqrt(phi);
+- limit: Sidak per call a = 1 - (1 - alpha_f)^(1/k), two-sided Student's t with m - 1 df,
+  scipy.stats.t.isf(a / 2, m - 1), for a baseline of m periods; or 3;
+- robust exclusion, a forward search from a clean subset (Hadi & Simonoff 1993; Atkinson
+  & Riani 2000): sort the periods by rate (ties by index); start from the run of
+  min_periods consecutive ones with the smallest Pearson X2 around its own pooled rate
+  (the first run on a tie); repeatedly add the remaining period with
+  the smallest |z| against the subset (same rule, t limit on |subset| - 1 df) while it is
+  within the limit; at the first beyond it, it and all not yet added are left out;
+- ratio: Katz et al. (1978) log interval widened by sqrt(phi) (0.5 added to every cell
   when d or D is 0); difference: statsmodels confint_proportions_2indep(method="newcomb").
 
 Deterministic (one numpy Generator, SEED). Run from the repository root with the pinned
@@ -42,44 +49,56 @@ from statsmodels.stats.proportion import confint_proportions_2indep, proportion_
 SEED = 20260610
 ROOT = Path(__file__).resolve().parents[2]
 OUT = ROOT / "crates" / "dispar-stats" / "tests" / "fixtures" / "baseline.json"
-D2 = 1.128
 
 
-def sidak_limit(family_alpha: float, calls: int) -> float:
-    a = -math.expm1(math.log1p(-family_alpha) / calls)
-    return float(stats.norm.isf(a / 2))
+def limit_for(limit_opt, periods: int) -> float:
+    """The limit for a baseline of `periods` periods (t on periods - 1 df, at least 1)."""
+    if limit_opt["kind"] == "three_sigma":
+        return 3.0
+    a = -math.expm1(math.log1p(-limit_opt["family_alpha"]) / limit_opt["calls"])
+    return float(stats.t.isf(a / 2, max(1, periods - 1)))
 
 
-def sigma_z(base, pbar):
+def x2_around(base, pbar):
     var = pbar * (1 - pbar)
-    if len(base) < 2 or var <= 0:
+    if var <= 0:
+        return 0.0
+    return sum((d - n * pbar) ** 2 / (n * var) for n, d in base)
+
+
+def pearson_x2(base):
+    return x2_around(base, sum(b[1] for b in base) / sum(b[0] for b in base))
+
+
+def dispersion(base, pbar):
+    if len(base) < 2:
         return 1.0
-    z = [(d / n - pbar) / math.sqrt(var / n) for n, d in base]
-    mr = sum(abs(z[i] - z[i - 1]) for i in range(1, len(z))) / (len(z) - 1)
-    return max(1.0, mr / D2)
+    return max(1.0, x2_around(base, pbar) / (len(base) - 1))
 
 
 def score(n, d, base):
     big_n = sum(b[0] for b in base)
     big_d = sum(b[1] for b in base)
     pbar = big_d / big_n
-    s = sigma_z(base, pbar)
+    phi = dispersion(base, pbar)
+    s = math.sqrt(phi)
     p = d / n
     exact = n * pbar < 5 or n * (1 - pbar) < 5 or big_d < 10 or big_n - big_d < 10
     if exact:
         pf = float(stats.fisher_exact([[d, n - d], [big_d, big_n - big_d]]).pvalue)
         sign = 1.0 if p > pbar else (-1.0 if p < pbar else 0.0)
         z = 0.0 if pf >= 1 else sign * float(stats.norm.isf(pf / 2)) / s
-        return dict(pbar=pbar, sigma_z=s, z=z, method="exact", p_exact=pf, N=big_n, D=big_d)
-    z = (p - pbar) / (s * math.sqrt(pbar * (1 - pbar) / n))
-    return dict(pbar=pbar, sigma_z=s, z=z, method="normal", N=big_n, D=big_d)
+        return dict(pbar=pbar, phi=phi, sigma_z=s, z=z, method="exact", p_exact=pf, N=big_n,
+                    D=big_d)
+    z = (p - pbar) / math.sqrt(phi * pbar * (1 - pbar) * (1 / n + 1 / big_n))
+    return dict(pbar=pbar, phi=phi, sigma_z=s, z=z, method="normal", N=big_n, D=big_d)
 
 
-def compare(period, baseline, limit, min_periods, confidence):
+def compare(period, baseline, limit_opt, min_periods, confidence):
     n, d = period
     used = [j for j, b in enumerate(baseline) if b[0] > 0]
     with_units = len(used)
-    out = dict(limit=limit, with_units=with_units)
+    out = dict(limit=limit_for(limit_opt, max(2, len(used))), with_units=with_units)
 
     def base_rate(idx):
         big_n = sum(baseline[j][0] for j in idx)
@@ -99,17 +118,28 @@ def compare(period, baseline, limit, min_periods, confidence):
         out.update(verdict="unknown", reason=reason, rate=rate, rate_ci=ci, used=used, left_out=[])
         return out
     left_out = []
-    while len(used) > min_periods:
-        worst = None
-        for pos, j in enumerate(used):
-            others = [baseline[q] for q in used if q != j]
-            z = abs(score(baseline[j][0], baseline[j][1], others)["z"])
-            if worst is None or z > worst[1]:
-                worst = (pos, z)
-        if worst[1] > limit:
-            left_out.append(used.pop(worst[0]))
-        else:
-            break
+    if len(used) > min_periods:
+        by_rate = sorted(used, key=lambda j: (baseline[j][1] / baseline[j][0], j))
+        best = None
+        for start in range(len(by_rate) - min_periods + 1):
+            run = [baseline[j] for j in by_rate[start:start + min_periods]]
+            x2 = pearson_x2(run)
+            if best is None or x2 < best[1]:
+                best = (start, x2)
+        start = best[0]
+        subset = by_rate[start:start + min_periods]
+        rest = sorted(by_rate[:start] + by_rate[start + min_periods:])
+        while rest:
+            base = [baseline[j] for j in subset]
+            zs = [(abs(score(baseline[j][0], baseline[j][1], base)["z"]), pos)
+                  for pos, j in enumerate(rest)]
+            z, pos = min(zs)
+            if z <= limit_for(limit_opt, len(subset)):
+                subset.append(rest.pop(pos))
+            else:
+                break
+        used, left_out = sorted(subset), rest
+    limit = limit_for(limit_opt, len(used))
     s = score(n, d, [baseline[j] for j in used])
     z = s["z"]
     if z > limit:
@@ -132,6 +162,7 @@ def compare(period, baseline, limit, min_periods, confidence):
         d, n, big_d, big_n, method="newcomb", compare="diff", alpha=1 - confidence
     )
     out.update(
+        limit=limit,
         verdict=verdict,
         reason=reason,
         method=s["method"],
@@ -145,6 +176,7 @@ def compare(period, baseline, limit, min_periods, confidence):
         difference_ci=[float(lo), float(hi)],
         z=z,
         sigma_z=s["sigma_z"],
+        dispersion=s["phi"],
         used=used,
         left_out=left_out,
         baseline_inspected=big_n,
@@ -196,6 +228,13 @@ def series(rng, kind):
             sizes[int(j)] = 0
     elif kind == "no_units":
         sizes[b] = 0
+    elif kind == "excursion_run":
+        # Several consecutive excursions at the end of the baseline (a drift still under
+        # way), which mask each other when each is judged against all the others.
+        run = int(rng.integers(2, b - 3))
+        for j in range(b - run, b):
+            rates[j] = p0 * float(rng.uniform(2, 4))
+        rates[b] = p0 * float(rng.choice([1.0, 3.0]))
     baseline = [(n, draw(rng, n, r, noise) if n > 0 else 0) for n, r in zip(sizes[:b], rates[:b])]
     n = sizes[b]
     period = (n, draw(rng, n, rates[b], noise) if n > 0 else 0)
@@ -203,9 +242,10 @@ def series(rng, kind):
 
 
 KINDS = ["stable", "step_up", "step_down", "drift", "spike", "excursions", "small",
-         "zero_baseline", "gaps", "no_units"]
+         "zero_baseline", "gaps", "no_units", "excursion_run"]
 COUNTS = {"stable": 50, "step_up": 40, "step_down": 40, "drift": 30, "spike": 40,
-          "excursions": 40, "small": 50, "zero_baseline": 15, "gaps": 25, "no_units": 5}
+          "excursions": 40, "small": 50, "zero_baseline": 15, "gaps": 25, "no_units": 5,
+          "excursion_run": 25}
 
 
 def main() -> None:
@@ -217,14 +257,12 @@ def main() -> None:
             r = float(rng.uniform())
             if r < 0.15:
                 limit_opt = {"kind": "three_sigma"}
-                limit = 3.0
             else:
                 calls = int(rng.choice([1, 6, 20, 600]))
                 limit_opt = {"kind": "sidak", "family_alpha": 0.01, "calls": calls}
-                limit = sidak_limit(0.01, calls)
             min_periods = int(rng.choice([4, 4, 4, 3, 6]))
             confidence = float(rng.choice([0.95, 0.95, 0.9]))
-            expected = compare(period, baseline, limit, min_periods, confidence)
+            expected = compare(period, baseline, limit_opt, min_periods, confidence)
             cases.append(
                 {
                     "name": f"{kind} #{i}: {what}",
@@ -235,7 +273,7 @@ def main() -> None:
                     "confidence": confidence,
                     "expected": expected,
                     "source": f"published formulas in numpy {np.__version__}, scipy "
-                    f"{scipy.__version__} fisher_exact/norm.isf, statsmodels "
+                    f"{scipy.__version__} fisher_exact/norm.isf/t.isf, statsmodels "
                     f"{statsmodels.__version__} wilson/newcomb",
                 }
             )

@@ -40,6 +40,9 @@ pub mod reason {
     pub const NOT_A_NUMBER: &str = "not-a-number";
     /// A number with a fraction where a whole number is required.
     pub const NOT_AN_INTEGER: &str = "not-an-integer";
+    /// More defects of one category than [`crate::record::MAX_DEFECTS_PER_UNIT`] per
+    /// unit inspected.
+    pub const TOO_MANY_DEFECTS: &str = "too-many-defects";
 }
 
 /// One problem with one field of an input.

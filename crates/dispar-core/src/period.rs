@@ -36,6 +36,11 @@ pub const MAX_RANGE_DAYS: u32 = 3653;
 /// Most periods in one series.
 pub const MAX_SERIES_LEN: usize = MAX_RANGE_DAYS as usize;
 
+/// A day's baseline looks for the group's days with production within this many times
+/// the baseline length before it (a week per baseline day: a line producing at least
+/// once a week has its full baseline).
+pub const DAY_BASELINE_SPAN: usize = 7;
+
 /// Why a period string or range is refused.
 #[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
 pub enum PeriodError {
@@ -401,6 +406,45 @@ impl Period {
         }
     }
 
+    /// The previous period of the same kind (for a range: the range of the same length
+    /// ending the day before). `None` before year 2000.
+    pub fn previous(&self) -> Option<Period> {
+        match *self {
+            Period::Range(r) => {
+                let last = r.first.previous_day()?;
+                let first = day_offset(last, 1 - i32::try_from(r.days()).ok()?)?;
+                check_year(first.year()).ok()?;
+                DateRange::new(first, last).ok().map(Period::Range)
+            }
+            p => Period::containing(p.granularity(), p.first_day().previous_day()?).ok(),
+        }
+    }
+
+    /// The earlier periods a baseline of `n` periods is drawn from, oldest first: the
+    /// `n` previous periods of the same kind (ISO weeks, months, ...; for a date range
+    /// the `n` ranges of the same length before it). For a day, the baseline is each
+    /// group's `n` latest earlier days *with production*, so this gives the candidate
+    /// days: the [`DAY_BASELINE_SPAN`] x `n` days before it. Fewer near year 2000.
+    pub fn earlier(&self, n: usize) -> Vec<Period> {
+        let count = match self {
+            Period::Day(_) => n.saturating_mul(DAY_BASELINE_SPAN),
+            _ => n,
+        };
+        let mut out = Vec::with_capacity(count);
+        let mut cur = *self;
+        while out.len() < count {
+            match cur.previous() {
+                Some(p) => {
+                    out.push(p);
+                    cur = p;
+                }
+                None => break,
+            }
+        }
+        out.reverse();
+        out
+    }
+
     /// Every period from `from` to `to`, both included, stepping by their common kind:
     /// `2026-W01` to `2026-W26` gives 26 weeks. Refused when the kinds differ, for
     /// date ranges, when `to` precedes `from`, or when the span exceeds ten years.
@@ -676,5 +720,37 @@ mod tests {
         assert_eq!(back, p("2026-W11"));
         let r = serde_json::to_string(&p("2026-W11").dates()).unwrap();
         assert_eq!(r, r#"{"first":"2026-03-09","last":"2026-03-15"}"#);
+    }
+
+    #[test]
+    fn baselines_are_the_earlier_periods_of_the_same_kind() {
+        let labels = |v: Vec<Period>| v.iter().map(ToString::to_string).collect::<Vec<_>>();
+        // ISO weeks across a week-year boundary (2026 has 53 weeks).
+        assert_eq!(
+            labels(p("2027-W02").earlier(3)),
+            ["2026-W52", "2026-W53", "2027-W01"]
+        );
+        assert_eq!(
+            labels(p("2026-W16").earlier(8)).first().map(String::as_str),
+            Some("2026-W08")
+        );
+        assert_eq!(
+            labels(p("2026-03").earlier(3)),
+            ["2025-12", "2026-01", "2026-02"]
+        );
+        assert_eq!(labels(p("2026-Q1").earlier(2)), ["2025-Q3", "2025-Q4"]);
+        // A date range: earlier ranges of the same length, back to back.
+        assert_eq!(
+            labels(p("2026-03-01..2026-03-10").earlier(2)),
+            ["2026-02-09..2026-02-18", "2026-02-19..2026-02-28"]
+        );
+        // A day: the candidate days, DAY_BASELINE_SPAN per baseline day.
+        let days = p("2026-03-14").earlier(4);
+        assert_eq!(days.len(), 4 * DAY_BASELINE_SPAN);
+        assert_eq!(days.last().unwrap().to_string(), "2026-03-13");
+        assert_eq!(days.first().unwrap().to_string(), "2026-02-14");
+        // Nothing before year 2000.
+        assert_eq!(labels(p("2000-02").earlier(3)), ["2000-01"]);
+        assert_eq!(p("2000-01-01..2000-01-05").previous(), None);
     }
 }

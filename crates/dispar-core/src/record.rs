@@ -20,6 +20,12 @@ use crate::error::{Collector, FieldError, ValidationError, pointer_segment, reas
 
 /// Largest accepted count of units or defects in one record (10^12).
 pub const MAX_COUNT: u64 = 1_000_000_000_000;
+
+/// Most defects of one category per unit inspected. A unit may carry several defects
+/// of one kind (marks, voids), so a category may exceed `defective`, but not without
+/// bound: 10^12 defects on a 10-unit record is a unit or typing error, refused as
+/// `too-many-defects` rather than stored.
+pub const MAX_DEFECTS_PER_UNIT: u64 = 100;
 /// Most defect categories accepted in one record.
 pub const MAX_CATEGORIES: usize = 64;
 /// Largest accepted revision number (`i64::MAX`, so it fits a SQL BIGINT).
@@ -36,8 +42,11 @@ pub enum RawNumber {
     UInt(u64),
     /// A JSON number with a fraction or exponent.
     Float(f64),
-    /// Text, for example a CSV cell or a JSON string.
+    /// Text: a CSV cell (digits, spaces around them allowed).
     Text(String),
+    /// A JSON string where a number belongs: read only when it is digits and nothing
+    /// else (site systems that quote every value send `"8216"`).
+    Quoted(String),
 }
 
 impl From<u64> for RawNumber {
@@ -64,7 +73,7 @@ impl Serialize for RawNumber {
             RawNumber::Int(n) => s.serialize_i64(*n),
             RawNumber::UInt(n) => s.serialize_u64(*n),
             RawNumber::Float(x) => s.serialize_f64(*x),
-            RawNumber::Text(t) => s.serialize_str(t),
+            RawNumber::Text(t) | RawNumber::Quoted(t) => s.serialize_str(t),
         }
     }
 }
@@ -87,7 +96,7 @@ impl<'de> Deserialize<'de> for RawNumber {
                 Ok(RawNumber::Float(v))
             }
             fn visit_str<E: de::Error>(self, v: &str) -> Result<RawNumber, E> {
-                Ok(RawNumber::Text(v.to_owned()))
+                Ok(RawNumber::Quoted(v.to_owned()))
             }
         }
         d.deserialize_any(V)
@@ -103,6 +112,14 @@ impl RawNumber {
             RawNumber::UInt(n) => Ok(*n),
             RawNumber::Float(x) => float_count(*x, field),
             RawNumber::Text(t) => text_count(t, field),
+            RawNumber::Quoted(t) if !t.is_empty() && t.bytes().all(|b| b.is_ascii_digit()) => {
+                text_count(t, field)
+            }
+            RawNumber::Quoted(t) => Err(FieldError::new(
+                field,
+                reason::NOT_A_NUMBER,
+                format!("{t:?} is not a count: a quoted count is digits only, like \"8216\""),
+            )),
         };
         let n = n?;
         if n > max {
@@ -168,14 +185,22 @@ fn text_count(t: &str, field: &str) -> Result<u64, FieldError> {
             .parse::<u64>()
             .map_err(|_| FieldError::new(field, reason::TOO_LARGE, format!("{s} is too large")));
     }
-    match s.parse::<f64>() {
-        Ok(x) if x.is_finite() => float_count(x, field),
-        _ => Err(FieldError::new(
+    // A cell is a whole number in digits: "1e2" or "100.0" is not how a count is
+    // written, and reading it as 100 would hide a column mix-up.
+    let looks_numeric = s.parse::<f64>().is_ok_and(f64::is_finite);
+    Err(if looks_numeric {
+        FieldError::new(
+            field,
+            reason::NOT_AN_INTEGER,
+            format!("{s:?} is not a whole number written in digits"),
+        )
+    } else {
+        FieldError::new(
             field,
             reason::NOT_A_NUMBER,
             format!("{s:?} is not a number"),
-        )),
-    }
+        )
+    })
 }
 
 /// The natural key of a count record: site, line, optional product, production date.
@@ -313,11 +338,23 @@ fn check_counts(
         ));
     }
     for (cat, &n) in defects {
+        let field = format!("defects/{}", pointer_segment(cat.as_str()));
         if n > MAX_COUNT {
             c.push(FieldError::new(
-                format!("defects/{}", pointer_segment(cat.as_str())),
+                field,
                 reason::TOO_LARGE,
                 format!("{n} is above the maximum of {MAX_COUNT}"),
+            ));
+        } else if let Some(i) = inspected
+            && n > i.saturating_mul(MAX_DEFECTS_PER_UNIT)
+        {
+            c.push(FieldError::new(
+                field,
+                reason::TOO_MANY_DEFECTS,
+                format!(
+                    "{n} defects of one category on {i} inspected units; at most \
+                     {MAX_DEFECTS_PER_UNIT} per unit are accepted"
+                ),
             ));
         }
     }
@@ -469,6 +506,41 @@ fn check_body(c: &mut Collector, body: &CountsInput) -> (Option<Counts>, Option<
     (counts, revision)
 }
 
+/// `defects` as a map whose keys are unique: JSON allows a key twice and serde keeps the
+/// last, which would store one count of a category silently in place of another.
+fn unique_categories<'de, D: Deserializer<'de>>(
+    d: D,
+) -> Result<Option<BTreeMap<String, RawNumber>>, D::Error> {
+    struct V;
+    impl<'de> Visitor<'de> for V {
+        type Value = Option<BTreeMap<String, RawNumber>>;
+        fn expecting(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+            f.write_str("an object of defect counts by category")
+        }
+        fn visit_none<E: de::Error>(self) -> Result<Self::Value, E> {
+            Ok(None)
+        }
+        fn visit_unit<E: de::Error>(self) -> Result<Self::Value, E> {
+            Ok(None)
+        }
+        fn visit_some<D2: Deserializer<'de>>(self, d: D2) -> Result<Self::Value, D2::Error> {
+            d.deserialize_map(self)
+        }
+        fn visit_map<M: de::MapAccess<'de>>(self, mut m: M) -> Result<Self::Value, M::Error> {
+            let mut out = BTreeMap::new();
+            while let Some(key) = m.next_key::<String>()? {
+                if out.contains_key(&key) {
+                    return Err(de::Error::custom(format!("duplicate category `{key}`")));
+                }
+                let value: RawNumber = m.next_value()?;
+                out.insert(key, value);
+            }
+            Ok(Some(out))
+        }
+    }
+    d.deserialize_option(V)
+}
+
 /// The counts part of a record as received (the body of the `PUT` on a record's key).
 #[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -479,8 +551,8 @@ pub struct CountsInput {
     /// Units defective (required, `<= inspected`).
     #[serde(default)]
     pub defective: Option<RawNumber>,
-    /// Defect counts by category code (optional).
-    #[serde(default)]
+    /// Defect counts by category code (optional; a category named twice is refused).
+    #[serde(default, deserialize_with = "unique_categories")]
     pub defects: Option<BTreeMap<String, RawNumber>>,
     /// Revision number from the plant system (optional).
     #[serde(default)]
@@ -509,8 +581,8 @@ pub struct CountRecordInput {
     /// Units defective (required).
     #[serde(default)]
     pub defective: Option<RawNumber>,
-    /// Defect counts by category code (optional).
-    #[serde(default)]
+    /// Defect counts by category code (optional; a category named twice is refused).
+    #[serde(default, deserialize_with = "unique_categories")]
     pub defects: Option<BTreeMap<String, RawNumber>>,
     /// Revision number from the plant system (optional).
     #[serde(default)]
@@ -678,12 +750,29 @@ mod tests {
     }
 
     #[test]
-    fn numbers_may_arrive_as_text_or_integral_floats() {
+    fn cells_are_digits_and_json_counts_are_whole_numbers() {
         let n = |s: &str| RawNumber::from(s).to_count("n", MAX_COUNT);
         assert_eq!(n(" 42 "), Ok(42));
         assert_eq!(n("-0"), Ok(0));
-        assert_eq!(n("1e3"), Ok(1000));
+        // The contract: a CSV cell is digits (spaces around a cell are ignored, as for
+        // every cell); a JSON count is a JSON number whose value is whole (JSON Schema's
+        // `integer`, so 12.0 and 1.2e1 are 12), or a JSON string of digits only.
+        assert_eq!(n("1e3").unwrap_err().reason, "not-an-integer");
+        assert_eq!(n("100.0").unwrap_err().reason, "not-an-integer");
         assert_eq!(RawNumber::Float(12.0).to_count("n", MAX_COUNT), Ok(12));
+        let json = |t: &str| {
+            serde_json::from_str::<RawNumber>(t)
+                .unwrap()
+                .to_count("n", MAX_COUNT)
+        };
+        assert_eq!(json("1e2"), Ok(100));
+        assert_eq!(json("100.0"), Ok(100));
+        assert_eq!(json("100.5").unwrap_err().reason, "not-an-integer");
+        assert_eq!(json(r#""8216""#), Ok(8216));
+        assert_eq!(json(r#""-5""#).unwrap_err().reason, "not-a-number");
+        assert_eq!(json(r#""""#).unwrap_err().reason, "not-a-number");
+        assert_eq!(json(r#"" 100 ""#).unwrap_err().reason, "not-a-number");
+        assert_eq!(json(r#""1e2""#).unwrap_err().reason, "not-a-number");
         assert_eq!(n("-3").unwrap_err().reason, "negative");
         assert_eq!(n("").unwrap_err().reason, "required");
         assert_eq!(n("12abc").unwrap_err().reason, "not-a-number");

@@ -60,6 +60,44 @@ pub fn upper_tail(x: f64, df: u64) -> Result<Tail, StatsError> {
     Ok(upper_tail_unchecked(x, df))
 }
 
+/// Density of the chi-square distribution with `df` degrees of freedom at `x` (0 for
+/// `x < 0`; at `x = 0` infinite for 1 df, 1/2 for 2 df, 0 beyond). For df >= 3 it is
+/// (1/2) times Loader's Poisson-type term with a = df/2 - 1 and y = x/2, which avoids
+/// the cancellation of the direct formula at large df. Errors when `df` is 0 or `x` is
+/// not finite.
+///
+/// ```
+/// use dispar_stats::chisq::density;
+/// // scipy 1.17.1: chi2.pdf(9.487729, 4) = 0.020647529951540528
+/// assert!((density(9.487729, 4)? - 0.020647529951540528).abs() < 1e-15);
+/// # Ok::<(), dispar_stats::StatsError>(())
+/// ```
+pub fn density(x: f64, df: u64) -> Result<f64, StatsError> {
+    if df == 0 {
+        return Err(StatsError::InvalidParameter {
+            name: "df",
+            value: 0.0,
+            requirement: "at least 1",
+        });
+    }
+    if !x.is_finite() {
+        return Err(StatsError::InvalidParameter {
+            name: "x",
+            value: x,
+            requirement: "finite",
+        });
+    }
+    Ok(match df {
+        _ if x < 0.0 => 0.0,
+        1 if x == 0.0 => f64::INFINITY,
+        // (2 pi x)^(-1/2) e^(-x/2)
+        1 => (-0.5 * x).exp() / (2.0 * std::f64::consts::PI * x).sqrt(),
+        2 => 0.5 * (-0.5 * x).exp(),
+        _ if x == 0.0 => 0.0,
+        _ => 0.5 * ln_dpois(0.5 * df as f64 - 1.0, 0.5 * x).exp(),
+    })
+}
+
 /// [`upper_tail`] for a finite `x` and `df >= 1` (callers inside the crate guarantee both).
 pub(crate) fn upper_tail_unchecked(x: f64, df: u64) -> Tail {
     if x <= 0.0 {
@@ -333,6 +371,32 @@ pub fn degrees_of_freedom(table: &Table) -> u64 {
 mod tests {
     use super::*;
     use crate::testutil::assert_rel;
+
+    #[test]
+    fn the_density_matches_scipy() {
+        // scipy 1.17.1, scipy.stats.chi2.pdf(x, df).
+        let cases: &[(u64, f64, f64)] = &[
+            (1, 0.5, 0.43939128946772243),
+            (1, 3.841459, 0.029819457736093617),
+            (2, 1.0, 0.30326532985631666),
+            (4, 9.487729, 0.020647529951540528),
+            (5, 2.0, 0.1383691658068649),
+            (10, 18.307, 0.015480784533096712),
+            (30, 25.0, 0.04859827011828983),
+            (100, 124.342, 0.00631171956071736),
+            (599, 650.0, 0.0037999860669678366),
+            (4, 200.0, 1.8600379880104054e-42),
+        ];
+        for &(df, x, want) in cases {
+            let got = density(x, df).expect("valid");
+            // Loader's terms are good to a few ulps; 1e-13 leaves room for the exp.
+            assert_rel(got, want, 1e-13, &format!("chi2.pdf({x}, {df})"));
+        }
+        assert_eq!(density(-1.0, 3).expect("valid"), 0.0);
+        assert_eq!(density(0.0, 2).expect("valid"), 0.5);
+        assert_eq!(density(0.0, 3).expect("valid"), 0.0);
+        assert!(density(1.0, 0).is_err() && density(f64::NAN, 3).is_err());
+    }
 
     #[test]
     fn critical_values_match_the_nist_handbook_table() {

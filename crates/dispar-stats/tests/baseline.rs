@@ -1,6 +1,7 @@
 //! dispar_stats::baseline against tests/fixtures/baseline.json, written by
-//! tools/reference/baseline_fixtures.py from the published formulas (Laney 2002, Fisher's
-//! exact test, Šidák, Katz et al. 1978, Wilson, Newcombe) with pinned numpy, scipy and
+//! tools/reference/baseline_fixtures.py from the published formulas (the quasi-binomial
+//! Pearson dispersion of McCullagh & Nelder 1989, the prediction z, Fisher's exact test,
+//! Šidák with Student's t, Katz et al. 1978, Wilson, Newcombe) with pinned numpy, scipy and
 //! statsmodels: a few hundred generated series (stable, steps up and down, drifts,
 //! one-period spikes, small volumes, baselines with earlier excursions, gaps, zero
 //! baselines). Every case is compared field by field; tolerances are in
@@ -37,6 +38,7 @@ struct Expected {
     z: Option<f64>,
     limit: f64,
     sigma_z: Option<f64>,
+    dispersion: Option<f64>,
     used: Vec<usize>,
     left_out: Vec<usize>,
     with_units: usize,
@@ -182,6 +184,14 @@ fn baseline_comparisons_match_the_published_formulas() {
             &at("sigma_z"),
             got.sigma_z,
             e.sigma_z,
+            tol::BASELINE_REL,
+            0.0,
+        );
+        option(
+            &mut ck,
+            &at("dispersion"),
+            got.dispersion,
+            e.dispersion,
             tol::BASELINE_REL,
             0.0,
         );

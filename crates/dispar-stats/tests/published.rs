@@ -221,9 +221,11 @@ fn nist_proportion_control_chart_limits_around_a_baseline_rate() {
     // memory; they agree with the formula p̄ -/+ 3 sqrt(p̄(1 - p̄)/50) at p̄ = 347/1500 =
     // 0.23133 (0.41025 and 0.05242), which is what is checked here, and with the
     // handbook's rounding. The baseline below is constructed (not the handbook's wafer
-    // data): 30 periods of 50 with 347 defectives in all and moving ranges too small to
-    // raise sigma_z above 1, so `compare` with the three-sigma limit calls a period worse
-    // exactly when its rate is above the UCL and better when below the LCL.
+    // data): 30 periods of 50 with 347 defectives in all and too little variation to raise
+    // phi above 1. `compare` adds p̄'s own error (the prediction form, 1/50 + 1/1500), which
+    // widens the chart's limits by sqrt(1 + 50/1500) = 1.0165, to 0.4131 and 0.0495: the
+    // four periods below sit outside both versions or inside both, so the three-sigma
+    // verdicts are the chart's.
     use dispar_stats::baseline::{BaselineOptions, Limit, Verdict, compare};
     let mut baseline: Vec<(u64, u64)> = (0..30).map(|j| (50, 11 + (j % 2))).collect();
     baseline[0].1 += 2; // 15 x 11 + 15 x 12 = 345, plus 2
@@ -244,7 +246,7 @@ fn nist_proportion_control_chart_limits_around_a_baseline_rate() {
         (2, Verdict::Better), // 0.04 < 0.0524
     ] {
         let c = compare((50, d), &baseline, &opts).expect("valid");
-        assert_eq!(c.sigma_z, Some(1.0));
+        assert_eq!(c.dispersion, Some(1.0));
         assert!(c.left_out.is_empty());
         assert_eq!(c.verdict, verdict, "{d} of 50: z = {:?}", c.z);
         assert!((c.rate.expect("rate") - p_bar).abs() < 1e-15);

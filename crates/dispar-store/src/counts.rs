@@ -4,6 +4,7 @@ use dispar_core::code::{LineCode, ProductCode, SiteCode};
 use dispar_core::record::CountRecord;
 use time::{Date, OffsetDateTime};
 
+use crate::error::StoreError;
 use crate::keys::KeyId;
 
 /// What a write did to one record.
@@ -141,3 +142,24 @@ pub struct CountPage {
 
 /// Largest page `list_counts` returns; larger limits are clamped to it.
 pub const MAX_PAGE: u32 = 1000;
+
+/// A stored batch answer from its `(body_sha256, status, response_body)` row: `None`
+/// if the key is unused, the answer if it was used with this body hash,
+/// [`StoreError::IdempotencyMismatch`] otherwise.
+pub(crate) fn stored_answer(
+    row: Option<(Vec<u8>, i64, Vec<u8>)>,
+    body_sha256: &[u8; 32],
+) -> Result<Option<StoredAnswer>, StoreError> {
+    match row {
+        None => Ok(None),
+        Some((hash, status, body)) if hash.as_slice() == body_sha256.as_slice() => {
+            Ok(Some(StoredAnswer {
+                status: u16::try_from(status).map_err(|_| {
+                    StoreError::internal(format!("stored status {status} is out of range"))
+                })?,
+                body,
+            }))
+        }
+        Some(_) => Err(StoreError::IdempotencyMismatch),
+    }
+}

@@ -44,7 +44,9 @@
 //! survive a restart and every instance on one database knows them. The store only
 //! sees the SHA-256 of a session id; the id is in the person's cookie.
 
+mod aggregate;
 mod counts;
+mod decode;
 mod error;
 mod keys;
 mod options;
@@ -52,6 +54,7 @@ mod plan;
 mod reports;
 mod sessions;
 mod sites;
+mod sql;
 mod sqlite;
 mod store;
 mod timestamp;
@@ -65,7 +68,9 @@ pub use crate::counts::{
 pub use crate::error::{RecordError, RecordProblem, StoreError};
 pub use crate::keys::{ApiKey, KeyId, KeyRole, UnknownRole};
 pub use crate::options::{Backend, OpenOptions, backend_of};
-pub use crate::reports::{Aggregate, AggregateQuery, GroupTotals, Level};
+pub use crate::reports::{
+    Aggregate, AggregateQuery, BucketedAggregate, GroupTotals, Level, VersionScope,
+};
 pub use crate::sessions::{NewPageSession, PageSession};
 pub use crate::sites::{SiteWithLines, Upserted};
 pub use crate::sqlite::SqliteStore;

@@ -219,6 +219,34 @@ impl Current {
     }
 }
 
+/// Fills the stored current values of a chunk of keys, from `(i, revision_id,
+/// inspected, defective, plant_revision)` rows and `(i, category, count)` rows, where
+/// `i` is the key's place in [`Batch::key_rows`].
+pub(crate) fn fill_current(
+    current: &mut [Option<Current>],
+    found: Vec<(i64, i64, i64, i64, Option<i64>)>,
+    defects: Vec<(i64, String, i64)>,
+) -> Result<(), StoreError> {
+    for (i, revision_id, inspected, defective, plant_revision) in found {
+        let slot = usize::try_from(i)
+            .ok()
+            .and_then(|i| current.get_mut(i))
+            .ok_or_else(|| StoreError::internal("lookup returned an unknown key index"))?;
+        *slot = Some(Current::new(
+            revision_id,
+            inspected,
+            defective,
+            plant_revision,
+        )?);
+    }
+    for (i, category, count) in defects {
+        if let Some(Some(c)) = usize::try_from(i).ok().and_then(|i| current.get_mut(i)) {
+            c.add_defect(category, count);
+        }
+    }
+    Ok(())
+}
+
 /// A revision to insert: the values of `row` under a new id.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub(crate) struct NewRevision<'a> {
@@ -279,6 +307,21 @@ pub(crate) struct Plan<'a> {
     /// Changes of the monthly defect counts, sorted by group and category; zero
     /// changes are left out.
     pub(crate) month_defects: Vec<MonthDefectChange<'a>>,
+}
+
+impl Plan<'_> {
+    /// The (site, date) pairs whose records the plan creates or corrects, each once,
+    /// sorted: what the scoped data versions are raised for.
+    pub(crate) fn touched_days(&self) -> Vec<(&str, time::Date)> {
+        let mut days: Vec<(&str, time::Date)> = self
+            .revisions
+            .iter()
+            .map(|r| (r.row.key.site, r.row.key.date))
+            .collect();
+        days.sort_unstable();
+        days.dedup();
+        days
+    }
 }
 
 /// The value of a key while the batch is being planned.

@@ -62,3 +62,26 @@ pub struct Aggregate {
     /// report can list them as excluded.
     pub groups: Vec<GroupTotals>,
 }
+
+/// The result of an aggregation bucketed by date ranges
+/// ([`crate::Store::aggregate_buckets`]).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct BucketedAggregate {
+    /// The data version the sums were read at (same read snapshot).
+    pub data_version: u64,
+    /// One entry per bucket, in the order asked; each lists every registered group at
+    /// the level as [`Aggregate::groups`] does (zeros without data). Defects by
+    /// category are not read: `defects` is empty.
+    pub buckets: Vec<Vec<GroupTotals>>,
+}
+
+/// What a report reads, for [`crate::Store::scoped_version`].
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct VersionScope {
+    /// First day read (a report's range, widened to its baseline window).
+    pub from: Date,
+    /// Last day read.
+    pub to: Date,
+    /// Only this site's records (line-level or site-filtered reports); None: every site.
+    pub site: Option<SiteCode>,
+}

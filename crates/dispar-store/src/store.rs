@@ -4,14 +4,14 @@ use async_trait::async_trait;
 use dispar_core::code::SiteCode;
 use dispar_core::record::{CountRecord, RecordKey};
 use dispar_core::site::{Line, Site};
-use time::OffsetDateTime;
+use time::{Date, OffsetDateTime};
 
 use crate::counts::{
     BatchResult, CountFilter, CountPage, Idempotency, StoredAnswer, StoredRecord, WriteOutcome,
 };
 use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
-use crate::reports::{Aggregate, AggregateQuery};
+use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate, VersionScope};
 use crate::sessions::{NewPageSession, PageSession};
 use crate::sites::{SiteWithLines, Upserted};
 
@@ -146,10 +146,38 @@ pub trait Store: Send + Sync + std::fmt::Debug {
     /// instant.
     async fn aggregate(&self, query: &AggregateQuery) -> Result<Aggregate, StoreError>;
 
+    /// Sums inspected and defective units per group and per bucket (inclusive date
+    /// ranges) in one read: the earlier periods of a report's baselines, or every
+    /// period of a series with its baseline window. Only days within `query.from ..=
+    /// query.to` count; a day in two buckets counts in both.
+    async fn aggregate_buckets(
+        &self,
+        query: &AggregateQuery,
+        buckets: &[(Date, Date)],
+    ) -> Result<BucketedAggregate, StoreError>;
+
     /// The data version: grows with every write that can change a report.
     async fn data_version(&self) -> Result<u64, StoreError>;
+
+    /// The data version of what a report over `scope` reads: the largest data version
+    /// of any write that changed a count record of a site in scope on a day in
+    /// `scope.from ..= scope.to`, or that changed the registry (a site or line created or
+    /// changed); 0 when there is none. At most [`Store::data_version`].
+    async fn scoped_version(&self, scope: &VersionScope) -> Result<u64, StoreError>;
 
     /// Row counts. Counting takes time proportional to the rows (fine for tests and
     /// occasional metrics, not for every request).
     async fn stats(&self) -> Result<StoreStats, StoreError>;
+}
+
+/// [`StoreStats`] from the row of the shared statistics query.
+pub(crate) fn stats_from_row(row: (i64, i64, i64, i64, i64)) -> Result<StoreStats, StoreError> {
+    use crate::decode::to_u64;
+    Ok(StoreStats {
+        sites: to_u64(row.0, "count")?,
+        lines: to_u64(row.1, "count")?,
+        revisions: to_u64(row.2, "count")?,
+        records: to_u64(row.3, "count")?,
+        keys: to_u64(row.4, "count")?,
+    })
 }

@@ -53,9 +53,13 @@ async fn main() {
         let loaded = compute::load(store.as_ref(), &spec, &period, Detail::Report)
             .await
             .unwrap();
+        let window = compute::load_window(store.as_ref(), &spec, &period)
+            .await
+            .unwrap()
+            .map(|w| w.0);
         load.push(t.elapsed());
         let t = Instant::now();
-        let report = compute::build(&spec, period, &loaded.groups, None);
+        let report = compute::build(&spec, period, &loaded.groups, window, None);
         build.push(t.elapsed());
         let t = Instant::now();
         bytes = compute::to_json(&report).unwrap().len();
@@ -65,7 +69,7 @@ async fn main() {
         json_plain.push(t.elapsed());
     }
     println!(
-        "period {period}, {rounds} rounds, medians: data_version {:.2} ms, aggregate {:.1} ms, load (aggregate + names) {:.1} ms, build_report {:.1} ms, JSON {:.1} ms ({:.1} MB; serde_json::to_vec without a size hint {:.1} ms)",
+        "period {period}, {rounds} rounds, medians: data_version {:.2} ms, aggregate {:.1} ms, load (aggregate + names + baseline window) {:.1} ms, build_report {:.1} ms, JSON {:.1} ms ({:.1} MB; serde_json::to_vec without a size hint {:.1} ms)",
         median(version),
         median(sums),
         median(load),

@@ -202,6 +202,21 @@ impl Caller {
     }
 }
 
+/// 429 with `Retry-After` in whole seconds (at least 1).
+fn rate_limited(wait: std::time::Duration, rate: u32) -> ApiError {
+    let seconds = wait.as_secs_f64().ceil().max(1.0);
+    #[allow(clippy::cast_possible_truncation, clippy::cast_sign_loss)]
+    let seconds = seconds.min(3600.0) as u32;
+    ApiError::new(
+        ProblemKind::RateLimited,
+        format!(
+            "This API key sent more than {rate} requests a second (with a burst of {}); retry after {seconds} s.",
+            2 * u64::from(rate)
+        ),
+    )
+    .with_retry_after(seconds)
+}
+
 fn unauthorized(detail: &str, key_sent: bool) -> ApiError {
     let challenge = if key_sent {
         "Bearer realm=\"dispar\", error=\"invalid_token\""
@@ -245,19 +260,29 @@ impl FromRequestParts<AppState> for Caller {
         let Some(parsed) = parse_token(token) else {
             return Err(unauthorized("The API key is malformed.", true));
         };
-        let key = state
-            .store()
-            .find_key(parsed.id)
-            .await
-            .map_err(ApiError::from)?;
-        let Some(key) = key else {
-            return Err(unauthorized("The API key is not valid.", true));
+        let key = match state.gate().cached_key(parsed.id) {
+            Some(key) => key,
+            None => {
+                let key = state
+                    .store()
+                    .find_key(parsed.id)
+                    .await
+                    .map_err(ApiError::from)?;
+                let Some(key) = key else {
+                    return Err(unauthorized("The API key is not valid.", true));
+                };
+                state.gate().remember_key(&key);
+                key
+            }
         };
         if !secret_matches(&parsed.secret, &key.secret_hash) {
             return Err(unauthorized("The API key is not valid.", true));
         }
         if key.is_revoked() {
             return Err(unauthorized("The API key has been revoked.", true));
+        }
+        if let Err(wait) = state.gate().admit(key.id, &state.limits()) {
+            return Err(rate_limited(wait, state.limits().rate_limit));
         }
         let caller = Caller {
             key_id: key.id,

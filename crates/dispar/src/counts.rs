@@ -16,7 +16,7 @@
 
 pub mod csv_batch;
 
-use axum::extract::{Path, State};
+use axum::extract::State;
 use axum::http::StatusCode;
 use axum::http::header::{self, HeaderMap, HeaderName, HeaderValue};
 use axum::response::{IntoResponse, Response};
@@ -38,6 +38,7 @@ use crate::error::{
     ApiError, ErrorItem, MAX_LISTED_ERRORS, Result, rejected_records, url_record_item,
     validation_with_params,
 };
+use crate::extract::Segments;
 use crate::extract::{ApiQuery, Body, MediaType, from_value, parse_json, unsupported};
 use crate::state::AppState;
 
@@ -153,7 +154,7 @@ struct DayWritten {
 async fn put_day(
     State(state): State<AppState>,
     caller: Caller,
-    Path((site, line, date)): Path<(String, String, String)>,
+    Segments((site, line, date)): Segments<(String, String, String)>,
     ApiQuery(query): ApiQuery<ProductQuery>,
     body: Body,
 ) -> Result<Response> {
@@ -247,7 +248,7 @@ fn params_error(errors: Vec<FieldError>) -> ApiError {
 async fn get_day(
     State(state): State<AppState>,
     caller: Caller,
-    Path((site, line, date)): Path<(String, String, String)>,
+    Segments((site, line, date)): Segments<(String, String, String)>,
     ApiQuery(query): ApiQuery<ProductQuery>,
 ) -> Result<Json<StoredView>> {
     caller.require_read_site(&site)?;
@@ -283,7 +284,7 @@ struct History {
 async fn revisions(
     State(state): State<AppState>,
     caller: Caller,
-    Path((site, line, date)): Path<(String, String, String)>,
+    Segments((site, line, date)): Segments<(String, String, String)>,
     ApiQuery(query): ApiQuery<ProductQuery>,
 ) -> Result<Json<History>> {
     caller.require_read_site(&site)?;
@@ -572,6 +573,23 @@ impl<'de> Deserialize<'de> for Records {
 }
 
 /// Reads a JSON batch into raw records, reporting every record's shape errors.
+/// A batch body read and checked as `POST /v1/counts` reads it, without a store or a
+/// key: the checked records, or the problem the endpoint would answer. The fuzz targets
+/// (`fuzz/`) drive the parsers through these.
+pub fn read_batch(bytes: &[u8], csv: bool, max: usize) -> Result<Vec<CountRecord>> {
+    if csv {
+        let parsed = csv_batch::parse(bytes, max)?;
+        let lines = parsed.lines;
+        let checked = dispar_core::record::check_rows(parsed.records, |i| {
+            lines.get(i).copied().unwrap_or(0).to_string()
+        });
+        checked.map_err(|e| batch_validation(e, &Place::Csv { lines }))
+    } else {
+        let inputs = json_records(bytes, max)?;
+        dispar_core::record::check_batch(inputs).map_err(|e| batch_validation(e, &Place::Json))
+    }
+}
+
 fn json_records(bytes: &[u8], max: usize) -> Result<Vec<CountRecordInput>> {
     let raw: RawBatch = parse_json(bytes)?;
     check_batch_size(raw.records.count, max, || {

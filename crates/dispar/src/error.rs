@@ -50,8 +50,14 @@ pub enum ProblemKind {
     /// 409: a client revision number older than (or equal to) the stored one, with other
     /// counts.
     StaleRevision,
+    /// 408: the body did not arrive within the time allowed for it (the pages' forms).
+    BodyTimeout,
     /// 413: the body is larger than the configured limit.
     PayloadTooLarge,
+    /// 414: the request's path and query are longer than the server reads.
+    UriTooLong,
+    /// 429: the API key sent more requests than its rate allows.
+    RateLimited,
     /// 415: a body in a media type this endpoint does not take.
     UnsupportedMediaType,
     /// 422: well-formed input that breaks a rule; `errors` names each field.
@@ -68,7 +74,7 @@ pub enum ProblemKind {
 
 impl ProblemKind {
     /// Every kind, for the `/problems/{slug}` pages and tests.
-    pub const ALL: [ProblemKind; 15] = [
+    pub const ALL: [ProblemKind; 18] = [
         ProblemKind::MalformedBody,
         ProblemKind::BadRequest,
         ProblemKind::Unauthorized,
@@ -84,6 +90,9 @@ impl ProblemKind {
         ProblemKind::Internal,
         ProblemKind::Unavailable,
         ProblemKind::Timeout,
+        ProblemKind::BodyTimeout,
+        ProblemKind::UriTooLong,
+        ProblemKind::RateLimited,
     ];
 
     /// The HTTP status of this kind.
@@ -96,7 +105,10 @@ impl ProblemKind {
             ProblemKind::MethodNotAllowed => StatusCode::METHOD_NOT_ALLOWED,
             ProblemKind::NotAcceptable => StatusCode::NOT_ACCEPTABLE,
             ProblemKind::StaleRevision => StatusCode::CONFLICT,
+            ProblemKind::BodyTimeout => StatusCode::REQUEST_TIMEOUT,
             ProblemKind::PayloadTooLarge => StatusCode::PAYLOAD_TOO_LARGE,
+            ProblemKind::UriTooLong => StatusCode::URI_TOO_LONG,
+            ProblemKind::RateLimited => StatusCode::TOO_MANY_REQUESTS,
             ProblemKind::UnsupportedMediaType => StatusCode::UNSUPPORTED_MEDIA_TYPE,
             ProblemKind::Validation | ProblemKind::IdempotencyMismatch => {
                 StatusCode::UNPROCESSABLE_ENTITY
@@ -117,7 +129,10 @@ impl ProblemKind {
             ProblemKind::MethodNotAllowed => "method-not-allowed",
             ProblemKind::NotAcceptable => "not-acceptable",
             ProblemKind::StaleRevision => "stale-revision",
+            ProblemKind::BodyTimeout => "body-timeout",
             ProblemKind::PayloadTooLarge => "payload-too-large",
+            ProblemKind::UriTooLong => "uri-too-long",
+            ProblemKind::RateLimited => "rate-limited",
             ProblemKind::UnsupportedMediaType => "unsupported-media-type",
             ProblemKind::Validation => "validation",
             ProblemKind::IdempotencyMismatch => "idempotency-key-reused",
@@ -143,7 +158,10 @@ impl ProblemKind {
             ProblemKind::MethodNotAllowed => "Method not allowed",
             ProblemKind::NotAcceptable => "Not acceptable",
             ProblemKind::StaleRevision => "Stale revision",
+            ProblemKind::BodyTimeout => "Request body too slow",
             ProblemKind::PayloadTooLarge => "Request body too large",
+            ProblemKind::UriTooLong => "Request URI too long",
+            ProblemKind::RateLimited => "Too many requests for this API key",
             ProblemKind::UnsupportedMediaType => "Unsupported media type",
             ProblemKind::Validation => "Invalid input",
             ProblemKind::IdempotencyMismatch => "Idempotency key reused with a different body",
@@ -175,6 +193,15 @@ impl ProblemKind {
             }
             ProblemKind::StaleRevision => {
                 "The record carries a `revision` (the sending system's own number) older than or equal to the stored one, with different counts. The member `current_revision` holds the stored `revision`. Nothing was written."
+            }
+            ProblemKind::BodyTimeout => {
+                "The request body did not arrive within the time the server allows for it (5 seconds for the pages' forms, which hold a few hundred bytes). Nothing was read or written. Send the whole body at once."
+            }
+            ProblemKind::RateLimited => {
+                "The API key sent more requests a second than the server allows per key (`dispar serve --rate-limit`). Nothing was done. Retry after the time in `Retry-After`."
+            }
+            ProblemKind::UriTooLong => {
+                "The request's path and query string are longer than the server reads (16 KiB). Every report parameter fits in far less; a request that needs more is likely a mistake in the client."
             }
             ProblemKind::PayloadTooLarge => {
                 "The request body is larger than the server's limit (`dispar serve --max-body-bytes`). Split a batch into smaller ones."
@@ -213,9 +240,11 @@ impl ProblemKind {
             404 => ProblemKind::NotFound,
             405 => ProblemKind::MethodNotAllowed,
             406 => ProblemKind::NotAcceptable,
-            408 => ProblemKind::Timeout,
+            408 => ProblemKind::BodyTimeout,
             409 => ProblemKind::StaleRevision,
             413 => ProblemKind::PayloadTooLarge,
+            414 => ProblemKind::UriTooLong,
+            429 => ProblemKind::RateLimited,
             415 => ProblemKind::UnsupportedMediaType,
             422 => ProblemKind::Validation,
             503 => ProblemKind::Unavailable,
@@ -401,6 +430,15 @@ impl ApiError {
             e.headers.push((header::RETRY_AFTER, v));
         }
         e
+    }
+
+    /// Adds a `Retry-After` of `seconds`.
+    #[must_use]
+    pub fn with_retry_after(mut self, seconds: u32) -> Self {
+        if let Ok(v) = HeaderValue::from_str(&seconds.to_string()) {
+            self.headers.push((header::RETRY_AFTER, v));
+        }
+        self
     }
 
     /// Adds field errors.

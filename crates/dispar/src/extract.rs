@@ -134,6 +134,16 @@ pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
     if bytes.trim_ascii_start().first() == Some(&b'[') {
         return Err(not_an_object(String::new()));
     }
+    if let Some((pointer, key)) = duplicate_member(bytes) {
+        return Err(ApiError::validation(
+            "The request body has invalid fields.",
+            vec![ErrorItem::pointer(
+                pointer,
+                "duplicate",
+                format!("{key:?} appears twice; name each member once"),
+            )],
+        ));
+    }
     let mut de = serde_json::Deserializer::from_slice(bytes);
     let value = serde_path_to_error::deserialize(&mut de).map_err(|e| {
         let pointer = pointer_of(e.path());
@@ -149,6 +159,92 @@ pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
     })?;
     de.end().map_err(|e| json_error(String::new(), e))?;
     Ok(value)
+}
+
+/// The pointer and name of the first object member that appears twice in its object,
+/// if any (None also for a body that is not JSON: the parse that follows says why).
+/// JSON allows duplicate names and serde keeps the last, which would let one value
+/// replace another unseen, also inside values first read as `serde_json::Value`.
+fn duplicate_member(bytes: &[u8]) -> Option<(String, String)> {
+    use serde::de::{DeserializeSeed, MapAccess, SeqAccess, Visitor};
+    use std::fmt;
+
+    /// Walks one JSON value at `path`; on a duplicate sets `found` and fails the parse.
+    struct Walk<'a> {
+        path: String,
+        found: &'a std::cell::RefCell<Option<(String, String)>>,
+    }
+    impl<'de> DeserializeSeed<'de> for Walk<'_> {
+        type Value = ();
+        fn deserialize<D: serde::Deserializer<'de>>(self, d: D) -> Result<(), D::Error> {
+            d.deserialize_any(self)
+        }
+    }
+    impl<'de> Visitor<'de> for Walk<'_> {
+        type Value = ();
+        fn expecting(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+            f.write_str("any JSON value")
+        }
+        fn visit_bool<E>(self, _: bool) -> Result<(), E> {
+            Ok(())
+        }
+        fn visit_i64<E>(self, _: i64) -> Result<(), E> {
+            Ok(())
+        }
+        fn visit_u64<E>(self, _: u64) -> Result<(), E> {
+            Ok(())
+        }
+        fn visit_f64<E>(self, _: f64) -> Result<(), E> {
+            Ok(())
+        }
+        fn visit_str<E>(self, _: &str) -> Result<(), E> {
+            Ok(())
+        }
+        fn visit_unit<E>(self) -> Result<(), E> {
+            Ok(())
+        }
+        fn visit_seq<A: SeqAccess<'de>>(self, mut seq: A) -> Result<(), A::Error> {
+            let mut i = 0usize;
+            while seq
+                .next_element_seed(Walk {
+                    path: format!("{}/{i}", self.path),
+                    found: self.found,
+                })?
+                .is_some()
+            {
+                i += 1;
+            }
+            Ok(())
+        }
+        fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> Result<(), A::Error> {
+            let mut seen = std::collections::HashSet::new();
+            while let Some(key) = map.next_key::<String>()? {
+                let path = format!(
+                    "{}/{}",
+                    self.path,
+                    dispar_core::error::pointer_segment(&key)
+                );
+                if !seen.insert(key.clone()) {
+                    *self.found.borrow_mut() = Some((path, key));
+                    return Err(serde::de::Error::custom("duplicate member"));
+                }
+                map.next_value_seed(Walk {
+                    path,
+                    found: self.found,
+                })?;
+            }
+            Ok(())
+        }
+    }
+    let found = std::cell::RefCell::new(None);
+    let mut de = serde_json::Deserializer::from_slice(bytes);
+    let _ = Walk {
+        path: String::new(),
+        found: &found,
+    }
+    .deserialize(&mut de);
+    let _ = de.end();
+    found.into_inner()
 }
 
 /// Deserializes `value` into `T`; errors get JSON pointers below `prefix`.
@@ -249,6 +345,23 @@ fn data_error_item(pointer: String, e: &serde_json::Error) -> ErrorItem {
         let pointer = append_field(&pointer, &field);
         return ErrorItem::pointer(pointer, "required", format!("{field:?} is required"));
     }
+    // A member named twice: point at it, not at the object holding it.
+    for prefix in ["duplicate field ", "duplicate category "] {
+        if let Some(field) = backticked_after(&message, prefix) {
+            let pointer = if pointer
+                .ends_with(&format!("/{}", dispar_core::error::pointer_segment(&field)))
+            {
+                pointer
+            } else {
+                append_field(&pointer, &field)
+            };
+            return ErrorItem::pointer(
+                pointer,
+                "duplicate",
+                format!("{field:?} appears twice; name each member once"),
+            );
+        }
+    }
     let reason = if message.starts_with("invalid type") {
         "invalid-type"
     } else if message.starts_with("invalid length") {
@@ -276,6 +389,45 @@ fn append_field(pointer: &str, field: &str) -> String {
         pointer.to_owned()
     } else {
         format!("{pointer}/{segment}")
+    }
+}
+
+/// The path's parameters (`{site}`, `{line}`, `{date}`...) as `T`, like axum's `Path`,
+/// but a segment that is not UTF-8 once percent-decoded (`S%FF1`) is a 400 naming the
+/// parameter instead of axum's bare "Bad Request".
+#[derive(Debug, Clone)]
+pub struct Segments<T>(pub T);
+
+impl<S: Send + Sync, T: DeserializeOwned + Send> FromRequestParts<S> for Segments<T> {
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, state: &S) -> Result<Self, Self::Rejection> {
+        use axum::extract::path::{ErrorKind, Path};
+        use axum::extract::rejection::PathRejection;
+        match Path::<T>::from_request_parts(parts, state).await {
+            Ok(Path(value)) => Ok(Segments(value)),
+            Err(PathRejection::FailedToDeserializePathParams(e)) => {
+                let item = match e.kind() {
+                    ErrorKind::InvalidUtf8InPathParam { key } => ErrorItem::parameter(
+                        key.clone(),
+                        "invalid-utf8",
+                        format!(
+                            "the path segment {{{key}}} is not UTF-8 once its percent-escapes are decoded"
+                        ),
+                    ),
+                    ErrorKind::ParseErrorAtKey { key, .. }
+                    | ErrorKind::DeserializeError { key, .. } => {
+                        ErrorItem::parameter(key.clone(), "invalid-value", e.body_text())
+                    }
+                    _ => ErrorItem::general("invalid-path", e.body_text()),
+                };
+                Err(
+                    ApiError::new(ProblemKind::BadRequest, "The request path cannot be read.")
+                        .with_error(item),
+                )
+            }
+            Err(other) => Err(ApiError::new(ProblemKind::BadRequest, other.body_text())),
+        }
     }
 }
 

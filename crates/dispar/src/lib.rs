@@ -13,6 +13,8 @@
 //! - [`error`]: the one error type, [`ApiError`], and the mapping of store errors;
 //! - [`extract`]: the extractors that keep every refusal in the problem-details shape;
 //! - [`state`]: the [`AppState`] every handler shares, and the [`Limits`];
+//! - [`gate`]: the key cache and the rate limit per key;
+//! - [`listen`]: the accept loop (header timeout, connection cap, draining);
 //! - [`telemetry`]: logging setup, the metrics recorder and the metric names.
 //!
 //! The binary (`main.rs`, with its subcommands in `cli/`) adds the command line.
@@ -23,6 +25,8 @@ pub mod auth;
 pub mod counts;
 pub mod error;
 pub mod extract;
+pub mod gate;
+pub mod listen;
 pub mod ops;
 pub mod page;
 pub mod reports;
@@ -46,8 +50,9 @@ use tower_http::trace::{DefaultOnResponse, TraceLayer};
 pub use crate::error::{ApiError, Result};
 pub use crate::state::{AppState, Limits};
 
-/// The whole HTTP application: `/v1` resources behind the concurrency limit, the
-/// operations routes, and the layers every request passes (outermost first):
+/// The whole HTTP application: `/v1` resources behind the concurrency limit, the pages
+/// behind their own (smaller) budget with their form bodies read first, the operations
+/// routes, and the layers every request passes (outermost first):
 /// problem bodies for any error, request id, tracing, metrics, panic catching,
 /// timeout, body size limit.
 pub fn app(state: AppState) -> Router {
@@ -55,9 +60,14 @@ pub fn app(state: AppState) -> Router {
     let v1 = Router::new()
         .merge(sites::router())
         .merge(counts::router())
-        .merge(page::router())
         .merge(reports::router())
         .layer(GlobalConcurrencyLimitLayer::new(limits.max_concurrency));
+    // Layers added last run first: the form body is read before a page slot is taken.
+    let pages = page::router()
+        .layer(GlobalConcurrencyLimitLayer::new(page::concurrency_budget(
+            limits.max_concurrency,
+        )))
+        .layer(from_fn(page::read_form_body));
     let trace = TraceLayer::new_for_http()
         .make_span_with(|request: &Request<_>| {
             let request_id = request
@@ -86,9 +96,11 @@ pub fn app(state: AppState) -> Router {
     Router::new()
         .merge(ops::router())
         .merge(v1)
+        .merge(pages)
         .fallback(ops::not_found)
         .layer(DefaultBodyLimit::max(limits.max_body_bytes))
         .layer(from_fn_with_state(state.clone(), ops::timeout))
+        .layer(from_fn(ops::limit_uri))
         .layer(CatchPanicLayer::new())
         .layer(from_fn(ops::track_metrics))
         .layer(PropagateRequestIdLayer::x_request_id())
@@ -116,13 +128,13 @@ where
     });
     let purge = tokio::spawn(purge_idempotency(state.clone()));
     let flag = state.clone();
-    let result = axum::serve(listener, router)
-        .with_graceful_shutdown(async move {
-            shutdown.await;
-            flag.begin_shutdown();
-            tracing::info!("shutdown requested; finishing in-flight requests");
-        })
-        .await;
+    let limits = state.limits();
+    let result = listen::serve_connections(listener, router, &limits, async move {
+        shutdown.await;
+        flag.begin_shutdown();
+        tracing::info!("shutdown requested; finishing in-flight requests");
+    })
+    .await;
     upkeep.abort();
     purge.abort();
     state.store().close().await;

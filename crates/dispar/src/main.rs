@@ -74,6 +74,18 @@ struct ServeArgs {
     /// `24h`; older answers are purged hourly.
     #[arg(long, env = "DISPAR_IDEMPOTENCY_RETENTION", default_value = "7d", value_parser = parse_duration)]
     idempotency_retention: Duration,
+    /// How long a client may take to send a request's headers, and an idle connection
+    /// may wait for its next request, e.g. `10s`; the connection is closed after it.
+    #[arg(long, env = "DISPAR_HEADER_TIMEOUT", default_value = "10s", value_parser = parse_duration)]
+    header_timeout: Duration,
+    /// Most open client connections; more wait to be accepted until one closes.
+    #[arg(long, env = "DISPAR_MAX_CONNECTIONS", default_value_t = Limits::default().max_connections,
+          value_parser = parse_positive)]
+    max_connections: usize,
+    /// Requests a second per API key, with a burst of twice that; more get 429 with
+    /// `Retry-After`. 0 turns the limit off.
+    #[arg(long, env = "DISPAR_RATE_LIMIT", default_value_t = Limits::default().rate_limit)]
+    rate_limit: u32,
 }
 
 /// A batch limit: 1 to [`dispar::counts::MAX_BATCH_RECORDS`].
@@ -151,6 +163,9 @@ async fn serve(args: ServeArgs) -> CliResult {
         max_concurrency: args.max_concurrency,
         max_batch_records: args.max_batch_records,
         idempotency_retention: args.idempotency_retention,
+        header_timeout: args.header_timeout,
+        max_connections: args.max_connections,
+        rate_limit: args.rate_limit,
     };
     tracing::info!(database = %redact_url(&args.database.url), ?limits, "starting");
     let store = open(&args.database).await?;

@@ -6,7 +6,7 @@
 use std::time::{Duration, Instant};
 
 use axum::Router;
-use axum::extract::{MatchedPath, Path, Request, State};
+use axum::extract::{MatchedPath, Request, State};
 use axum::http::header::{self, HeaderValue};
 use axum::http::{Method, StatusCode};
 use axum::middleware::Next;
@@ -14,6 +14,7 @@ use axum::response::{IntoResponse, Response};
 use axum::routing::get;
 
 use crate::error::{ApiError, PROBLEM_JSON, ProblemKind};
+use crate::extract::Segments;
 use crate::state::AppState;
 use crate::telemetry::{IN_FLIGHT, REQUEST_DURATION, REQUESTS_TOTAL};
 
@@ -79,7 +80,7 @@ async fn render_metrics(State(state): State<AppState>) -> impl IntoResponse {
 
 /// A short HTML page describing a problem type (rendered like the other pages, so
 /// with their escaping, style sheet and headers).
-async fn problem_page(Path(slug): Path<String>) -> Result<Response, ApiError> {
+async fn problem_page(Segments(slug): Segments<String>) -> Result<Response, ApiError> {
     let Some(kind) = ProblemKind::from_slug(&slug) else {
         return Err(ApiError::not_found(format!(
             "There is no problem type {slug:?}."
@@ -101,20 +102,41 @@ pub async fn not_found(method: Method, uri: axum::http::Uri) -> ApiError {
     ApiError::not_found(format!("There is no resource at {method} {}.", uri.path()))
 }
 
+/// The `method` label of a request: the methods of RFC 9110 by name, every other token
+/// as `other`. Any token is a valid method, and a label per token would let anyone grow
+/// the metrics (and the `/metrics` body) without bound.
+fn method_label(method: &Method) -> &'static str {
+    const KNOWN: [(Method, &str); 9] = [
+        (Method::GET, "GET"),
+        (Method::HEAD, "HEAD"),
+        (Method::POST, "POST"),
+        (Method::PUT, "PUT"),
+        (Method::DELETE, "DELETE"),
+        (Method::PATCH, "PATCH"),
+        (Method::OPTIONS, "OPTIONS"),
+        (Method::CONNECT, "CONNECT"),
+        (Method::TRACE, "TRACE"),
+    ];
+    KNOWN
+        .iter()
+        .find(|(m, _)| m == method)
+        .map_or("other", |(_, name)| name)
+}
+
 /// Middleware: records request count, latency and in-flight gauge by route template.
 pub async fn track_metrics(request: Request, next: Next) -> Response {
     let route = request
         .extensions()
         .get::<MatchedPath>()
         .map_or_else(|| "unmatched".to_owned(), |p| p.as_str().to_owned());
-    let method = request.method().as_str().to_owned();
+    let method = method_label(request.method());
     let start = Instant::now();
     let gauge = metrics::gauge!(IN_FLIGHT);
     gauge.increment(1.0);
     let response = next.run(request).await;
     gauge.decrement(1.0);
     let status = response.status().as_u16().to_string();
-    metrics::counter!(REQUESTS_TOTAL, "method" => method.clone(), "route" => route.clone(), "status" => status)
+    metrics::counter!(REQUESTS_TOTAL, "method" => method, "route" => route.clone(), "status" => status)
         .increment(1);
     metrics::histogram!(REQUEST_DURATION, "method" => method, "route" => route)
         .record(start.elapsed().as_secs_f64());
@@ -136,6 +158,26 @@ pub async fn timeout(State(state): State<AppState>, request: Request, next: Next
         )
         .into_response(),
     }
+}
+
+/// The longest path and query the server reads (bytes). hyper itself answers a bare 414
+/// only above 64 KiB; below that this limit answers with a problem body.
+pub const MAX_URI_BYTES: usize = 16 * 1024;
+
+/// Middleware: 414 `uri-too-long` for a path and query longer than [`MAX_URI_BYTES`].
+pub async fn limit_uri(request: Request, next: Next) -> Response {
+    let length = request
+        .uri()
+        .path_and_query()
+        .map_or(0, |p| p.as_str().len());
+    if length > MAX_URI_BYTES {
+        return ApiError::new(
+            ProblemKind::UriTooLong,
+            format!("The path and query hold {length} bytes; at most {MAX_URI_BYTES} are read."),
+        )
+        .into_response();
+    }
+    next.run(request).await
 }
 
 /// Middleware: gives error responses of the framework a problem body. Our handlers
@@ -179,4 +221,19 @@ pub async fn problem_bodies(request: Request, next: Next) -> Response {
         parts,
         axum::body::Body::from(serde_json::to_vec(&body).unwrap_or_default()),
     )
+}
+
+#[cfg(test)]
+mod method_label_tests {
+    use super::*;
+
+    #[test]
+    fn made_up_methods_share_one_label() {
+        assert_eq!(method_label(&Method::GET), "GET");
+        assert_eq!(method_label(&Method::PATCH), "PATCH");
+        for token in ["FOO", "get", "X-1", "PROPFIND"] {
+            let m = Method::from_bytes(token.as_bytes()).expect("a valid token");
+            assert_eq!(method_label(&m), "other", "{token}");
+        }
+    }
 }

@@ -6,7 +6,7 @@
 //! updated or found it unchanged; the body's `outcome` says which (`created`,
 //! `updated`, `unchanged`).
 
-use axum::extract::{Path, State};
+use axum::extract::State;
 use axum::http::StatusCode;
 use axum::http::header::{self, HeaderValue};
 use axum::response::{IntoResponse, Response};
@@ -20,6 +20,7 @@ use serde::Serialize;
 use crate::auth::Caller;
 use crate::error::{ApiError, ErrorItem, Result, validation_with_params};
 use crate::extract::Body;
+use crate::extract::Segments;
 use crate::state::AppState;
 
 /// The registry routes.
@@ -110,7 +111,7 @@ fn upsert_response(outcome: Upserted, location: &str, view: impl Serialize) -> R
 async fn put_site(
     State(state): State<AppState>,
     caller: Caller,
-    Path(code): Path<String>,
+    Segments(code): Segments<String>,
     body: Body,
 ) -> Result<Response> {
     caller.require_admin()?;
@@ -132,7 +133,7 @@ async fn put_site(
 async fn put_line(
     State(state): State<AppState>,
     caller: Caller,
-    Path((site, line)): Path<(String, String)>,
+    Segments((site, line)): Segments<(String, String)>,
     body: Body,
 ) -> Result<Response> {
     caller.require_admin()?;
@@ -187,7 +188,7 @@ struct SiteDetail {
 async fn get_site(
     State(state): State<AppState>,
     caller: Caller,
-    Path(code): Path<String>,
+    Segments(code): Segments<String>,
 ) -> Result<Json<SiteDetail>> {
     caller.require_read_site(&code)?;
     let code = parse_site_param(&code)?;

@@ -27,6 +27,13 @@ pub struct Limits {
     /// How long a batch answer stays replayable under its `Idempotency-Key`; older
     /// answers are purged hourly, after which the same key starts afresh.
     pub idempotency_retention: Duration,
+    /// How long a client may take to send a request's headers, and how long an idle
+    /// keep-alive connection waits for the next request, before it is closed.
+    pub header_timeout: Duration,
+    /// Most open client connections; more wait in the listen backlog until one closes.
+    pub max_connections: usize,
+    /// Requests per second per API key (a burst of twice that); 0 turns the limit off.
+    pub rate_limit: u32,
 }
 
 impl Default for Limits {
@@ -37,6 +44,9 @@ impl Default for Limits {
             max_concurrency: 64,
             max_batch_records: 10_000,
             idempotency_retention: Duration::from_secs(7 * 24 * 3600),
+            header_timeout: Duration::from_secs(10),
+            max_connections: 1024,
+            rate_limit: 1000,
         }
     }
 }
@@ -54,6 +64,7 @@ struct Inner {
     pages: Arc<PageState>,
     metrics: PrometheusHandle,
     limits: Limits,
+    gate: crate::gate::Gate,
     shutting_down: AtomicBool,
 }
 
@@ -68,6 +79,7 @@ impl AppState {
                 store,
                 metrics: crate::telemetry::metrics_handle(),
                 limits,
+                gate: crate::gate::Gate::default(),
                 shutting_down: AtomicBool::new(false),
             }),
         }
@@ -96,6 +108,11 @@ impl AppState {
     /// The limits.
     pub fn limits(&self) -> Limits {
         self.inner.limits
+    }
+
+    /// The key cache and the per-key rate limit.
+    pub fn gate(&self) -> &crate::gate::Gate {
+        &self.inner.gate
     }
 
     /// Marks the server as shutting down: `/readyz` answers 503 from now on.

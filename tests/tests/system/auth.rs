@@ -89,6 +89,8 @@ fn keys_are_listed_without_secrets_and_revoked_keys_are_refused() {
         "{}",
         String::from_utf8_lossy(&revoke.stderr)
     );
+    // The server trusts a key it read for up to 2 s (the key cache).
+    std::thread::sleep(std::time::Duration::from_millis(2_100));
     let r = s.request("GET", "/v1/sites", Some(&read), Body::None);
     let p = r.problem(401, "unauthorized");
     assert!(p["detail"].as_str().unwrap().contains("revoked"), "{p}");
@@ -349,4 +351,73 @@ fn the_database_keeps_only_a_hash_of_each_secret() {
         );
     }
     assert!(seen > 0, "the database files were read");
+}
+
+#[test]
+fn a_key_over_its_rate_gets_429_with_retry_after_and_other_keys_do_not() {
+    let s = Server::start_with(&["--rate-limit", "5"]);
+    let busy = s.key("read", &[]);
+    let calm = s.key("read", &[]);
+    // A burst of twice the rate passes, then the bucket is empty.
+    let statuses: Vec<u16> = (0..15)
+        .map(|_| {
+            s.request("GET", "/v1/sites", Some(&busy), Body::None)
+                .status
+        })
+        .collect();
+    assert!(statuses[..10].iter().all(|&c| c == 200), "{statuses:?}");
+    let refused = s.request("GET", "/v1/sites", Some(&busy), Body::None);
+    let p = refused.problem(429, "rate-limited");
+    assert!(
+        p["detail"]
+            .as_str()
+            .unwrap()
+            .contains("5 requests a second"),
+        "{p}"
+    );
+    assert_eq!(refused.header("retry-after"), Some("1"));
+    assert_eq!(
+        s.request("GET", "/v1/sites", Some(&calm), Body::None)
+            .status,
+        200,
+        "each key has its own bucket"
+    );
+    // A second later five more tokens are back.
+    std::thread::sleep(std::time::Duration::from_millis(1100));
+    assert_eq!(
+        s.request("GET", "/v1/sites", Some(&busy), Body::None)
+            .status,
+        200
+    );
+}
+
+#[test]
+fn a_revoked_key_stops_working_within_two_seconds() {
+    let s = Server::start();
+    let key = s.key("read", &[]);
+    assert_eq!(
+        s.request("GET", "/v1/sites", Some(&key), Body::None).status,
+        200
+    );
+    let id = key.split('_').nth(1).unwrap().to_owned();
+    let out = s.cli(&["keys", "revoke", &id]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let revoked = std::time::Instant::now();
+    loop {
+        let r = s.request("GET", "/v1/sites", Some(&key), Body::None);
+        if r.status == 401 {
+            break;
+        }
+        assert_eq!(r.status, 200);
+        assert!(
+            revoked.elapsed() < std::time::Duration::from_millis(2_500),
+            "still accepted {:?} after the revocation",
+            revoked.elapsed()
+        );
+        std::thread::sleep(std::time::Duration::from_millis(50));
+    }
 }

@@ -234,3 +234,144 @@ fn every_problem_type_has_a_page() {
     s.request("GET", "/problems/nope", None, Body::None)
         .problem(404, "not-found");
 }
+
+#[test]
+fn a_member_named_twice_is_refused_where_it_is() {
+    let s = plant(&[]);
+    let before = s.snapshot();
+    let raw = |bytes: &str| Body::Raw {
+        content_type: Some("application/json"),
+        bytes: bytes.as_bytes().to_vec(),
+    };
+    for (method, path, body, pointer) in [
+        (
+            "PUT",
+            DAY,
+            r#"{"inspected": 10, "defective": 1, "defects": {"flash": 1, "flash": 2}}"#,
+            "/defects/flash",
+        ),
+        (
+            "PUT",
+            DAY,
+            r#"{"inspected": 10, "inspected": 11, "defective": 1}"#,
+            "/inspected",
+        ),
+        (
+            "POST",
+            "/v1/counts",
+            r#"{"records": [{"site": "S1", "line": "L1", "date": "2026-03-03", "inspected": 10,
+                "defective": 1, "defects": {"seal-leak": 1, "seal-leak": 1}}]}"#,
+            "/records/0/defects/seal-leak",
+        ),
+        (
+            "PUT",
+            "/v1/sites/S2",
+            r#"{"name": "a", "name": "b"}"#,
+            "/name",
+        ),
+    ] {
+        let p = s
+            .as_admin(method, path, raw(body))
+            .problem(422, "validation");
+        assert_eq!(p["errors"][0]["pointer"], pointer, "{p}");
+        assert_eq!(p["errors"][0]["reason"], "duplicate", "{p}");
+    }
+    assert_eq!(s.snapshot(), before, "nothing was written");
+}
+
+#[test]
+fn counts_are_json_numbers_and_csv_digits() {
+    let s = plant(&[]);
+    let before = s.snapshot();
+    // A quoted count is digits only.
+    for v in [json!(" 100 "), json!("1e2"), json!("100.0"), json!("")] {
+        let p = s
+            .as_admin(
+                "PUT",
+                DAY,
+                Body::Json(json!({"inspected": v, "defective": 1})),
+            )
+            .problem(422, "validation");
+        assert_eq!(p["errors"][0]["pointer"], "/inspected", "{p}");
+        assert_eq!(p["errors"][0]["reason"], "not-a-number", "{p}");
+    }
+    // In CSV a count is digits: an exponent or a decimal point is refused.
+    for cell in ["1e2", "100.0", "+5"] {
+        let csv = format!("site,line,date,inspected,defective\nS1,L1,2026-03-04,{cell},1\n");
+        let p = s
+            .as_admin("POST", "/v1/counts", Body::Csv(csv))
+            .problem(422, "validation");
+        assert_eq!(p["errors"][0]["column"], "inspected", "{cell}: {p}");
+    }
+    assert_eq!(s.snapshot(), before, "nothing was written");
+    // JSON numbers with a whole value are counts (JSON Schema's integer): 1e2 is 100.
+    let r = s.as_admin(
+        "PUT",
+        "/v1/sites/S1/lines/L1/days/2026-03-05",
+        Body::Raw {
+            content_type: Some("application/json"),
+            bytes: br#"{"inspected": 1e2, "defective": 1.0}"#.to_vec(),
+        },
+    );
+    assert_eq!(r.status, 201, "{}", r.text);
+    assert_eq!(r.json()["inspected"], 100);
+    let r = s.as_admin(
+        "PUT",
+        "/v1/sites/S1/lines/L1/days/2026-03-06",
+        Body::Json(json!({"inspected": "8216", "defective": "42"})),
+    );
+    assert_eq!(r.status, 201, "{}", r.text);
+    assert_eq!(r.json()["inspected"], 8216);
+}
+
+#[test]
+fn defects_of_one_category_are_bounded_by_the_units_inspected() {
+    let s = plant(&[]);
+    let before = s.snapshot();
+    let p = s
+        .as_admin(
+            "PUT",
+            DAY,
+            Body::Json(json!({"inspected": 10, "defective": 1, "defects": {"flash": 1_000_000_000_000u64}})),
+        )
+        .problem(422, "validation");
+    assert_eq!(p["errors"][0]["pointer"], "/defects/flash", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "too-many-defects", "{p}");
+    assert_eq!(s.snapshot(), before);
+    // 100 per unit is the bound: 1,000 on 10 units is accepted.
+    let r = s.as_admin(
+        "PUT",
+        DAY,
+        Body::Json(json!({"inspected": 10, "defective": 1, "defects": {"flash": 1_000}})),
+    );
+    assert_eq!(r.status, 200, "{}", r.text);
+}
+
+#[test]
+fn a_path_segment_that_is_not_utf8_is_a_problem_naming_it() {
+    let s = plant(&[]);
+    for (path, parameter) in [
+        ("/v1/sites/S%FF1", "site"),
+        ("/v1/sites/S1/lines/L%C0/days/2026-03-02", "line"),
+        ("/v1/sites/S1/lines/L1/days/2026-03-0%FE", "date"),
+    ] {
+        let p = s
+            .as_admin("GET", path, Body::None)
+            .problem(400, "bad-request");
+        assert_eq!(p["errors"][0]["parameter"], parameter, "{path}: {p}");
+        assert_eq!(p["errors"][0]["reason"], "invalid-utf8", "{path}: {p}");
+    }
+}
+
+#[test]
+fn a_uri_longer_than_the_server_reads_is_a_414_problem() {
+    let s = plant(&[]);
+    let long = format!("/v1/reports?period=2026-W10&site={}", "S".repeat(20_000));
+    let p = s
+        .as_admin("GET", &long, Body::None)
+        .problem(414, "uri-too-long");
+    assert!(p["detail"].as_str().unwrap().contains("16384"), "{p}");
+    // Just under the limit is read as usual (and refused for what it says).
+    let under = format!("/v1/reports?period=2026-W10&site={}", "S".repeat(16_000));
+    assert_eq!(s.as_admin("GET", &under, Body::None).status, 422);
+}

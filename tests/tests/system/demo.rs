@@ -17,8 +17,8 @@ use std::time::Duration;
 
 use dispar_system_tests::{Value, dispar_bin, send_sigterm, wait_for_exit};
 
-/// A running `dispar demo`.
-struct Demo {
+/// A running `dispar demo` (also used by the baselines tests).
+pub(crate) struct Demo {
     child: Option<Child>,
     /// Standard output up to and including the `listening on` line.
     banner: Vec<String>,
@@ -30,7 +30,7 @@ struct Demo {
 
 impl Demo {
     /// Starts `dispar demo --listen 127.0.0.1:0 EXTRA` and waits for its address.
-    fn start(extra: &[&str]) -> Demo {
+    pub(crate) fn start(extra: &[&str]) -> Demo {
         let dir = tempfile::tempdir().unwrap();
         let log = dir.path().join("demo.log");
         let mut child = Command::new(dispar_bin())
@@ -97,7 +97,7 @@ impl Demo {
     }
 
     /// The value of the one banner line `PREFIX VALUE`.
-    fn line(&self, prefix: &str) -> String {
+    pub(crate) fn line(&self, prefix: &str) -> String {
         let found: Vec<&String> = self
             .banner
             .iter()
@@ -138,7 +138,7 @@ impl Demo {
     }
 
     /// `GET path` with `token`; must be 200 JSON.
-    fn json(&self, path: &str, token: &str) -> Value {
+    pub(crate) fn json(&self, path: &str, token: &str) -> Value {
         let (status, _, text) = self.request("GET", path, token, None, &[]);
         assert_eq!(status, 200, "GET {path}: {text}");
         serde_json::from_str(&text).unwrap_or_else(|e| panic!("GET {path}: not JSON ({e}): {text}"))
@@ -468,4 +468,41 @@ fn demo_generate_rewrites_the_committed_files_byte_for_byte() {
             .collect()
     };
     assert_eq!(keys(&c7), keys(&c8), "another seed keeps the calendar");
+}
+
+/// With `DISPAR_TEST_POSTGRES`: the demo loaded into PostgreSQL gives the same report JSON
+/// as the demo on SQLite (reports carry no timestamps unless `as_of` is given).
+#[test]
+fn the_demo_on_postgresql_gives_the_same_reports_as_on_sqlite() {
+    let Some(server) = dispar_system_tests::postgres_server() else {
+        return;
+    };
+    let pg = dispar_system_tests::PgDatabase::create(&server);
+    let on_pg = Demo::start(&["--database", &pg.url]);
+    let on_sqlite = Demo::start(&[]);
+    let (kp, ks) = (on_pg.line("read key: "), on_sqlite.line("read key: "));
+    for path in [
+        "/v1/reports?period=2026-W16&level=site",
+        "/v1/reports?period=2026-W09&level=line&site=MRQ",
+        "/v1/reports?period=2026-W20&level=line&site=SEM",
+        "/v1/reports?period=2026-04&level=all-lines",
+        "/v1/reports?period=2026-03-02..2026-03-20&level=site",
+        "/v1/reports?period=2026-03-18&level=line&site=MRQ",
+        "/v1/reports/series?from=2026-W02&to=2026-W26&level=site",
+        "/v1/reports/series?from=2026-01&to=2026-06&level=line&site=KES",
+    ] {
+        assert_eq!(on_pg.json(path, &kp), on_sqlite.json(path, &ks), "{path}");
+    }
+    // A demo never loads into a database that already holds sites.
+    let out = std::process::Command::new(dispar_bin())
+        .args(["demo", "--listen", "127.0.0.1:0", "--database", &pg.url])
+        .output()
+        .unwrap();
+    assert!(!out.status.success());
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("already holds 6 site(s)"), "{err}");
+    assert!(
+        !err.contains("dispar:dispar@"),
+        "no password in messages: {err}"
+    );
 }

@@ -6,9 +6,13 @@
 mod analyze;
 mod auth;
 mod bad_input;
+mod baselines;
 mod batch;
 mod counts;
+mod crash;
 mod demo;
+mod hostile;
+mod instances;
 mod openapi;
 mod operations;
 mod reports;

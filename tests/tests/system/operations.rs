@@ -442,3 +442,202 @@ fn the_concurrency_limit_queues_v1_requests_but_not_the_probes() {
     drop(stdin);
     let _ = holder.wait();
 }
+
+#[test]
+fn made_up_methods_do_not_grow_the_metrics() {
+    let s = Server::start();
+    let before = s.request("GET", "/metrics", None, Body::None).text.len();
+    for i in 0..300 {
+        let r = s.request(&format!("M{i:04}"), "/v1/sites", None, Body::None);
+        assert!(r.status >= 400, "{}", r.status);
+    }
+    let m = s.request("GET", "/metrics", None, Body::None).text;
+    assert!(!m.contains("M0007"), "no label per method token");
+    assert!(
+        m.contains(r#"method="other""#),
+        "the made-up methods are counted under one label"
+    );
+    // Two new series (the counter by status and the histogram), not 300 of each.
+    assert!(m.len() < before + 4_000, "{} -> {} bytes", before, m.len());
+}
+
+/// Reads from `stream` until the server closes it (Ok(bytes read)) or `limit` passes
+/// (Err). A 408 or nothing at all may come before the close.
+fn closed_within(
+    stream: &mut std::net::TcpStream,
+    limit: std::time::Duration,
+) -> Result<usize, ()> {
+    use std::io::Read as _;
+    let deadline = std::time::Instant::now() + limit;
+    let mut total = 0;
+    let mut buf = [0u8; 1024];
+    loop {
+        let left = deadline.saturating_duration_since(std::time::Instant::now());
+        if left.is_zero() {
+            return Err(());
+        }
+        stream.set_read_timeout(Some(left)).unwrap();
+        match stream.read(&mut buf) {
+            Ok(0) => return Ok(total),
+            Ok(n) => total += n,
+            Err(e) if e.kind() == std::io::ErrorKind::ConnectionReset => return Ok(total),
+            Err(_) => return Err(()),
+        }
+    }
+}
+
+#[test]
+fn a_client_trickling_headers_is_cut_off_at_the_header_timeout() {
+    use std::io::Write as _;
+    let s = Server::start_with(&["--header-timeout", "1s"]);
+    let addr = s.base.trim_start_matches("http://").to_owned();
+    let started = std::time::Instant::now();
+    let mut slow = std::net::TcpStream::connect(&addr).unwrap();
+    slow.write_all(b"GET /livez HTTP/1.1\r\nHost: x\r\n")
+        .unwrap();
+    // One more header line every 300 ms: never a whole request.
+    let mut trickle = slow.try_clone().unwrap();
+    let writer = std::thread::spawn(move || {
+        for i in 0..20 {
+            std::thread::sleep(std::time::Duration::from_millis(300));
+            if trickle
+                .write_all(format!("X-{i}: y\r\n").as_bytes())
+                .is_err()
+            {
+                return;
+            }
+        }
+    });
+    assert!(
+        closed_within(&mut slow, std::time::Duration::from_secs(5)).is_ok(),
+        "the trickling connection stays open"
+    );
+    let took = started.elapsed();
+    assert!(
+        took < std::time::Duration::from_secs(4),
+        "closed after {took:?}"
+    );
+    writer.join().unwrap();
+    // An idle keep-alive connection is closed after the same time.
+    let mut idle = std::net::TcpStream::connect(&addr).unwrap();
+    idle.write_all(b"GET /livez HTTP/1.1\r\nHost: x\r\n\r\n")
+        .unwrap();
+    let read = closed_within(&mut idle, std::time::Duration::from_secs(5));
+    assert!(
+        read.is_ok_and(|n| n > 0),
+        "answered, then closed when idle: {read:?}"
+    );
+    assert_eq!(s.request("GET", "/livez", None, Body::None).status, 200);
+}
+
+#[test]
+fn connections_past_the_cap_wait_until_one_closes() {
+    let s = Server::start_with(&["--max-connections", "3", "--header-timeout", "30s"]);
+    let addr = s.base.trim_start_matches("http://").to_owned();
+    // Three idle connections take every permit.
+    let idle: Vec<std::net::TcpStream> = (0..3)
+        .map(|_| std::net::TcpStream::connect(&addr).unwrap())
+        .collect();
+    std::thread::sleep(std::time::Duration::from_millis(300));
+    // A fourth request waits in the backlog (the TCP handshake completes, the request is
+    // not served)...
+    let (tx, rx) = std::sync::mpsc::channel();
+    let base = s.base.clone();
+    std::thread::spawn(move || {
+        let r = reqwest::blocking::Client::new()
+            .get(format!("{base}/livez"))
+            .send()
+            .map(|r| r.status().as_u16());
+        let _ = tx.send(r.ok());
+    });
+    assert!(
+        rx.recv_timeout(std::time::Duration::from_millis(800))
+            .is_err(),
+        "served past the cap"
+    );
+    // ...until one of the three closes.
+    drop(idle);
+    assert_eq!(
+        rx.recv_timeout(std::time::Duration::from_secs(10)).unwrap(),
+        Some(200)
+    );
+}
+
+#[test]
+fn slow_sign_in_forms_cannot_starve_the_api() {
+    use std::io::{Read as _, Write as _};
+    // A small API budget makes starvation easy to see: 4 API slots, 2 for pages.
+    let s = Server::start_with(&["--max-concurrency", "4", "--request-timeout", "20s"]);
+    s.site("S1", &["L1"]);
+    let read = s.key("read", &[]);
+    let addr = s.base.trim_start_matches("http://").to_owned();
+    // An announced body over the form limit is refused at once.
+    let mut big = std::net::TcpStream::connect(&addr).unwrap();
+    big.write_all(
+        b"POST /sign-in HTTP/1.1\r\nHost: x\r\nContent-Type: application/x-www-form-urlencoded\r\nContent-Length: 100000\r\n\r\nk",
+    )
+    .unwrap();
+    big.set_read_timeout(Some(std::time::Duration::from_secs(5)))
+        .unwrap();
+    let mut head = [0u8; 12];
+    big.read_exact(&mut head).unwrap();
+    assert_eq!(&head, b"HTTP/1.1 413", "{}", String::from_utf8_lossy(&head));
+    // Twelve clients trickle sign-in forms a byte every 400 ms.
+    let stop = std::sync::Arc::new(std::sync::atomic::AtomicBool::new(false));
+    let mut tricklers = Vec::new();
+    for _ in 0..12 {
+        let mut c = std::net::TcpStream::connect(&addr).unwrap();
+        c.write_all(
+            b"POST /sign-in HTTP/1.1\r\nHost: x\r\nContent-Type: application/x-www-form-urlencoded\r\nContent-Length: 4000\r\n\r\n",
+        )
+        .unwrap();
+        let stop = stop.clone();
+        tricklers.push(std::thread::spawn(move || {
+            let mut answer = Vec::new();
+            while !stop.load(std::sync::atomic::Ordering::Relaxed) {
+                if c.write_all(b"k").is_err() {
+                    // Closed after answering: the answer is still to be read.
+                    c.set_read_timeout(Some(std::time::Duration::from_secs(2)))
+                        .unwrap();
+                    let _ = c.read_to_end(&mut answer);
+                    break;
+                }
+                std::thread::sleep(std::time::Duration::from_millis(400));
+                c.set_nonblocking(true).unwrap();
+                let mut buf = [0u8; 256];
+                if let Ok(n) = c.read(&mut buf) {
+                    answer.extend_from_slice(&buf[..n]);
+                    if n > 0 {
+                        break;
+                    }
+                }
+                c.set_nonblocking(false).unwrap();
+            }
+            String::from_utf8_lossy(&answer).into_owned()
+        }));
+    }
+    std::thread::sleep(std::time::Duration::from_millis(500));
+    // The API answers at once meanwhile.
+    for _ in 0..3 {
+        let t = std::time::Instant::now();
+        let r = s.request(
+            "GET",
+            "/v1/reports?period=2026-W10",
+            Some(&read),
+            Body::None,
+        );
+        assert_eq!(r.status, 200, "{}", r.text);
+        assert!(
+            t.elapsed() < std::time::Duration::from_secs(3),
+            "{:?}",
+            t.elapsed()
+        );
+    }
+    // Each trickler is answered 408 once its form took longer than 5 s.
+    std::thread::sleep(std::time::Duration::from_secs(6));
+    stop.store(true, std::sync::atomic::Ordering::Relaxed);
+    for t in tricklers {
+        let answer = t.join().unwrap();
+        assert!(answer.starts_with("HTTP/1.1 408"), "{answer:?}");
+    }
+}

@@ -1106,3 +1106,233 @@ fn cpu_seconds(pid: u32) -> Option<f64> {
     let ticks: f64 = fields.get(11)?.parse::<f64>().ok()? + fields.get(12)?.parse::<f64>().ok()?;
     Some(ticks / 100.0)
 }
+
+/// A site with `n` small lines (40 units a day on 2026-03-02, a few defective): sparse,
+/// so Cochran's rule fails and the omnibus test is a Monte Carlo p-value.
+fn sparse_site(n: usize) -> Server {
+    let s = Server::start();
+    let lines: Vec<String> = (1..=n).map(|i| format!("L{i}")).collect();
+    let refs: Vec<&str> = lines.iter().map(String::as_str).collect();
+    s.site("S1", &refs);
+    let records: Vec<Value> = (1..=n)
+        .map(|i| {
+            json!({"site": "S1", "line": format!("L{i}"), "date": "2026-03-02",
+                   "inspected": 40, "defective": i % 3})
+        })
+        .collect();
+    let r = s.as_admin(
+        "POST",
+        "/v1/counts",
+        Body::Json(json!({ "records": records })),
+    );
+    assert_eq!(r.status, 201, "{}", r.text);
+    s
+}
+
+#[test]
+fn absurd_monte_carlo_work_is_refused_up_front_naming_resamples() {
+    let s = sparse_site(120);
+    let read = s.key("read", &[]);
+    // 10^6 resamples of a 120 x 2 table: 2.4 x 10^8 cells, over the bound.
+    let p = s
+        .request(
+            "GET",
+            "/v1/reports?period=2026-03-02&level=line&site=S1&resamples=1000000",
+            Some(&read),
+            Body::None,
+        )
+        .problem(422, "validation");
+    assert_eq!(p["errors"][0]["parameter"], "resamples", "{p}");
+    assert_eq!(p["errors"][0]["reason"], "too-costly", "{p}");
+    assert!(
+        p["errors"][0]["message"]
+            .as_str()
+            .unwrap()
+            .contains("at most 833333 resamples"),
+        "{p}"
+    );
+    // The default resamples are fine.
+    let r = s.request(
+        "GET",
+        "/v1/reports?period=2026-03-02&level=line&site=S1",
+        Some(&read),
+        Body::None,
+    );
+    assert_eq!(r.status, 200, "{}", r.text);
+    assert_eq!(r.json()["test"]["method"], "monte-carlo");
+}
+
+#[test]
+fn one_key_cannot_hold_every_report_slot() {
+    let s = sparse_site(120);
+    let heavy = s.key("read", &[]);
+    let light = s.key("read", &[]);
+    let started = std::time::Instant::now();
+    std::thread::scope(|scope| {
+        // Two heavy reports of one key at once (different resamples: two computations).
+        let a: Vec<_> = [100_000, 100_001]
+            .into_iter()
+            .map(|n| {
+                let (s, heavy) = (&s, &heavy);
+                scope.spawn(move || {
+                    let r = s.request(
+                        "GET",
+                        &format!("/v1/reports?period=2026-03-02&level=line&site=S1&method=exact&resamples={n}"),
+                        Some(heavy),
+                        Body::None,
+                    );
+                    assert_eq!(r.status, 200, "{}", r.text);
+                    started.elapsed()
+                })
+            })
+            .collect();
+        std::thread::sleep(std::time::Duration::from_millis(300));
+        // Another key's uncached report gets the other slot at once.
+        let r = s.request(
+            "GET",
+            "/v1/reports?period=2026-W10",
+            Some(&light),
+            Body::None,
+        );
+        assert_eq!(r.status, 200, "{}", r.text);
+        let light_done = started.elapsed();
+        let heavy_done: Vec<std::time::Duration> =
+            a.into_iter().map(|h| h.join().unwrap()).collect();
+        let first_heavy = heavy_done.iter().min().unwrap();
+        assert!(
+            light_done < *first_heavy,
+            "the other key waited for the heavy ones: light {light_done:?}, heavy {heavy_done:?}"
+        );
+    });
+}
+
+#[test]
+fn the_pages_answer_an_unknown_site_as_the_api_does() {
+    let s = Server::start();
+    s.site("S1", &["L1"]);
+    let read = s.key("read", &[]);
+    let http = reqwest::blocking::Client::builder()
+        .redirect(reqwest::redirect::Policy::none())
+        .build()
+        .unwrap();
+    let signed = http
+        .post(format!("{}/sign-in", s.base))
+        .header("origin", &s.base)
+        .form(&[("key", read.as_str())])
+        .send()
+        .unwrap();
+    assert_eq!(signed.status().as_u16(), 303);
+    let cookie = signed
+        .headers()
+        .get("set-cookie")
+        .and_then(|v| v.to_str().ok())
+        .and_then(|v| v.split(';').next())
+        .unwrap()
+        .to_owned();
+    for (page, api) in [
+        (
+            "/report?period=2026-W10&site=ZZZ",
+            "/v1/reports?period=2026-W10&site=ZZZ",
+        ),
+        (
+            "/series?from=2026-W08&to=2026-W10&site=ZZZ",
+            "/v1/reports/series?from=2026-W08&to=2026-W10&site=ZZZ",
+        ),
+    ] {
+        let p = http
+            .get(format!("{}{page}", s.base))
+            .header("cookie", &cookie)
+            .send()
+            .unwrap();
+        assert_eq!(p.status().as_u16(), 422, "{page}");
+        assert!(
+            p.text().unwrap().contains("ZZZ is not registered"),
+            "{page}"
+        );
+        let a = s.request("GET", api, Some(&read), Body::None);
+        assert_eq!(a.status, 422, "{api}");
+    }
+    let ok = http
+        .get(format!("{}/report?period=2026-W10&site=S1", s.base))
+        .header("cookie", &cookie)
+        .send()
+        .unwrap();
+    assert_eq!(ok.status().as_u16(), 200);
+}
+
+#[test]
+fn a_write_changes_the_etags_of_the_reports_that_read_it_and_no_others() {
+    let s = Server::start();
+    s.site("S1", &["L1", "L2"]);
+    s.site("S2", &["L1", "L2"]);
+    let read = s.key("read", &[]);
+    let seed: Vec<Value> = ["S1", "S2"]
+        .iter()
+        .flat_map(|site| {
+            ["L1", "L2"].map(|line| {
+                json!({"site": site, "line": line, "date": "2026-03-03",
+                       "inspected": 1_000, "defective": 10})
+            })
+        })
+        .collect();
+    let r = s.as_admin("POST", "/v1/counts", Body::Json(json!({ "records": seed })));
+    assert_eq!(r.status, 201, "{}", r.text);
+    let paths = [
+        "/v1/reports?period=2026-W10&level=site", // reads S1 on 2026-03-03
+        "/v1/reports?period=2026-W12&level=site", // its baseline window holds W10
+        "/v1/reports?period=2026-W10&level=line&site=S1", // S1's lines
+        "/v1/reports?period=2026-W10&level=line&site=S2", // not S1
+        "/v1/reports?period=2026-W40&level=site", // far from March, baseline too
+        "/v1/reports?period=2026-W12&level=site&baseline=off", // W12 alone
+        "/v1/reports/series?from=2026-W09&to=2026-W11", // covers it
+        "/v1/reports/series?from=2026-W30&to=2026-W32", // does not
+    ];
+    let tags = |s: &Server| -> Vec<String> {
+        paths
+            .iter()
+            .map(|p| {
+                let r = s.request("GET", p, Some(&read), Body::None);
+                assert_eq!(r.status, 200, "{p}: {}", r.text);
+                r.header("etag").unwrap().to_owned()
+            })
+            .collect()
+    };
+    let before = tags(&s);
+    let fix = s.as_admin(
+        "PUT",
+        "/v1/sites/S1/lines/L1/days/2026-03-03",
+        Body::Json(json!({"inspected": 1_000, "defective": 55})),
+    );
+    assert_eq!(fix.status, 200, "{}", fix.text);
+    let after = tags(&s);
+    let changed: Vec<bool> = before.iter().zip(&after).map(|(b, a)| b != a).collect();
+    assert_eq!(
+        changed,
+        [true, true, true, false, false, false, true, false],
+        "which ETags moved: {paths:?}"
+    );
+    // An unrelated report still answers 304 to its old tag; a covering one does not.
+    let unrelated = s.request_with(
+        "GET",
+        paths[4],
+        Some(&read),
+        Body::None,
+        &[("if-none-match", &before[4])],
+    );
+    assert_eq!(unrelated.status, 304);
+    let covering = s.request_with(
+        "GET",
+        paths[0],
+        Some(&read),
+        Body::None,
+        &[("if-none-match", &before[0])],
+    );
+    assert_eq!(covering.status, 200);
+    // A registry change moves them all.
+    s.site("S3", &["L1"]);
+    let registry = tags(&s);
+    assert!(
+        registry.iter().zip(&after).all(|(r, a)| r != a),
+        "{registry:?}"
+    );
+}

@@ -13,6 +13,7 @@ use dispar_stats::pairwise::{PairMethod, PairTest};
 use dispar_stats::table::Table;
 use dispar_stats::{NotTestable, NotTestableReason};
 
+use super::baseline::{BaselineWindow, Baselines, baselines};
 use super::model::{
     CategoryReport, CategoryTotal, CellRow, Ci, Excluded, Flag, FlagRule, Flagged, GroupRow,
     Margin, NotTestableNote, OverdispersionNote, PairRow, ParametersEcho, Report, SeriesPoint,
@@ -68,6 +69,9 @@ pub struct ReportRequest {
     /// follow-ups give up once it has passed (the report then says it could not be
     /// done). `None` (the CLI) never gives up.
     pub deadline: Option<std::time::Instant>,
+    /// The earlier periods' counts, when `parameters.baseline` asks for baselines
+    /// (`None`: the report has no baselines, as with `baseline=off`).
+    pub baseline: Option<BaselineWindow>,
 }
 
 /// Sum that stops at `u64::MAX` instead of wrapping (release) or panicking (debug).
@@ -124,6 +128,7 @@ fn echo(p: &Parameters, as_of: Option<String>) -> ParametersEcho {
         min_difference: p.min_difference,
         overdispersion: p.overdispersion,
         as_of,
+        baseline: p.baseline,
     }
 }
 
@@ -314,6 +319,21 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
             "Pairwise comparisons are not listed for more than {MAX_PAIRWISE_GROUPS} {between}; the flagged contributors show which ones stand out."
         ));
     }
+    let base: Option<Baselines> = match (&request.baseline, params.baseline) {
+        (Some(window), Some(_)) if request.period.is_some() => Some(baselines(window, &used)),
+        _ => None,
+    };
+    // With a baseline, overdispersion=widen widens by the usual spread between the groups
+    // over the baseline window, so a group's excursion in this period cannot widen its
+    // own limit; the analysis then flags with the plain limit and the widening follows.
+    let usual_phi = base
+        .as_ref()
+        .filter(|b| b.spread.periods > 0)
+        .and_then(|b| b.spread.phi.map(|phi| (phi, b.spread.periods)))
+        .filter(|_| params.overdispersion == DispersionChoice::Widen);
+    if usual_phi.is_some() {
+        opts.dispersion = Dispersion::Report;
+    }
     let pairs: Vec<(u64, u64)> = used.iter().map(|g| (g.inspected, g.defective)).collect();
     let analysis = analysis::analyze_rates(&pairs, &opts);
 
@@ -322,13 +342,22 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
         dates: request.period.map(|p| p.dates()),
         level: request.level,
         filters: request.filters.clone(),
-        parameters: echo(params, request.as_of.clone()),
+        // The echo says `baseline: null` unless the baselines were computed.
+        parameters: echo(
+            &Parameters {
+                baseline: params.baseline.filter(|_| base.is_some()),
+                ..params.clone()
+            },
+            request.as_of.clone(),
+        ),
         totals,
         test: None,
         validity: None,
         groups: Vec::new(),
         pairs: Vec::new(),
         flagged: Vec::new(),
+        changes: Vec::new(),
+        usual_spread: None,
         flag_rule: None,
         overdispersion: None,
         categories: categories(&used, &opts, between),
@@ -336,8 +365,17 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
         not_testable: None,
         cautions: Vec::new(),
     };
+    let unit = super::baseline::unit_of(request.period.as_ref());
     match analysis {
-        Ok(ra) => fill_from_analysis(&mut report, &used, &ra, alpha, between, &mut cautions),
+        Ok(ra) => fill_from_analysis(
+            &mut report,
+            &used,
+            &ra,
+            alpha,
+            (between, unit),
+            usual_phi,
+            &mut cautions,
+        ),
         Err(e) => {
             report.not_testable = Some(NotTestableNote {
                 reason: not_testable_words(&e, between, defective, inspected),
@@ -356,9 +394,17 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
                     adjusted_residual: None,
                     flag: None,
                     share_of_statistic: None,
+                    baseline: None,
                 })
                 .collect();
         }
+    }
+    if let Some(b) = base {
+        for (row, baseline) in report.groups.iter_mut().zip(b.rows) {
+            row.baseline = Some(baseline);
+        }
+        report.changes = b.changes;
+        report.usual_spread = Some(b.spread);
     }
     report.cautions = cautions;
     report
@@ -369,10 +415,14 @@ fn fill_from_analysis(
     used: &[&GroupCounts],
     ra: &RateAnalysis,
     alpha: f64,
-    between: &str,
+    (between, unit): (&str, &str),
+    usual_phi: Option<(f64, usize)>,
     cautions: &mut Vec<String>,
 ) {
     let a = &ra.test;
+    // The flag limit: the analysis's, or widened by the usual spread (phi over the
+    // baseline window) when overdispersion=widen has a baseline to draw it from.
+    let limit = usual_phi.map_or(ra.limit, |(phi, _)| ra.anom.h * phi.max(1.0).sqrt());
     report.test = Some(test_of(a, alpha, between, "defect rates"));
     report.validity = Some(validity_of(a));
     report.groups = ra
@@ -390,11 +440,17 @@ fn fill_from_analysis(
                 expected: s.expected,
                 contribution: Some(s.contribution),
                 adjusted_residual: Some(s.adjusted_residual),
-                flag: s.flag.map(|f| match f {
-                    analysis::Flag::Above => Flag::Above,
-                    analysis::Flag::Below => Flag::Below,
-                }),
+                flag: if usual_phi.is_some() {
+                    let r = s.adjusted_residual;
+                    (r.abs() > limit).then_some(if r > 0.0 { Flag::Above } else { Flag::Below })
+                } else {
+                    s.flag.map(|f| match f {
+                        analysis::Flag::Above => Flag::Above,
+                        analysis::Flag::Below => Flag::Below,
+                    })
+                },
                 share_of_statistic: Some(s.share_of_x2),
+                baseline: None,
             }
         })
         .collect();
@@ -432,27 +488,48 @@ fn fill_from_analysis(
             difference: p.difference,
             difference_ci: ci(p.difference_ci),
             statistic: p.statistic,
-            // An untestable pair (no defective, or no conforming unit, in either group)
-            // has no p and is outside the adjustment; the row keeps its former p = 1
-            // until the report model carries the reason.
-            p_value: p.p.unwrap_or(1.0),
-            log10_p: p.log10_p.unwrap_or(0.0),
-            p_adjusted: p.p_adjusted.unwrap_or(1.0),
+            p_value: p.p,
+            log10_p: p.log10_p,
+            p_adjusted: p.p_adjusted,
             significant: p.reject,
+            untestable: p.untestable.map(|u| u.reason().to_owned()),
             beyond_min_difference: p.practically_different,
         })
         .collect();
     let o = ra.overdispersion;
-    let widened = ra.limit > ra.anom.h;
-    let note = if !o.applied {
+    let widened = limit > ra.anom.h;
+    let note = if let Some((phi, periods)) = usual_phi {
+        let plural = if periods == 1 { "" } else { "s" };
+        if widened {
+            format!(
+                "phi = {:.3} over {} {between} in this period; the flag rule's limit was widened by the usual spread between them, sqrt(phi) = {:.3} from phi = {phi:.3} over the {periods} earlier {unit}{plural} of the baseline, so a {}'s change in this period does not widen its own limit.",
+                o.phi,
+                o.k,
+                phi.sqrt(),
+                between.trim_end_matches('s'),
+            )
+        } else {
+            format!(
+                "phi = {:.3} over {} {between} in this period; over the {periods} earlier {unit}{plural} of the baseline they usually vary no more than binomial sampling explains (phi = {phi:.3}), so the flag rule's limit was not widened.",
+                o.phi, o.k
+            )
+        }
+    } else if !o.applied {
         format!(
             "phi = {:.3} over {} {between}: no more variation between them than binomial sampling explains.",
             o.phi, o.k
         )
     } else if widened {
         format!(
-            "phi = {:.3} over {} {between}: they vary more than binomial sampling explains, so the flag rule's limit was widened by sqrt(phi) = {:.3}.",
-            o.phi, o.k, o.scale
+            "phi = {:.3} over {} {between}: they vary more than binomial sampling explains, so the flag rule's limit was widened by sqrt(phi) = {:.3}{}.",
+            o.phi,
+            o.k,
+            o.scale,
+            if report.parameters.baseline.is_some() {
+                " (this period's own estimate: there is no baseline window to estimate the usual spread from)"
+            } else {
+                ""
+            }
         )
     } else {
         format!(
@@ -466,7 +543,7 @@ fn fill_from_analysis(
             AnomMethod::SidakBound => "sidak-bound",
         },
         critical_value: ra.anom.h,
-        limit: ra.limit,
+        limit,
     });
     report.overdispersion = Some(OverdispersionNote {
         phi: o.phi,
@@ -657,8 +734,12 @@ pub fn analyze_rates(params: &Parameters, rows: &[RateRow]) -> Report {
             defects: BTreeMap::new(),
         })
         .collect();
+    // A file of rates has no earlier periods.
     let request = ReportRequest {
-        parameters: params.clone(),
+        parameters: Parameters {
+            baseline: None,
+            ..params.clone()
+        },
         ..ReportRequest::default()
     };
     build_report(&request, &groups)
@@ -688,7 +769,13 @@ pub fn analyze_table(params: &Parameters, table: &CountTable) -> TableReport {
         ));
     }
     TableReport {
-        parameters: echo(params, None),
+        parameters: echo(
+            &Parameters {
+                baseline: None,
+                ..params.clone()
+            },
+            None,
+        ),
         test: t.test.clone(),
         validity: t.validity.clone(),
         not_testable: t.not_testable.clone(),

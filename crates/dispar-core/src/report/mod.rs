@@ -5,14 +5,17 @@
 //!   `pairwise=auto|pearson|pearson-yates|fisher`, `adjust=holm|bonferroni|hochberg|bh`,
 //!   `level=site|line|all-lines`, `overdispersion=estimate|widen`) and [`Parameters`];
 //! - [`build`]: the pure builder ([`build_report`], [`analyze_rates`], [`analyze_table`]);
+//! - [`baseline`]: each group against its own earlier periods, changes, usual spread;
 //! - [`model`]: the report's fields (what the JSON holds);
 //! - [`text`]: `Report::to_text()` and `TableReport::to_text()`.
 
+pub mod baseline;
 pub mod build;
 pub mod model;
 pub mod params;
 pub mod text;
 
+pub use baseline::BaselineWindow;
 pub use build::{
     GroupCounts, ReportRequest, analyze_rates, analyze_table, build_report, build_summary,
 };

@@ -155,6 +155,125 @@ pub struct GroupRow {
     /// `contribution` / X^2, in [0, 1] (null when there is no test).
     #[serde(serialize_with = "opt_num")]
     pub share_of_statistic: Option<f64>,
+    /// The group's period against its own baseline (null with `baseline=off`).
+    pub baseline: Option<Baseline>,
+}
+
+/// A group's verdict against its own baseline.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum BaselineVerdict {
+    /// The period's rate is beyond the limit above the group's usual rate.
+    Worse,
+    /// The period's rate is beyond the limit below the group's usual rate.
+    Better,
+    /// Within the limit around the group's usual rate.
+    Usual,
+    /// Too few baseline periods with units, or no units in the period.
+    Unknown,
+}
+
+impl BaselineVerdict {
+    /// `worse`, `better`, `usual` or `unknown`.
+    pub fn as_str(&self) -> &'static str {
+        match self {
+            BaselineVerdict::Worse => "worse",
+            BaselineVerdict::Better => "better",
+            BaselineVerdict::Usual => "usual",
+            BaselineVerdict::Unknown => "unknown",
+        }
+    }
+
+    /// True for `worse` and `better`: the group changed.
+    pub fn is_change(&self) -> bool {
+        matches!(self, BaselineVerdict::Worse | BaselineVerdict::Better)
+    }
+}
+
+/// A group's period against its own baseline (the same group's earlier periods of the
+/// same kind).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Baseline {
+    /// The verdict.
+    pub verdict: BaselineVerdict,
+    /// The verdict's reason in words.
+    pub reason: String,
+    /// `normal` (Laney-adjusted z against the limit) or `exact` (small counts).
+    pub method: &'static str,
+    /// Pooled baseline rate (null when the baseline has no units).
+    #[serde(serialize_with = "opt_num")]
+    pub rate: Option<f64>,
+    /// Wilson interval of the baseline rate.
+    pub rate_ci: Option<Ci>,
+    /// Period rate / baseline rate.
+    #[serde(serialize_with = "opt_num")]
+    pub ratio: Option<f64>,
+    /// Interval of the ratio.
+    pub ratio_ci: Option<Ci>,
+    /// Period rate - baseline rate.
+    #[serde(serialize_with = "opt_num")]
+    pub difference: Option<f64>,
+    /// Interval of the difference.
+    pub difference_ci: Option<Ci>,
+    /// The z-score with the between-period variation folded in.
+    #[serde(serialize_with = "opt_num")]
+    pub z: Option<f64>,
+    /// The limit |z| was compared with.
+    #[serde(serialize_with = "num")]
+    pub limit: f64,
+    /// The between-period variation factor folded in (>= 1).
+    #[serde(serialize_with = "opt_num")]
+    pub dispersion: Option<f64>,
+    /// Baseline periods used.
+    pub periods: usize,
+    /// Labels of baseline periods left out as excursions (e.g. `2026-W09`).
+    pub left_out: Vec<String>,
+}
+
+/// One group's change: its verdict against its baseline is `worse` or `better`.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Change {
+    /// The group's code.
+    pub code: String,
+    /// The group's name, or null.
+    pub name: Option<String>,
+    /// `worse` or `better`.
+    pub verdict: BaselineVerdict,
+    /// The period's rate.
+    #[serde(serialize_with = "num")]
+    pub rate: f64,
+    /// The group's usual (baseline) rate.
+    #[serde(serialize_with = "num")]
+    pub baseline_rate: f64,
+    /// The z-score against the baseline.
+    #[serde(serialize_with = "num")]
+    pub z: f64,
+}
+
+/// The usual spread between the groups, estimated over the baseline window.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct UsualSpread {
+    /// Baseline periods the spread was estimated over.
+    pub periods: usize,
+    /// Multiplicative overdispersion over the baseline window (null when it cannot be
+    /// estimated).
+    #[serde(serialize_with = "opt_num")]
+    pub phi: Option<f64>,
+    /// Each group's standing over the baseline window.
+    pub groups: Vec<Standing>,
+}
+
+/// How often a group stood above or below the pooled rate over the baseline window.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct Standing {
+    /// The group's code.
+    pub code: String,
+    /// Baseline periods in which it was flagged above the pooled rate.
+    pub above: usize,
+    /// Baseline periods in which it was flagged below the pooled rate.
+    pub below: usize,
+    /// Baseline periods in which it had units.
+    pub periods: usize,
 }
 
 /// One pairwise follow-up.
@@ -174,17 +293,20 @@ pub struct PairRow {
     /// The chi-square statistic of the pair (absent for Fisher's test).
     #[serde(skip_serializing_if = "Option::is_none", serialize_with = "opt_num")]
     pub statistic: Option<f64>,
-    /// Raw p-value.
-    #[serde(serialize_with = "num")]
-    pub p_value: f64,
-    /// log10 of the raw p-value.
-    #[serde(serialize_with = "num")]
-    pub log10_p: f64,
-    /// Adjusted p-value.
-    #[serde(serialize_with = "num")]
-    pub p_adjusted: f64,
-    /// True when `p_adjusted < alpha`: significant at alpha.
+    /// Raw p-value (null for an untestable pair).
+    #[serde(serialize_with = "opt_num")]
+    pub p_value: Option<f64>,
+    /// log10 of the raw p-value (null for an untestable pair).
+    #[serde(serialize_with = "opt_num")]
+    pub log10_p: Option<f64>,
+    /// Adjusted p-value, over the testable pairs only (null for an untestable pair).
+    #[serde(serialize_with = "opt_num")]
+    pub p_adjusted: Option<f64>,
+    /// True when `p_adjusted < alpha`: significant at alpha (false when untestable).
     pub significant: bool,
+    /// Why the pair is no test (neither group has a defective unit, or neither a
+    /// conforming one), or null.
+    pub untestable: Option<String>,
     /// With a minimum difference of interest: true when the whole interval of the
     /// difference lies beyond it (|difference| surely larger); absent otherwise.
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -370,6 +492,8 @@ pub struct ParametersEcho {
     /// The `as_of` time the data were read at, echoed as given.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub as_of: Option<String>,
+    /// Earlier periods in each group's baseline, or null with `baseline=off`.
+    pub baseline: Option<usize>,
 }
 
 /// A rate comparison report (`GET /v1/reports`, `dispar report`, `dispar analyze`).
@@ -401,6 +525,11 @@ pub struct Report {
     pub pairs: Vec<PairRow>,
     /// Flagged contributors, largest share of X^2 first.
     pub flagged: Vec<Flagged>,
+    /// Groups worse or better than their own baseline, largest |z| first.
+    pub changes: Vec<Change>,
+    /// The usual spread between the groups over the baseline window, or null (no
+    /// baseline).
+    pub usual_spread: Option<UsualSpread>,
     /// The flag rule, or null when not testable.
     pub flag_rule: Option<FlagRule>,
     /// Overdispersion between the groups, or null when not testable.
@@ -459,6 +588,8 @@ pub struct SeriesPoint {
     pub verdict: String,
     /// Flagged groups, largest share of X^2 first.
     pub flagged: Vec<Flagged>,
+    /// Groups worse or better than their own baseline, largest |z| first.
+    pub changes: Vec<Change>,
 }
 
 impl Report {
@@ -480,6 +611,7 @@ impl Report {
                 (None, None) => String::new(),
             },
             flagged: self.flagged.clone(),
+            changes: self.changes.clone(),
         }
     }
 }

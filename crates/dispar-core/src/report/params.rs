@@ -203,7 +203,7 @@ impl Level {
 /// The statistical choices of a report or analysis, checked.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Parameters {
-    /// Significance level, in (0, 1).
+    /// Significance level, in [1e-12, 1).
     pub alpha: f64,
     /// Omnibus test.
     pub method: MethodChoice,
@@ -218,6 +218,48 @@ pub struct Parameters {
     pub min_difference: Option<f64>,
     /// Whether overdispersion widens flag limits.
     pub overdispersion: DispersionChoice,
+    /// Earlier periods of the same kind in each group's baseline (`baseline=N`), or
+    /// `None` for `baseline=off`.
+    pub baseline: Option<usize>,
+}
+
+/// Earlier periods in a baseline unless the caller says otherwise.
+pub const DEFAULT_BASELINE: usize = 8;
+/// Fewest earlier periods a caller may ask for (a moving range needs two).
+pub const MIN_BASELINE: usize = 2;
+/// Most earlier periods a caller may ask for (a year of weeks).
+pub const MAX_BASELINE: usize = 52;
+
+/// Parses `baseline=`: `off`, or a whole number of periods in
+/// [`MIN_BASELINE`]..=[`MAX_BASELINE`]; problems name the field `baseline`.
+pub fn parse_baseline(s: &str) -> Result<Option<usize>, FieldError> {
+    if s == "off" {
+        return Ok(None);
+    }
+    let n = s
+        .parse::<usize>()
+        .ok()
+        .filter(|_| s.bytes().all(|b| b.is_ascii_digit()))
+        .ok_or_else(|| {
+            FieldError::new(
+                "baseline",
+                crate::error::reason::NOT_A_NUMBER,
+                format!(
+                    "baseline must be off or a whole number of earlier periods ({MIN_BASELINE} to {MAX_BASELINE})"
+                ),
+            )
+        })?;
+    if (MIN_BASELINE..=MAX_BASELINE).contains(&n) {
+        Ok(Some(n))
+    } else {
+        Err(FieldError::new(
+            "baseline",
+            OUT_OF_RANGE,
+            format!(
+                "baseline must be {MIN_BASELINE} to {MAX_BASELINE} earlier periods, or off, got {n}"
+            ),
+        ))
+    }
 }
 
 impl Default for Parameters {
@@ -230,13 +272,14 @@ impl Default for Parameters {
             resamples: DEFAULT_RESAMPLES,
             min_difference: None,
             overdispersion: DispersionChoice::Estimate,
+            baseline: Some(DEFAULT_BASELINE),
         }
     }
 }
 
 /// The names of the statistical parameters, as query parameters and (with `-` for
 /// `_`) command-line flags; [`Parameters::from_text`] reads each by its name.
-pub const PARAMETER_NAMES: [&str; 7] = [
+pub const PARAMETER_NAMES: [&str; 8] = [
     "alpha",
     "method",
     "pairwise",
@@ -244,10 +287,16 @@ pub const PARAMETER_NAMES: [&str; 7] = [
     "resamples",
     "min_difference",
     "overdispersion",
+    "baseline",
 ];
 
+/// The smallest `alpha` a report accepts. Below it the intervals' confidence 1 - alpha
+/// rounds towards 1 in f64 (at 1.1e-16 it is exactly 1) and the limits ask for tail
+/// probabilities finer than the p-values are computed to (about 1e-12 relative).
+pub const MIN_ALPHA: f64 = 1e-12;
+
 impl Parameters {
-    /// Checks typed values: alpha in (0, 1) exclusive, resamples in 100..=1,000,000,
+    /// Checks typed values: alpha in [1e-12, 1) ([`MIN_ALPHA`]), resamples in 100..=1,000,000,
     /// min_difference finite in [0, 1). Errors name the fields `alpha`, `resamples`,
     /// `min_difference`.
     pub fn new(
@@ -259,11 +308,11 @@ impl Parameters {
         min_difference: Option<f64>,
     ) -> Result<Self, ValidationError> {
         let mut c = Collector::new();
-        if !(alpha > 0.0 && alpha < 1.0) {
+        if !(MIN_ALPHA..1.0).contains(&alpha) {
             c.push(FieldError::new(
                 "alpha",
                 OUT_OF_RANGE,
-                format!("alpha must be between 0 and 1 (exclusive), got {alpha}"),
+                format!("alpha must be from 1e-12 up to (not including) 1, got {alpha}"),
             ));
         }
         if !(MIN_RESAMPLES..=MAX_RESAMPLES).contains(&resamples) {
@@ -291,6 +340,7 @@ impl Parameters {
                 resamples,
                 min_difference,
                 overdispersion: DispersionChoice::Estimate,
+                baseline: Some(DEFAULT_BASELINE),
             })
         } else {
             Err(c.fail())
@@ -355,11 +405,13 @@ impl Parameters {
         let dispersion = text("overdispersion").map_or(Some(d.overdispersion), |s| {
             c.take(DispersionChoice::parse_field(s, "overdispersion"))
         });
-        match (method, pairwise, adjust, dispersion) {
-            (Some(m), Some(p), Some(a), Some(o)) => {
+        let baseline = text("baseline").map_or(Some(d.baseline), |s| c.take(parse_baseline(s)));
+        match (method, pairwise, adjust, dispersion, baseline) {
+            (Some(m), Some(p), Some(a), Some(o), Some(b)) => {
                 match Parameters::new(alpha, m, p, a, resamples, min_difference) {
                     Ok(v) if c.is_empty() => Ok(Parameters {
                         overdispersion: o,
+                        baseline: b,
                         ..v
                     }),
                     Ok(_) => Err(c.fail()),
@@ -440,6 +492,27 @@ mod tests {
         let mut fields: Vec<&str> = e.errors().iter().map(|f| f.field.as_str()).collect();
         fields.sort_unstable();
         assert_eq!(fields, ["alpha", "method", "min_difference", "resamples"]);
+    }
+
+    #[test]
+    fn alpha_runs_from_1e_12_up_to_1() {
+        let with = |a: f64| {
+            Parameters::new(
+                a,
+                MethodChoice::Auto,
+                PairwiseChoice::Auto,
+                AdjustChoice::Holm,
+                Parameters::default().resamples,
+                None,
+            )
+        };
+        assert!(with(MIN_ALPHA).is_ok());
+        assert!(with(0.999).is_ok());
+        // 5e-324 is the value schemathesis sent: it made the ANOM limit infinite.
+        for bad in [9.9e-13, 5e-324, 0.0, 1.0, f64::NAN] {
+            let e = with(bad).unwrap_err();
+            assert_eq!(e.errors()[0].field, "alpha", "{bad}");
+        }
     }
 
     #[test]

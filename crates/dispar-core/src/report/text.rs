@@ -9,8 +9,8 @@
 use std::fmt::Write as _;
 
 use super::model::{
-    CategoryReport, Ci, Excluded, GroupRow, PairRow, ParametersEcho, Report, TableAnalysis,
-    TableReport, Test, ValidityNotes,
+    BaselineVerdict, CategoryReport, Ci, Excluded, GroupRow, PairRow, ParametersEcho, Report,
+    TableAnalysis, TableReport, Test, ValidityNotes,
 };
 use super::params::LevelKind;
 
@@ -110,6 +110,9 @@ fn params_line(out: &mut String, p: &ParametersEcho) {
     if let Some(d) = p.min_difference {
         let _ = write!(out, ", min_difference {:.2} pp", d * 100.0);
     }
+    if let Some(n) = p.baseline {
+        let _ = write!(out, ", baseline {n}");
+    }
     if let Some(a) = &p.as_of {
         let _ = write!(out, ", data as of {a}");
     }
@@ -197,8 +200,12 @@ fn pair_rows(pairs: &[&PairRow], with_practical: bool) -> Vec<Vec<String>> {
                 p.method.to_owned(),
                 fmt_diff(p.difference),
                 fmt_diff_ci(&p.difference_ci),
-                fmt_p(p.p_value, p.log10_p),
-                fmt_p(p.p_adjusted, p.p_adjusted.max(f64::MIN_POSITIVE).log10()),
+                match (p.p_value, p.log10_p) {
+                    (Some(v), Some(l)) => fmt_p(v, l),
+                    _ => "untestable".to_owned(),
+                },
+                p.p_adjusted
+                    .map_or_else(String::new, |a| fmt_p(a, a.max(f64::MIN_POSITIVE).log10())),
                 if p.significant { "yes" } else { "no" }.to_owned(),
             ];
             if with_practical {
@@ -277,6 +284,40 @@ fn categories_lines(out: &mut String, c: &CategoryReport, alpha: f64) {
     analysis_lines(out, &c.association, alpha);
 }
 
+/// Each group against its own baseline, changes first.
+fn baseline_lines(out: &mut String, r: &Report) {
+    let rows: Vec<Vec<String>> = r
+        .groups
+        .iter()
+        .filter_map(|g| {
+            let b = g.baseline.as_ref()?;
+            Some(vec![
+                labelled(&g.code, g.name.as_deref()),
+                b.verdict.as_str().to_owned(),
+                fmt_rate(g.rate),
+                b.rate.map_or_else(String::new, fmt_rate),
+                b.ratio.map_or_else(String::new, |x| format!("{x:.2}")),
+                b.z.map_or_else(String::new, |z| format!("{z:+.2}")),
+                format!("{:.2}", b.limit),
+                b.periods.to_string(),
+                b.reason.clone(),
+            ])
+        })
+        .collect();
+    if rows.is_empty() {
+        return;
+    }
+    out.push_str("Against each group's own baseline:\n");
+    table(
+        out,
+        &[
+            "group", "verdict", "rate", "usual", "ratio", "z", "limit", "periods", "reason",
+        ],
+        &rows,
+    );
+    out.push('\n');
+}
+
 fn cautions_lines(out: &mut String, cautions: &[String]) {
     out.push_str("\nCautions:\n");
     for c in cautions {
@@ -284,7 +325,112 @@ fn cautions_lines(out: &mut String, cautions: &[String]) {
     }
 }
 
+/// "site" or "line" for the groups of a report.
+fn group_word(level: Option<LevelKind>) -> (&'static str, &'static str) {
+    match level {
+        Some(LevelKind::Site) => ("site", "sites"),
+        Some(LevelKind::Line | LevelKind::AllLines) => ("line", "lines"),
+        None => ("group", "groups"),
+    }
+}
+
 impl Report {
+    /// The report's verdict in words, leading with what changed: the groups worse or
+    /// better than their own usual, then the persistent differences between the
+    /// groups, then the binomial test's verdict with the volume caveat where it
+    /// applies. E.g. "KES worse than its usual (2.02% against about 0.71%); the other
+    /// sites as usual. The sites also differ as they usually do: ... Significant at
+    /// α = 0.05: ...".
+    pub fn headline(&self) -> String {
+        let (one, many) = group_word(self.level);
+        let unit = super::baseline::unit_of(self.period.as_ref());
+        let mut parts: Vec<String> = Vec::new();
+        let with_baseline: Vec<&GroupRow> = self
+            .groups
+            .iter()
+            .filter(|g| g.baseline.is_some())
+            .collect();
+        if !with_baseline.is_empty() {
+            let mut s = if self.changes.is_empty() {
+                format!("No {one} is worse or better than its usual")
+            } else {
+                self.changes
+                    .iter()
+                    .map(|c| {
+                        format!(
+                            "{} {} than its usual ({} against about {})",
+                            c.code,
+                            c.verdict.as_str(),
+                            fmt_rate(c.rate),
+                            fmt_rate(c.baseline_rate)
+                        )
+                    })
+                    .collect::<Vec<_>>()
+                    .join("; ")
+            };
+            let unknown = with_baseline
+                .iter()
+                .filter(|g| {
+                    g.baseline
+                        .as_ref()
+                        .is_some_and(|b| b.verdict == BaselineVerdict::Unknown)
+                })
+                .count();
+            let usual = with_baseline
+                .iter()
+                .filter(|g| {
+                    g.baseline
+                        .as_ref()
+                        .is_some_and(|b| b.verdict == BaselineVerdict::Usual)
+                })
+                .count();
+            if !self.changes.is_empty() && usual > 0 {
+                s.push_str(&format!("; the other {many} as usual"));
+            }
+            if unknown > 0 {
+                s.push_str(&format!(
+                    " ({unknown} {} without enough earlier {unit}s to tell)",
+                    if unknown == 1 { one } else { many }
+                ));
+            }
+            s.push('.');
+            parts.push(s);
+        }
+        if let Some(spread) = &self.usual_spread {
+            let persistent = super::baseline::persistent_words(spread, unit);
+            let differ = self.test.as_ref().is_some_and(|t| t.significant);
+            let usually = spread.phi.is_some_and(|phi| phi > 1.0);
+            if differ && usually {
+                let mut s = format!("The {many} also differ as they usually do");
+                if !persistent.is_empty() {
+                    s.push_str(&format!(": {}", persistent.join("; ")));
+                }
+                s.push('.');
+                parts.push(s);
+            } else if !persistent.is_empty() {
+                parts.push(format!(
+                    "Persistent differences: {}.",
+                    persistent.join("; ")
+                ));
+            }
+        }
+        match (&self.test, &self.not_testable) {
+            (Some(t), _) => {
+                parts.push(t.verdict.clone());
+                if let Some(c) = self
+                    .cautions
+                    .iter()
+                    .find(|c| c.contains("even small differences are statistically significant"))
+                {
+                    parts.push(c.clone());
+                }
+            }
+            (None, Some(n)) => parts.push(format!("Not testable: {}.", n.reason)),
+            (None, None) => {}
+        }
+        parts.join(" ")
+    }
+
     /// The report as readable text for a terminal.
     pub fn to_text(&self) -> String {
         let mut out = String::new();
@@ -313,6 +459,8 @@ impl Report {
         params_line(&mut out, &self.parameters);
         out.push('\n');
         let alpha = self.parameters.alpha;
+        let _ = writeln!(out, "{}\n", self.headline());
+        baseline_lines(&mut out, self);
         match (&self.test, &self.not_testable) {
             (Some(t), _) => test_lines(&mut out, t, self.validity.as_ref(), alpha),
             (None, Some(nt)) => {

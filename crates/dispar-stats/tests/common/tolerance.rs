@@ -90,7 +90,8 @@ pub const ANOM_FORMULA_ABS: f64 = 1e-9;
 
 /// Baseline comparison against the Python reference (tools/reference/baseline_fixtures.py):
 /// the same arithmetic in float64 (sums of integers exact, a handful of divisions, square
-/// roots and logs; the moving ranges add up at most a few dozen terms): relative.
+/// roots and logs; X² adds up at most a few dozen terms), and the t limit from statrs'
+/// incomplete beta polished by Newton against scipy's t.isf (within 1e-12, tested in src/baseline.rs): relative.
 pub const BASELINE_REL: f64 = 1e-11;
 
 /// z near 0 (a period at its baseline rate) has no relative accuracy to speak of: an

@@ -7,11 +7,10 @@ use sqlx::sqlite::{
 };
 use sqlx::{Sqlite, Transaction};
 
+pub(super) use crate::decode::{parse_code, to_u64};
 use crate::error::StoreError;
 use crate::options::OpenOptions;
-
-/// Distinct keys (5 binds each) or ids per lookup query.
-pub(super) const LOOKUP_CHUNK: usize = 500;
+use crate::sql::{BUMP_DATA_VERSION, MARK_REGISTRY_VERSION};
 
 /// The embedded SQLite migrations (this crate's `migrations/sqlite`).
 pub static MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("migrations/sqlite");
@@ -77,25 +76,18 @@ impl SqliteStore {
     }
 }
 
-/// Bumps the data version (inside a write transaction that changed report input).
-pub(super) async fn bump_data_version(tx: &mut WriteTx) -> Result<(), StoreError> {
-    sqlx::query("UPDATE store_state SET data_version = data_version + 1 WHERE id = 1")
+/// Bumps the data version and marks it as the registry's (inside a write transaction
+/// that changed a site or line).
+pub(super) async fn bump_registry_version(tx: &mut WriteTx) -> Result<(), StoreError> {
+    bump_data_version(tx).await?;
+    sqlx::query(MARK_REGISTRY_VERSION)
         .execute(&mut **tx)
         .await?;
     Ok(())
 }
 
-/// Converts a stored non-negative integer.
-pub(super) fn to_u64(v: i64, what: &str) -> Result<u64, StoreError> {
-    u64::try_from(v).map_err(|_| StoreError::internal(format!("stored {what} {v} is negative")))
-}
-
-/// Parses a stored code of type `T`.
-pub(super) fn parse_code<T>(s: &str) -> Result<T, StoreError>
-where
-    T: FromStr,
-    T::Err: std::fmt::Display,
-{
-    T::from_str(s)
-        .map_err(|e| StoreError::internal(format!("stored code {s:?} is unreadable: {e}")))
+/// Bumps the data version (inside a write transaction that changed report input).
+pub(super) async fn bump_data_version(tx: &mut WriteTx) -> Result<(), StoreError> {
+    sqlx::query(BUMP_DATA_VERSION).execute(&mut **tx).await?;
+    Ok(())
 }

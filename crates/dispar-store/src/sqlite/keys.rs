@@ -1,36 +1,15 @@
 //! API keys.
 
-use std::collections::BTreeMap;
-
 use dispar_core::code::SiteCode;
 use sqlx::QueryBuilder;
 use sqlx::Sqlite;
 use time::OffsetDateTime;
 
 use super::db::{SqliteStore, parse_code};
+use crate::decode::{KEY_COLUMNS, KeyRow, key_from_row, keys_from_rows};
 use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
-use crate::timestamp::{format_instant, parse_instant};
-
-type KeyRow = (i64, String, Option<String>, Vec<u8>, String, Option<String>);
-
-fn key_from_row(row: KeyRow, sites: Vec<SiteCode>) -> Result<ApiKey, StoreError> {
-    let (id, role, label, secret_hash, created_at, revoked_at) = row;
-    Ok(ApiKey {
-        id,
-        role: role
-            .parse::<KeyRole>()
-            .map_err(|e| StoreError::internal(format!("stored key {id}: {e}")))?,
-        sites,
-        label,
-        secret_hash,
-        created_at: parse_instant(&created_at)?,
-        revoked_at: revoked_at.as_deref().map(parse_instant).transpose()?,
-    })
-}
-
-const KEY_COLUMNS: &str =
-    "SELECT id, role, label, secret_hash, created_at, revoked_at FROM api_keys";
+use crate::timestamp::format_instant;
 
 impl SqliteStore {
     pub(super) async fn create_key_impl(
@@ -101,16 +80,7 @@ impl SqliteStore {
                 .fetch_all(&mut *tx)
                 .await?;
         tx.rollback().await?;
-        let mut sites: BTreeMap<i64, Vec<SiteCode>> = BTreeMap::new();
-        for (id, site) in site_rows {
-            sites.entry(id).or_default().push(parse_code(&site)?);
-        }
-        rows.into_iter()
-            .map(|row| {
-                let s = sites.remove(&row.0).unwrap_or_default();
-                key_from_row(row, s)
-            })
-            .collect()
+        keys_from_rows(rows, site_rows)
     }
 
     pub(super) async fn revoke_key_impl(&self, id: KeyId) -> Result<(), StoreError> {

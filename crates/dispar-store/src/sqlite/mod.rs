@@ -20,7 +20,8 @@ use async_trait::async_trait;
 use dispar_core::code::SiteCode;
 use dispar_core::record::{CountRecord, RecordKey};
 use dispar_core::site::{Line, Site};
-use time::OffsetDateTime;
+use sqlx::Sqlite;
+use time::{Date, OffsetDateTime};
 
 pub use self::db::SqliteStore;
 use self::db::to_u64;
@@ -29,10 +30,11 @@ use crate::counts::{
 };
 use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
-use crate::reports::{Aggregate, AggregateQuery};
+use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate, VersionScope};
 use crate::sessions::{NewPageSession, PageSession};
 use crate::sites::{SiteWithLines, Upserted};
-use crate::store::{Store, StoreStats};
+use crate::sql::{DATA_VERSION, STATS, Sql};
+use crate::store::{Store, StoreStats, stats_from_row};
 
 #[async_trait]
 impl Store for SqliteStore {
@@ -168,27 +170,31 @@ impl Store for SqliteStore {
         self.aggregate_impl(query).await
     }
 
+    async fn aggregate_buckets(
+        &self,
+        query: &AggregateQuery,
+        buckets: &[(Date, Date)],
+    ) -> Result<BucketedAggregate, StoreError> {
+        self.aggregate_buckets_impl(query, buckets).await
+    }
+
     async fn data_version(&self) -> Result<u64, StoreError> {
-        let v: i64 = sqlx::query_scalar("SELECT data_version FROM store_state WHERE id = 1")
+        let v: i64 = sqlx::query_scalar(DATA_VERSION)
             .fetch_one(&self.reader)
             .await?;
         to_u64(v, "data version")
     }
 
+    async fn scoped_version(&self, scope: &VersionScope) -> Result<u64, StoreError> {
+        let (days, registry): (i64, i64) = Sql::<Sqlite>::scoped_version(scope)
+            .build_query_as()
+            .fetch_one(&self.reader)
+            .await?;
+        to_u64(days.max(registry), "scoped version")
+    }
+
     async fn stats(&self) -> Result<StoreStats, StoreError> {
-        let row: (i64, i64, i64, i64, i64) = sqlx::query_as(
-            "SELECT (SELECT COUNT(*) FROM sites), (SELECT COUNT(*) FROM lines), \
-             (SELECT COUNT(*) FROM count_revisions), (SELECT COUNT(*) FROM counts_current), \
-             (SELECT COUNT(*) FROM api_keys)",
-        )
-        .fetch_one(&self.reader)
-        .await?;
-        Ok(StoreStats {
-            sites: to_u64(row.0, "count")?,
-            lines: to_u64(row.1, "count")?,
-            revisions: to_u64(row.2, "count")?,
-            records: to_u64(row.3, "count")?,
-            keys: to_u64(row.4, "count")?,
-        })
+        let row = sqlx::query_as(STATS).fetch_one(&self.reader).await?;
+        stats_from_row(row)
     }
 }

@@ -1,34 +1,12 @@
 //! Sites and lines.
 
 use dispar_core::code::SiteCode;
-use dispar_core::site::{Line, LineName, Site, SiteName, TimeZoneName};
+use dispar_core::site::{Line, Site};
 
-use super::db::{SqliteStore, bump_data_version, parse_code};
+use super::db::{SqliteStore, bump_registry_version};
+use crate::decode::{line_from_row, site_from_row};
 use crate::error::StoreError;
 use crate::sites::{SiteWithLines, Upserted};
-
-fn site_from_row(code: &str, name: &str, time_zone: Option<&str>) -> Result<Site, StoreError> {
-    Ok(Site {
-        code: parse_code(code)?,
-        name: SiteName::parse_field(name, "name")
-            .map_err(|e| StoreError::internal(format!("stored site name: {}", e.message)))?,
-        time_zone: time_zone
-            .map(|tz| TimeZoneName::parse_field(tz, "time_zone"))
-            .transpose()
-            .map_err(|e| StoreError::internal(format!("stored time zone: {}", e.message)))?,
-    })
-}
-
-fn line_from_row(site: &str, code: &str, name: Option<&str>) -> Result<Line, StoreError> {
-    Ok(Line {
-        site: parse_code(site)?,
-        code: parse_code(code)?,
-        name: name
-            .map(|n| LineName::parse_field(n, "name"))
-            .transpose()
-            .map_err(|e| StoreError::internal(format!("stored line name: {}", e.message)))?,
-    })
-}
 
 impl SqliteStore {
     pub(super) async fn upsert_site_impl(&self, site: &Site) -> Result<Upserted, StoreError> {
@@ -62,7 +40,7 @@ impl SqliteStore {
             }
         };
         if done != Upserted::Unchanged {
-            bump_data_version(&mut tx).await?;
+            bump_registry_version(&mut tx).await?;
         }
         tx.commit().await?;
         Ok(done)
@@ -108,7 +86,7 @@ impl SqliteStore {
             }
         };
         if done != Upserted::Unchanged {
-            bump_data_version(&mut tx).await?;
+            bump_registry_version(&mut tx).await?;
         }
         tx.commit().await?;
         Ok(done)

@@ -353,3 +353,253 @@ async fn monthly_sums_stay_equal_to_the_daily_data_through_corrections() {
     // a: 5 + 1 + 4 + 5 + 0 + 4 = 19; b: five records still carry b = 1.
     assert_eq!(c, [("a", 19), ("b", 5)]);
 }
+
+/// Every day of 2026-01..03 for S1, S2 (lines L1, L2); S3 has none. Counts vary by day so
+/// a bucket summed over the wrong days shows.
+async fn three_months() -> crate::helpers::TestDb {
+    let db = fresh().await;
+    registry(db.store.as_ref(), 3, 2).await;
+    let start = time::macros::date!(2026 - 01 - 01);
+    let mut batch = Vec::new();
+    for d in 0..90u64 {
+        let day = start + time::Duration::days(d as i64);
+        for (s, site) in ["S1", "S2"].iter().enumerate() {
+            for (l, line) in ["L1", "L2"].iter().enumerate() {
+                let inspected = 100 + d * 3 + 17 * s as u64 + 5 * l as u64;
+                batch.push(rec(site, line, day, inspected, (d * 7 + s as u64) % 11));
+            }
+        }
+    }
+    db.store.put_batch(&batch, None, None).await.expect("seed");
+    db
+}
+
+/// Bucket i of `aggregate_buckets` equals `aggregate` over bucket i clipped to the query's
+/// range (defects aside: the buckets do not read them).
+async fn buckets_match_one_aggregate_each(
+    db: &crate::helpers::TestDb,
+    q: &AggregateQuery,
+    buckets: &[(Date, Date)],
+) {
+    let b = db
+        .store
+        .aggregate_buckets(q, buckets)
+        .await
+        .expect("buckets");
+    assert_eq!(b.buckets.len(), buckets.len());
+    for (got, &(lo, hi)) in b.buckets.iter().zip(buckets) {
+        let mut one = q.clone();
+        one.from = lo.max(q.from);
+        one.to = hi.min(q.to);
+        let want = if one.from <= one.to {
+            summary(&db.store.aggregate(&one).await.expect("aggregate").groups)
+        } else {
+            summary(
+                &got.iter()
+                    .map(|g| GroupTotals {
+                        inspected: 0,
+                        defective: 0,
+                        ..g.clone()
+                    })
+                    .collect::<Vec<_>>(),
+            )
+        };
+        assert_eq!(summary(got), want, "bucket {lo}..{hi} of {q:?}");
+        assert!(got.iter().all(|g| g.defects.is_empty()));
+    }
+}
+
+#[tokio::test]
+async fn buckets_sum_like_one_aggregate_per_bucket_from_days_months_and_history() {
+    use time::macros::date;
+    let db = three_months().await;
+    let days: Vec<(Date, Date)> = (0..10)
+        .map(|i| {
+            let d = date!(2026 - 02 - 20) + time::Duration::days(i);
+            (d, d)
+        })
+        .collect();
+    // ISO weeks 2026-W02..W09, and two overlapping ranges (a day in both counts in both).
+    let weeks: Vec<(Date, Date)> = (0..8)
+        .map(|i| {
+            let monday = date!(2026 - 01 - 05) + time::Duration::weeks(i);
+            (monday, monday + time::Duration::days(6))
+        })
+        .chain([
+            (date!(2026 - 01 - 10), date!(2026 - 01 - 20)),
+            (date!(2026 - 01 - 15), date!(2026 - 01 - 25)),
+        ])
+        .collect();
+    // Whole months: read from the monthly sums.
+    let months = vec![
+        (date!(2026 - 01 - 01), date!(2026 - 01 - 31)),
+        (date!(2026 - 02 - 01), date!(2026 - 02 - 28)),
+        (date!(2026 - 03 - 01), date!(2026 - 03 - 31)),
+    ];
+    let all = query(
+        Level::AllLines,
+        date!(2026 - 01 - 01),
+        date!(2026 - 03 - 31),
+    );
+    for level in [
+        Level::Site,
+        Level::AllLines,
+        Level::Line {
+            site: site_code("S2"),
+        },
+    ] {
+        let q = AggregateQuery {
+            level,
+            ..all.clone()
+        };
+        for buckets in [&days, &weeks, &months] {
+            buckets_match_one_aggregate_each(&db, &q, buckets).await;
+        }
+    }
+    // The query's range clips the buckets: days outside it count in none.
+    let narrow = query(Level::Site, date!(2026 - 01 - 14), date!(2026 - 02 - 10));
+    buckets_match_one_aggregate_each(&db, &narrow, &weeks).await;
+    buckets_match_one_aggregate_each(&db, &narrow, &months).await;
+    // A bucket wholly outside the range is all zeros, the registered groups still listed.
+    let outside = [(date!(2025 - 12 - 01), date!(2025 - 12 - 31))];
+    let b = db
+        .store
+        .aggregate_buckets(&narrow, &outside)
+        .await
+        .expect("outside");
+    assert_eq!(b.buckets[0].len(), 3);
+    assert!(
+        b.buckets[0]
+            .iter()
+            .all(|g| g.inspected == 0 && g.defective == 0)
+    );
+
+    // History: after a correction, as_of before it gives the old sums in every bucket.
+    let published_at = db
+        .store
+        .record_history(&key("S1", "L1", None, date!(2026 - 01 - 12)))
+        .await
+        .expect("history")[0]
+        .recorded_at;
+    let before = db
+        .store
+        .aggregate_buckets(&all, &weeks)
+        .await
+        .expect("before");
+    db.store
+        .put_record(&rec("S1", "L1", date!(2026 - 01 - 12), 5_000, 400), None)
+        .await
+        .expect("correction");
+    let after = db
+        .store
+        .aggregate_buckets(&all, &weeks)
+        .await
+        .expect("after");
+    assert_ne!(summary(&after.buckets[1]), summary(&before.buckets[1]));
+    assert!(after.data_version > before.data_version);
+    let mut then = all.clone();
+    then.as_of = Some(published_at);
+    let old = db
+        .store
+        .aggregate_buckets(&then, &weeks)
+        .await
+        .expect("as of");
+    for (o, b) in old.buckets.iter().zip(&before.buckets) {
+        assert_eq!(summary(o), summary(b));
+    }
+    // As of now the history gives the current sums, day and month buckets alike.
+    let mut now = all.clone();
+    now.as_of = Some(time::OffsetDateTime::now_utc());
+    for buckets in [&days, &weeks, &months] {
+        buckets_match_one_aggregate_each(&db, &now, buckets).await;
+        let current = db
+            .store
+            .aggregate_buckets(&all, buckets)
+            .await
+            .expect("current");
+        let history = db
+            .store
+            .aggregate_buckets(&now, buckets)
+            .await
+            .expect("history");
+        assert_eq!(current.buckets, history.buckets);
+    }
+}
+
+#[tokio::test]
+async fn scoped_versions_rise_only_for_the_days_and_sites_written() {
+    use dispar_store::VersionScope;
+    use time::macros::date;
+    let db = seeded().await; // S1..S3 with L1, L2; counts on D1..D3 (2026-03-02..04)
+    let scope = |from: Date, to: Date, site: Option<&str>| VersionScope {
+        from,
+        to,
+        site: site.map(site_code),
+    };
+    let v = |s: VersionScope| {
+        let store = db.store.clone();
+        async move { store.scoped_version(&s).await.expect("scoped version") }
+    };
+    let march = scope(date!(2026 - 03 - 01), date!(2026 - 03 - 31), None);
+    let april = scope(date!(2026 - 04 - 01), date!(2026 - 04 - 30), None);
+    let s1_march = scope(date!(2026 - 03 - 01), date!(2026 - 03 - 31), Some("S1"));
+    let s3_march = scope(date!(2026 - 03 - 01), date!(2026 - 03 - 31), Some("S3"));
+    let d2_only = scope(D2, D2, None);
+    let before = [
+        v(march.clone()).await,
+        v(april.clone()).await,
+        v(s1_march.clone()).await,
+        v(s3_march.clone()).await,
+        v(d2_only.clone()).await,
+    ];
+    let global = db.store.data_version().await.expect("version");
+    assert!(
+        before.iter().all(|&x| x <= global),
+        "{before:?} <= {global}"
+    );
+
+    // A correction of S1 L1 on D1.
+    db.store
+        .put_record(&rec("S1", "L1", D1, 100, 9), None)
+        .await
+        .expect("correction");
+    let after = db.store.data_version().await.expect("version");
+    assert!(after > global);
+    assert_eq!(v(march.clone()).await, after, "March holds the day written");
+    assert_eq!(v(s1_march.clone()).await, after, "so does S1's March");
+    assert_eq!(v(april.clone()).await, before[1], "April does not");
+    assert_eq!(v(s3_march.clone()).await, before[3], "S3's March does not");
+    assert_eq!(v(d2_only.clone()).await, before[4], "another day does not");
+
+    // An unchanged write moves nothing.
+    db.store
+        .put_record(&rec("S1", "L1", D1, 100, 9), None)
+        .await
+        .expect("unchanged");
+    assert_eq!(db.store.data_version().await.expect("version"), after);
+    assert_eq!(v(march.clone()).await, after);
+
+    // A batch over two sites and days raises each of them, once.
+    db.store
+        .put_batch(
+            &[rec("S3", "L1", D2, 10, 1), rec("S2", "L2", D2, 10, 1)],
+            None,
+            None,
+        )
+        .await
+        .expect("batch");
+    let batch = db.store.data_version().await.expect("version");
+    assert_eq!(v(s3_march.clone()).await, batch);
+    assert_eq!(v(d2_only.clone()).await, batch);
+    assert_eq!(v(s1_march.clone()).await, after, "S1 was not in the batch");
+
+    // A registry change raises every scope, April's too.
+    db.store
+        .upsert_site(&crate::helpers::site("S9", "Site nine"))
+        .await
+        .expect("new site");
+    let registry = db.store.data_version().await.expect("version");
+    for s in [march, april, s1_march, s3_march, d2_only] {
+        assert_eq!(v(s).await, registry);
+    }
+}

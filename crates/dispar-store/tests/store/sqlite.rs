@@ -156,8 +156,8 @@ async fn data_survive_closing_and_reopening_and_migrations_run_once() {
         .fetch_one(&sqlx::SqlitePool::connect(&url).await.expect("pool"))
         .await
         .expect("count");
-    // 0001_initial and 0002_page_sessions, each applied once.
-    assert_eq!(migrations, 2);
+    // 0001_initial, 0002_page_sessions and 0003_day_versions, each applied once.
+    assert_eq!(migrations, 3);
 }
 
 #[tokio::test]

@@ -39,7 +39,7 @@ pub struct AnalyzeArgs {
     /// CSV file to read; `-` reads standard input.
     #[arg(value_name = "FILE", default_value = "-")]
     pub file: PathBuf,
-    /// Significance level, between 0 and 1.
+    /// Significance level, from 1e-12 up to (not including) 1.
     #[arg(long, default_value_t = 0.05)]
     pub alpha: f64,
     /// Omnibus test: auto (Pearson when Cochran's rule holds, else exact), pearson, g, exact.

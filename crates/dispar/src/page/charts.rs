@@ -1,6 +1,7 @@
 //! Server-side SVG charts: group rates with their intervals ([`RatesChart`]), the
-//! funnel of rate against units inspected ([`FunnelChart`]), and the strip of
-//! verdicts over periods ([`SeriesChart`]).
+//! funnel of rate against units inspected ([`FunnelChart`]), the test's reference
+//! distribution ([`ReferenceChart`]), and the strip of verdicts over periods
+//! ([`SeriesChart`]).
 //!
 //! Each chart is a model (plain geometry and words, computed from the report by its
 //! `of` function) and its markup (the `Render` impl, through maud, which escapes every
@@ -16,7 +17,7 @@ use dispar_core::report::{Report, SeriesPoint};
 use dispar_stats::funnel::Funnel;
 use maud::{Markup, Render, html};
 
-use super::format::{coord, fmt_count, fmt_pct, p_equals};
+use super::format::{coord, fmt_count, fmt_num, fmt_pct, p_equals};
 
 /// Coverage of the funnel's inner limits (two-sided).
 pub const INNER_COVERAGE: f64 = 0.95;
@@ -34,6 +35,9 @@ const SERIES_WIDTH: f64 = 900.0;
 pub const UP: &str = "\u{25b2}";
 /// The mark of a downward flag.
 pub const DOWN: &str = "\u{25bc}";
+/// The mark of a change against a group's own usual (worse or better, said in words),
+/// a different shape from the flags' triangles; the series chart draws it as a ring.
+pub const CHANGE: &str = "\u{25c9}";
 
 /// A coordinate as SVG wants it (two decimals at most, no exponent).
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -564,6 +568,299 @@ impl Render for FunnelChart {
     }
 }
 
+// ---- reference distribution ---------------------------------------------------------
+
+/// The test's reference distribution (`svg#reference-chart`), for readers who check
+/// the arithmetic: the chi-square density on the report's df, the upper tail beyond the
+/// critical value shaded, the critical value (dashed) and the statistic (solid) marked.
+/// When the statistic is more than [`FAR_OUT`] times the critical value a linear axis
+/// would squash the curve into its left edge, so the horizontal axis turns to a log
+/// scale, and the chart says so in words.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ReferenceChart {
+    /// The horizontal axis is on a log scale.
+    pub log_scale: bool,
+    stat_name: &'static str,
+    df: String,
+    statistic: String,
+    critical: String,
+    alpha: String,
+    /// Words on the method when the p-value does not come from this curve.
+    exact_words: Option<String>,
+    /// "X² = 1,234 is 130 times the critical value" for the log scale.
+    far_words: Option<String>,
+    curve: String,
+    tail: String,
+    plot: (f64, f64, f64, f64),
+    x_ticks: Vec<(f64, String)>,
+    stat_x: f64,
+    crit_x: f64,
+    stat_anchor: &'static str,
+    crit_label: (f64, &'static str),
+}
+
+/// Beyond this many times the critical value the statistic is drawn on a log axis.
+pub const FAR_OUT: f64 = 3.0;
+
+const REF_WIDTH: f64 = 720.0;
+const REF_HEIGHT: f64 = 264.0;
+const REF_LEFT: f64 = 24.0;
+const REF_RIGHT: f64 = 24.0;
+const REF_TOP: f64 = 64.0;
+const REF_BOTTOM: f64 = 44.0;
+const REF_SAMPLES: u32 = 240;
+
+/// `text-anchor` for a label at `x` that should stay inside `[lo, hi]`.
+fn anchor_within(x: f64, lo: f64, hi: f64) -> &'static str {
+    if x < lo + 60.0 {
+        "start"
+    } else if x > hi - 60.0 {
+        "end"
+    } else {
+        "middle"
+    }
+}
+
+/// Where the critical value's label goes: on the side of its line away from the
+/// statistic's line (which would cross it), unless there is no room there. Returns
+/// the label's x and its `text-anchor`.
+fn beside(crit_x: f64, stat_x: f64, label_w: f64, lo: f64, hi: f64) -> (f64, &'static str) {
+    let left_room = crit_x - 4.0 - label_w >= lo;
+    let right_room = crit_x + 4.0 + label_w <= hi;
+    let go_left = if stat_x >= crit_x {
+        left_room || !right_room
+    } else {
+        !right_room && left_room
+    };
+    if go_left {
+        (crit_x - 4.0, "end")
+    } else {
+        (crit_x + 4.0, "start")
+    }
+}
+
+impl ReferenceChart {
+    /// The chart of the report's test; `None` without a test or with a statistic, df or
+    /// critical value that cannot be drawn.
+    pub fn of(report: &Report) -> Option<Self> {
+        let t = report.test.as_ref()?;
+        let (stat, crit, df) = (t.statistic, t.critical_value, t.df);
+        if df == 0 || !(stat.is_finite() && stat >= 0.0 && crit.is_finite() && crit > 0.0) {
+            return None;
+        }
+        let dff = df as f64;
+        let spread = (2.0 * dff).sqrt();
+        // The bulk of the density (mean df, sd sqrt(2 df)) and the critical value with
+        // room to its right for the tail.
+        let bulk = (dff + 4.0 * spread).max(crit * 1.35);
+        let log_scale = stat > FAR_OUT * crit && stat > bulk;
+        let (left, top) = (REF_LEFT, REF_TOP);
+        let plot_w = REF_WIDTH - left - REF_RIGHT;
+        let plot_h = REF_HEIGHT - top - REF_BOTTOM;
+
+        // Horizontal scale: value -> position, and the samples of the curve.
+        let (lo, hi) = if log_scale {
+            let lo = (dff - 4.0 * spread).max(0.02 * dff).max(0.01);
+            (
+                10f64.powf(lo.log10().floor()),
+                10f64.powf((stat * 1.3).log10().ceil()),
+            )
+        } else {
+            (0.0, bulk.max(stat * 1.08))
+        };
+        let to_unit = |v: f64| {
+            if log_scale {
+                (v.max(lo).log10() - lo.log10()) / (hi.log10() - lo.log10())
+            } else {
+                v / hi
+            }
+        };
+        let x = |v: f64| left + to_unit(v).clamp(0.0, 1.0) * plot_w;
+        let at = |u: f64| {
+            if log_scale {
+                10f64.powf(lo.log10() + u * (hi.log10() - lo.log10()))
+            } else {
+                u * hi
+            }
+        };
+        let samples: Vec<(f64, f64)> = (0..=REF_SAMPLES)
+            .map(|i| at(f64::from(i) / f64::from(REF_SAMPLES)))
+            .filter_map(|v| {
+                dispar_stats::chisq::density(v, df)
+                    .ok()
+                    .filter(|d| d.is_finite())
+                    .map(|d| (v, d))
+            })
+            .collect();
+        // On 1 df the density is infinite at 0: its peak is cut at the height it has
+        // 2% into the axis, which keeps the tail visible.
+        let y_max = samples
+            .iter()
+            .filter(|(v, _)| df > 2 || to_unit(*v) >= 0.02)
+            .map(|&(_, d)| d)
+            .fold(0.0, f64::max);
+        if y_max <= 0.0 {
+            return None;
+        }
+        let y = |d: f64| top + plot_h - (d / y_max).min(1.04) * plot_h;
+        let base = top + plot_h;
+        let path = |points: &[(f64, f64)]| -> String {
+            points
+                .iter()
+                .enumerate()
+                .map(|(i, &(v, d))| {
+                    format!(
+                        "{}{},{}",
+                        if i == 0 { 'M' } else { 'L' },
+                        coord(x(v)),
+                        coord(y(d))
+                    )
+                })
+                .collect::<Vec<_>>()
+                .join(" ")
+        };
+        let curve = path(&samples);
+        let mut tail_points: Vec<(f64, f64)> = Vec::new();
+        if let Ok(d) = dispar_stats::chisq::density(crit, df) {
+            tail_points.push((crit, d));
+        }
+        tail_points.extend(samples.iter().copied().filter(|&(v, _)| v > crit));
+        let tail = if tail_points.is_empty() {
+            String::new()
+        } else {
+            let first = x(tail_points[0].0);
+            let last = x(tail_points[tail_points.len() - 1].0);
+            format!(
+                "M{},{} {} L{},{} Z",
+                coord(first),
+                coord(base),
+                path(&tail_points).replacen('M', "L", 1),
+                coord(last),
+                coord(base)
+            )
+        };
+
+        let x_ticks = if log_scale {
+            let mut ticks = Vec::new();
+            let mut e = lo.log10().round();
+            while e <= hi.log10().round() + 1e-9 {
+                let v = 10f64.powf(e);
+                let label = if v >= 1.0 {
+                    fmt_count(v.round() as u64)
+                } else {
+                    fmt_num(v, usize::try_from((-e).round() as i64).unwrap_or(2))
+                };
+                ticks.push((x(v), label));
+                e += 1.0;
+            }
+            ticks
+        } else {
+            let (step, top_tick) = linear_ticks(hi);
+            let decimals = if step >= 1.0 { 0 } else { 2 };
+            tick_values(step, top_tick)
+                .into_iter()
+                .filter(|v| *v <= hi * (1.0 + 1e-9))
+                .map(|v| (x(v), fmt_num(v, decimals)))
+                .collect()
+        };
+        let stat_name = if t.method == "g" {
+            "G\u{00b2}"
+        } else {
+            "X\u{00b2}"
+        };
+        let statistic = fmt_num(stat, 2);
+        let (stat_x, crit_x) = (x(stat), x(crit));
+        let right = left + plot_w;
+        let critical = fmt_num(crit, 2);
+        let alpha = report.parameters.alpha.to_string();
+        // About 6.2 units a character at the label's 11px.
+        let crit_w = 6.2 * (critical.chars().count() + alpha.chars().count() + 21) as f64;
+        Some(Self {
+            log_scale,
+            stat_name,
+            df: fmt_count(df),
+            critical,
+            alpha,
+            exact_words: matches!(t.method, "fisher" | "monte-carlo").then(|| {
+                format!(
+                    "The p-value of this report comes from {}, not from this curve; the curve is the large-sample reference.",
+                    dispar_core::report::text::method_words(t.method)
+                )
+            }),
+            far_words: log_scale.then(|| {
+                format!(
+                    "{stat_name} = {statistic} is {} times the critical value",
+                    fmt_num(stat / crit, 0)
+                )
+            }),
+            statistic,
+            curve,
+            tail,
+            plot: (left, top, plot_w, plot_h),
+            x_ticks,
+            stat_anchor: anchor_within(stat_x, left, right),
+            crit_label: beside(crit_x, stat_x, crit_w, left, right),
+            stat_x,
+            crit_x,
+        })
+    }
+}
+
+impl Render for ReferenceChart {
+    fn render(&self) -> Markup {
+        let (left, top, plot_w, plot_h) = self.plot;
+        let base = top + plot_h;
+        let n = self.stat_name;
+        html! {
+            svg #reference-chart .chart .reference viewBox={ "0 0 " (C(REF_WIDTH)) " " (C(REF_HEIGHT)) } role="img"
+                aria-labelledby="reference-chart-title reference-chart-desc" preserveAspectRatio="xMinYMin meet" {
+                title #reference-chart-title { "Chi-square distribution on " (self.df) " df, with the statistic and the critical value" }
+                desc #reference-chart-desc {
+                    "The curve is the chi-square density on " (self.df) " degrees of freedom, the distribution of "
+                    (n) " when the groups do not differ. The shaded upper tail beyond the critical value " (self.critical)
+                    " (dashed line) holds \u{03b1} = " (self.alpha) " of it. The solid line is this report's statistic, "
+                    (n) " = " (self.statistic) "."
+                    @if let Some(w) = &self.far_words {
+                        " " (w) ", so the horizontal axis is on a log scale."
+                    }
+                    @if let Some(w) = &self.exact_words { " " (w) }
+                }
+                defs {
+                    clipPath #reference-clip {
+                        rect x=(C(left)) y=(C(top - 4.0)) width=(C(plot_w)) height=(C(plot_h + 4.0)) {}
+                    }
+                }
+                @for (x, label) in &self.x_ticks {
+                    line .grid x1=(C(*x)) y1=(C(top)) x2=(C(*x)) y2=(C(base)) {}
+                    text .tick x=(C(*x)) y=(C(base + 16.0)) text-anchor="middle" { (label) }
+                }
+                line .axis x1=(C(left)) y1=(C(base)) x2=(C(left + plot_w)) y2=(C(base)) {}
+                text .axis-label x=(C(left + plot_w / 2.0)) y=(C(REF_HEIGHT - 8.0)) text-anchor="middle" {
+                    (n) " on " (self.df) " df"
+                    @if self.log_scale { " (log scale)" }
+                }
+                g clip-path="url(#reference-clip)" {
+                    @if !self.tail.is_empty() { path .tail d=(self.tail) {} }
+                    path .density d=(self.curve) {}
+                }
+                line .critical x1=(C(self.crit_x)) y1=(C(top - 12.0)) x2=(C(self.crit_x)) y2=(C(base)) stroke-dasharray="5 4" {}
+                text .critical-label x=(C(self.crit_label.0)) y=(C(top - 16.0)) text-anchor=(self.crit_label.1) {
+                    "critical value " (self.critical) " (\u{03b1} = " (self.alpha) ")"
+                }
+                line .statistic x1=(C(self.stat_x)) y1=(C(top - 30.0)) x2=(C(self.stat_x)) y2=(C(base)) {}
+                text .statistic-label x=(C(self.stat_x)) y=(C(top - 34.0)) text-anchor=(self.stat_anchor) {
+                    (n) " = " (self.statistic)
+                }
+                @if let Some(w) = &self.far_words {
+                    text .scale-note x=(C(left)) y="14" text-anchor="start" {
+                        "log scale: " (w)
+                    }
+                }
+            }
+        }
+    }
+}
+
 // ---- series --------------------------------------------------------------------------
 
 /// The verdict of one period, as the series chart and table show it.
@@ -609,8 +906,10 @@ impl Verdict {
 /// Strip of verdicts over periods (`svg#series-chart`): one column per period. The
 /// top row is the verdict (filled: significant; outlined: not significant; dashed
 /// grey: not testable; the p-value in the tooltip); below it one row per group that
-/// was flagged in some period, with ▲ where it was flagged above or ▼ below that
-/// period's pooled rate. Each column links to that period's report.
+/// was flagged or changed in some period, with ▲ where it was flagged above or ▼ below
+/// that period's pooled rate, and a ring around the mark where the group changed
+/// against its own usual (solid: worse, dashed: better; shape and dash, not colour
+/// alone). Each column links to that period's report.
 #[derive(Debug, Clone, PartialEq)]
 pub struct SeriesChart {
     height: f64,
@@ -629,6 +928,9 @@ struct SeriesColumn {
     x0: f64,
     cell_w: f64,
     marks: Vec<SeriesMark>,
+    /// Rings around the marks of the groups that changed against their own usual:
+    /// (cx, cy, r, code, `worse` or `better`).
+    rings: Vec<(f64, f64, f64, String, &'static str)>,
     tick: Option<(f64, f64)>,
 }
 
@@ -646,10 +948,15 @@ const SERIES_VERDICT_H: f64 = 22.0;
 impl SeriesChart {
     /// The strip of `points`; `links[i]` is the report page of `points[i]`.
     pub fn of(points: &[SeriesPoint], alpha: f64, links: &[String]) -> Self {
-        // Groups that were flagged at least once, in order of code.
+        // Groups that were flagged or changed at least once, in order of code.
         let mut names: Vec<&str> = points
             .iter()
-            .flat_map(|p| p.flagged.iter().map(|f| f.code.as_str()))
+            .flat_map(|p| {
+                p.flagged
+                    .iter()
+                    .map(|f| f.code.as_str())
+                    .chain(p.changes.iter().map(|c| c.code.as_str()))
+            })
             .collect();
         names.sort_unstable();
         names.dedup();
@@ -695,14 +1002,42 @@ impl SeriesChart {
                     )
                 };
                 let verdict = Verdict::of(p.significant);
+                let changed_words = if p.changes.is_empty() {
+                    String::new()
+                } else {
+                    format!(
+                        "; changed: {}",
+                        p.changes
+                            .iter()
+                            .map(|c| format!("{} {} {}", c.code, CHANGE, c.verdict.as_str()))
+                            .collect::<Vec<_>>()
+                            .join(", ")
+                    )
+                };
                 let title = match (verdict, p.p_value) {
-                    (Verdict::NotTestable, _) | (_, None) => format!("{period}: {}", p.verdict),
+                    (Verdict::NotTestable, _) | (_, None) => {
+                        format!("{period}: {}{changed_words}", p.verdict)
+                    }
                     (v, Some(pv)) => format!(
-                        "{period}: {} at \u{03b1} = {alpha} ({}); {flagged_words}",
+                        "{period}: {} at \u{03b1} = {alpha} ({}); {flagged_words}{changed_words}",
                         v.words(),
                         p_equals(pv)
                     ),
                 };
+                let rings = names
+                    .iter()
+                    .enumerate()
+                    .filter_map(|(r, name)| {
+                        let c = p.changes.iter().find(|c| c.code == *name)?;
+                        Some((
+                            cx,
+                            row_y(r),
+                            (mark * 1.9).min(slot * 0.48).max(3.0),
+                            c.code.clone(),
+                            c.verdict.as_str(),
+                        ))
+                    })
+                    .collect();
                 let marks = names
                     .iter()
                     .enumerate()
@@ -727,6 +1062,7 @@ impl SeriesChart {
                     x0,
                     cell_w,
                     marks,
+                    rings,
                     tick: (i % label_every == 0).then_some((cx + 4.0, rows_bottom + 14.0)),
                 }
             })
@@ -759,6 +1095,10 @@ impl SeriesColumn {
                     SeriesMark::None(x, y) => { circle .mark .none cx=(C(*x)) cy=(C(*y)) r="1.5" {} }
                 }
             }
+            @for (x, y, r, code, verdict) in &self.rings {
+                circle class={ "ring " (verdict) } data-name=(code) cx=(C(*x)) cy=(C(*y)) r=(C(*r))
+                    stroke-dasharray=[(*verdict == "better").then_some("3 2")] {}
+            }
         }
     }
 }
@@ -770,11 +1110,12 @@ impl Render for SeriesChart {
         html! {
             svg #series-chart .chart .series viewBox={ "0 0 " (C(SERIES_WIDTH)) " " (C(self.height)) } role="img"
                 aria-labelledby="series-chart-title series-chart-desc" preserveAspectRatio="xMinYMin meet" {
-                title #series-chart-title { "Verdict and flagged groups per period" }
+                title #series-chart-title { "Verdict, flagged groups and changes per period" }
                 desc #series-chart-desc {
                     "One column per period. Top row: a filled cell where the difference between the groups is significant at \u{03b1} = "
-                    (self.alpha) ", an outlined cell where it is not significant, a dashed grey cell where the period could not be tested. Below, one row per group flagged in any period: "
-                    (UP) " where it was flagged above that period's pooled rate, " (DOWN) " where below."
+                    (self.alpha) ", an outlined cell where it is not significant, a dashed grey cell where the period could not be tested. Below, one row per group flagged or changed in any period: "
+                    (UP) " where it was flagged above that period's pooled rate, " (DOWN) " where below; a ring (" (CHANGE)
+                    ") around a group's mark where it changed against its own usual: a solid ring worse, a dashed ring better."
                 }
                 text .row-label x=(C(left - 8.0)) y=(C(SERIES_TOP + SERIES_VERDICT_H / 2.0 + 4.0)) text-anchor="end" { "verdict" }
                 @for (cy, label) in &self.rows {

@@ -90,6 +90,7 @@ pub fn parse_period(text: &str, field: &str) -> Result<Period, ApiError> {
 /// The report of `params.period`, as `GET /v1/reports` answers it (from the same
 /// cache).
 pub async fn report(state: &AppState, params: &ReportParams) -> Result<Arc<Report>, ApiError> {
+    known_site(state, params).await?;
     let (spec, period) =
         ReportSpec::parse_report(&for_computation(params)).map_err(params_error)?;
     Ok(state.reports().report(&spec, period).await?.value)
@@ -98,8 +99,34 @@ pub async fn report(state: &AppState, params: &ReportParams) -> Result<Arc<Repor
 /// The verdicts from `params.from` to `params.to`, as `GET /v1/reports/series`
 /// answers them (from the same cache).
 pub async fn series(state: &AppState, params: &ReportParams) -> Result<Arc<Series>, ApiError> {
+    known_site(state, params).await?;
     let (spec, span) = ReportSpec::parse_series(&for_computation(params)).map_err(params_error)?;
     Ok(state.reports().series(&spec, &span).await?.value)
+}
+
+/// A `site=` that names no registered site is a 422 naming `site`, at every level, as
+/// the JSON endpoints answer it (the page ignores the site below `level=line`, but an
+/// unknown one is still a mistake in the link, not a choice to ignore silently).
+async fn known_site(state: &AppState, params: &ReportParams) -> Result<(), ApiError> {
+    let Some(site) = params.site.as_deref() else {
+        return Ok(());
+    };
+    let Ok(code) = dispar_core::code::SiteCode::parse(site) else {
+        // A malformed code: the report's own check names it.
+        return Ok(());
+    };
+    match state.store().get_site(&code).await {
+        Ok(_) => Ok(()),
+        Err(dispar_store::StoreError::NotFound { .. }) => Err(ApiError::validation(
+            "Some of the choices are not valid.",
+            vec![ErrorItem::parameter(
+                "site",
+                "unknown-site",
+                format!("site {site} is not registered"),
+            )],
+        )),
+        Err(e) => Err(ApiError::from(e)),
+    }
 }
 
 /// The period before `p` of the same kind (a range: the range of the same length

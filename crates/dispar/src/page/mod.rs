@@ -66,6 +66,71 @@ pub fn router() -> Router<AppState> {
         .route("/favicon.svg", get(favicon))
 }
 
+/// Most bytes of a page form's body: the sign-in form holds one key and a return path.
+pub const FORM_BODY_LIMIT: usize = 8 * 1024;
+
+/// How long a page form's body may take to arrive.
+pub const FORM_BODY_TIMEOUT: std::time::Duration = std::time::Duration::from_secs(5);
+
+/// Middleware, outside the pages' concurrency budget: reads a page request's body whole
+/// (at most [`FORM_BODY_LIMIT`] bytes within [`FORM_BODY_TIMEOUT`]) before the request
+/// may take a slot. A client announcing a large body and sending it a byte at a time
+/// is answered 413 at once, or 408 after the timeout, and never holds a slot while it
+/// trickles.
+pub async fn read_form_body(
+    request: axum::extract::Request,
+    next: axum::middleware::Next,
+) -> Response {
+    let (parts, body) = request.into_parts();
+    if parts.method == axum::http::Method::GET || parts.method == axum::http::Method::HEAD {
+        return next
+            .run(axum::extract::Request::from_parts(parts, body))
+            .await;
+    }
+    let too_large = || {
+        problem_page(&ApiError::new(
+            crate::error::ProblemKind::PayloadTooLarge,
+            format!("A page form holds at most {FORM_BODY_LIMIT} bytes."),
+        ))
+    };
+    let announced = parts
+        .headers
+        .get(header::CONTENT_LENGTH)
+        .and_then(|v| v.to_str().ok())
+        .and_then(|v| v.trim().parse::<u64>().ok());
+    if announced.is_some_and(|n| n > FORM_BODY_LIMIT as u64) {
+        return too_large();
+    }
+    match tokio::time::timeout(
+        FORM_BODY_TIMEOUT,
+        axum::body::to_bytes(body, FORM_BODY_LIMIT),
+    )
+    .await
+    {
+        Err(_) => problem_page(&ApiError::new(
+            crate::error::ProblemKind::BodyTimeout,
+            format!(
+                "The form did not arrive within {} seconds.",
+                FORM_BODY_TIMEOUT.as_secs()
+            ),
+        )),
+        Ok(Err(_)) => too_large(),
+        Ok(Ok(bytes)) => {
+            next.run(axum::extract::Request::from_parts(
+                parts,
+                axum::body::Body::from(bytes),
+            ))
+            .await
+        }
+    }
+}
+
+/// The pages' own concurrency budget: a quarter of the API's, at least 2, so page views
+/// (which anyone can reach without a key) never take the slots of `/v1`.
+pub fn concurrency_budget(api: usize) -> usize {
+    (api / 4).max(2)
+}
+
 /// An HTML page with the headers every page carries.
 pub(crate) fn html(status: StatusCode, body: String) -> Response {
     let csp = format!(
@@ -437,6 +502,7 @@ async fn series_page(State(state): State<AppState>, headers: HeaderMap, uri: Uri
             to,
             alpha: series.parameters.alpha,
             points: series.periods.clone(),
+            headline: Some(series.headline.clone()),
         })
     }
     .await;

@@ -3,8 +3,9 @@
 //! numbers come from the view models in [`super::view`]; this module only lays them
 //! out.
 //!
-//! The report page reads top to bottom in the order a quality engineer asks: the
-//! verdict in words, the per-group table, the two charts, the pairwise comparisons,
+//! The report page reads top to bottom in the order a quality engineer asks: what
+//! changed against each group's own usual, the persistent differences, the binomial
+//! verdict of the period, the per-group table, the two charts, the pairwise comparisons,
 //! the flagged contributors, the defect categories, the sample sizes, how it was
 //! computed, and the cautions. The page needs no script, and prints on paper
 //! (`@media print`).
@@ -15,7 +16,7 @@ use dispar_core::report::Report;
 use dispar_core::report::model::Flag;
 use maud::{DOCTYPE, Markup, PreEscaped, html};
 
-use super::charts::flag_mark;
+use super::charts::{CHANGE, flag_mark};
 use super::view::{
     CategoriesView, Fact, PageContext, PairView, PairsView, ReportView, Selection, SeriesPage,
     SeriesView, SiteChoice, Viewer, flag_tag, level_options,
@@ -233,10 +234,25 @@ fn facts(list: &[Fact]) -> Markup {
 
 fn verdict(v: &ReportView) -> Markup {
     let s = &v.verdict;
+    let class = s.changes.as_ref().map_or(s.verdict.class, |c| c.class);
     html! {
-        section #verdict class=(s.verdict.class) aria-live="polite" {
-            h1 { (s.verdict.headline) }
-            p .verdict-line { (s.verdict.line) }
+        section #verdict class=(class) aria-live="polite" {
+            @if let Some(c) = &s.changes {
+                // With baselines the page opens with what changed; the binomial test
+                // of the period follows as the third thing said.
+                h1 #changes { (c.headline) }
+                @if !c.line.is_empty() { p .verdict-line #changes-line { (c.line) } }
+                @if let Some(p) = &s.persistent { p #persistent { (p) } }
+                div #binomial class=(s.verdict.class) {
+                    p { strong { (s.verdict.headline) } }
+                    p { (s.verdict.line) }
+                    @if let Some(c) = &s.caveat { p #volume-caveat .muted { (c) } }
+                }
+            } @else {
+                h1 { (s.verdict.headline) }
+                p .verdict-line { (s.verdict.line) }
+                @if let Some(p) = &s.persistent { p #persistent { (p) } }
+            }
             @if let Some((lead, flagged)) = &s.flags {
                 p #flag-summary {
                     (lead)
@@ -268,6 +284,11 @@ fn groups_table(v: &ReportView) -> Markup {
                         th scope="col" title="Adjusted standardized residual of the defective count (the analysis-of-means z-score)" { "Adjusted residual" }
                         th scope="col" { "Flag" }
                         th scope="col" { "Share of X\u{00b2}" }
+                        @if v.with_baseline {
+                            th scope="col" title="The group's own pooled rate over its earlier periods" { "Usual rate" }
+                            th scope="col" title="This period's rate divided by the usual rate" { "Ratio to usual" }
+                            th scope="col" { "Against its usual" }
+                        }
                     } }
                     tbody {
                         @for g in &v.groups {
@@ -284,6 +305,18 @@ fn groups_table(v: &ReportView) -> Markup {
                                 td { (g.residual) }
                                 td { (flag_tag_markup(g.flag)) }
                                 td { (g.share) }
+                                @if v.with_baseline {
+                                    @match &g.baseline {
+                                        Some(b) => {
+                                            td title=(b.usual_title) { (b.usual) }
+                                            td title=(b.ratio_title) { (b.ratio) }
+                                            td data-baseline=(b.verdict.as_str()) title=(b.reason) {
+                                                span class={ "tag baseline " (b.verdict.as_str()) } { (b.word) }
+                                            }
+                                        }
+                                        None => { td { "\u{2014}" } td { "\u{2014}" } td { "\u{2014}" } }
+                                    }
+                                }
                             }
                         }
                     }
@@ -293,8 +326,12 @@ fn groups_table(v: &ReportView) -> Markup {
                         td { (v.totals[2]) }
                         td { (v.totals[3]) }
                         td {} td {} td {} td {} td {}
+                        @if v.with_baseline { td {} td {} td {} }
                     } }
                 }
+            }
+            @if let Some(legend) = &v.baseline_legend {
+                p #baseline-legend .small .muted { (legend) }
             }
             @if let Some(rule) = &v.flag_rule {
                 p #flag-rule .small .muted { (rule) }
@@ -352,7 +389,12 @@ fn pair_row(p: &PairView) -> Markup {
             th scope="row" { (p.a) " \u{2013} " (p.b) }
             td { (p.difference) }
             td { (p.interval) }
-            td { (p.method) }
+            @match &p.untestable {
+                Some(reason) => {
+                    td .wrap { span .tag .untestable { "no test" } " " span .small .muted { (reason) } }
+                }
+                None => { td { (p.method) } }
+            }
             td { (p_cell(&p.p, &p.p_title)) }
             td { (p.p_adjusted) }
             td { @if p.significant { span .tag .significant { "yes" } } @else { "no" } }
@@ -519,6 +561,15 @@ fn report_body(v: &ReportView, ctx: &PageContext) -> Markup {
         section #method {
             h2 { "How this was computed" }
             (facts(&v.method))
+            @if let Some(chart) = &v.reference {
+                figure #reference {
+                    (chart)
+                    figcaption {
+                        "The reference distribution of the test: shaded, the upper tail beyond the critical value (dashed); solid, this report's statistic."
+                        @if chart.log_scale { " The statistic is far beyond the critical value, so the horizontal axis is on a log scale." }
+                    }
+                }
+            }
         }
         section #cautions-section {
             h2 { "Cautions" }
@@ -594,7 +645,7 @@ fn series_body(view: &SeriesView, page: &SeriesPage, ctx: &PageContext) -> Marku
                 figcaption {
                     "Top row: filled where the difference between the groups is significant, outlined where it is not significant, dashed grey where the period could not be tested. Below: "
                     (flag_mark(Some(Flag::Above))) " flagged above, " (flag_mark(Some(Flag::Below)))
-                    " flagged below that period's pooled rate (groups never flagged are not shown). Each column opens that period's report."
+                    " flagged below that period's pooled rate; a ring (" (CHANGE) ") where the group changed against its own usual, solid worse, dashed better (groups never flagged nor changed are not shown). Each column opens that period's report."
                 }
             }
         }
@@ -612,6 +663,7 @@ fn series_body(view: &SeriesView, page: &SeriesPage, ctx: &PageContext) -> Marku
                         th scope="col" { "p" }
                         th scope="col" { "Verdict" }
                         th scope="col" { "Flagged" }
+                        th scope="col" { "Changed against its usual" }
                     } }
                     tbody {
                         @for r in &page.rows {
@@ -635,6 +687,14 @@ fn series_body(view: &SeriesView, page: &SeriesPage, ctx: &PageContext) -> Marku
                                         span class={ "flag " (flag.as_str()) } { (code) " " (flag_mark(Some(*flag))) }
                                     }
                                 }
+                                td .wrap {
+                                    @for (i, (code, verdict, title)) in r.changes.iter().enumerate() {
+                                        @if i > 0 { " " }
+                                        span class={ "tag baseline " (verdict.as_str()) } title=(title) {
+                                            (code) " " (CHANGE) " " (verdict.as_str())
+                                        }
+                                    }
+                                }
                             }
                         }
                     }
@@ -642,7 +702,8 @@ fn series_body(view: &SeriesView, page: &SeriesPage, ctx: &PageContext) -> Marku
             }
             p .small .muted {
                 (flag_mark(Some(Flag::Above))) " flagged above the pooled rate of its period, "
-                (flag_mark(Some(Flag::Below))) " below. Each period is tested on its own; with many periods, some significant differences appear by chance."
+                (flag_mark(Some(Flag::Below))) " below. " (CHANGE)
+                " worse or better: the group against its own usual over its earlier periods, with a limit that keeps such calls rare across the groups. Each period is tested on its own; with many periods, some significant differences appear by chance."
             }
         }
     }

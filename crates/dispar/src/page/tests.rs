@@ -7,7 +7,8 @@ use axum::body::Body;
 use axum::http::{Request, StatusCode, header};
 use dispar_core::period::Period;
 use dispar_core::report::{
-    DispersionChoice, GroupCounts, LevelKind, Parameters, Report, ReportRequest, build_report,
+    BaselineWindow, DispersionChoice, GroupCounts, LevelKind, Parameters, Report, ReportRequest,
+    build_report,
 };
 use tower::ServiceExt as _;
 
@@ -269,6 +270,400 @@ fn a_period_that_cannot_be_tested_says_why_and_still_lists_the_groups() {
         "no funnel at a pooled rate of 0"
     );
     assert!(html.contains("id=\"rates-chart\""));
+}
+
+/// Attribute `attr` of the first element matching `css`, as a number.
+fn attr_f64(doc: &scraper::Html, css: &str, attr: &str) -> f64 {
+    doc.select(&sel(css))
+        .next()
+        .unwrap_or_else(|| panic!("{css} missing"))
+        .value()
+        .attr(attr)
+        .unwrap_or_else(|| panic!("{css} has no {attr}"))
+        .parse()
+        .unwrap_or_else(|e| panic!("{css} {attr}: {e}"))
+}
+
+fn text_of(doc: &scraper::Html, css: &str) -> String {
+    doc.select(&sel(css))
+        .next()
+        .unwrap_or_else(|| panic!("{css} missing"))
+        .text()
+        .collect()
+}
+
+#[test]
+fn the_method_section_draws_the_reference_distribution_with_the_statistic_and_critical_value() {
+    // Five sites whose rates differ a little: the statistic lands near the critical value.
+    let groups = [
+        group("KES", "Kestelmoor", 2_000, 20),
+        group("MRQ", "Marquenne", 2_000, 28),
+        group("ODW", "Oderwyn", 2_000, 31),
+        group("TLG", "Tallowgate", 2_000, 36),
+        group("VAL", "Valtrona", 2_000, 17),
+    ];
+    let report = report_of(&groups, Parameters::default());
+    let t = report.test.as_ref().unwrap();
+    assert_eq!(t.df, 4);
+    assert!(
+        t.statistic < 3.0 * t.critical_value,
+        "a statistic near the critical value: {} vs {}",
+        t.statistic,
+        t.critical_value
+    );
+    let html = render_report(&report, &ctx());
+    let doc = scraper::Html::parse_document(&html);
+    assert_eq!(doc.select(&sel("#method svg#reference-chart")).count(), 1);
+    assert_eq!(
+        text_of(&doc, "#reference-chart-title"),
+        "Chi-square distribution on 4 df, with the statistic and the critical value"
+    );
+    let desc = text_of(&doc, "#reference-chart-desc");
+    assert!(desc.contains("on 4 degrees of freedom"), "{desc}");
+    assert!(desc.contains("critical value 9.49"), "{desc}");
+    let stat = super::format::fmt_num(t.statistic, 2);
+    assert!(desc.contains(&format!("X\u{00b2} = {stat}.")), "{desc}");
+    assert!(!desc.contains("log scale"), "linear axis near: {desc}");
+    assert_eq!(
+        text_of(&doc, "#reference-chart .statistic-label"),
+        format!("X\u{00b2} = {stat}")
+    );
+    assert_eq!(
+        text_of(&doc, "#reference-chart .critical-label"),
+        "critical value 9.49 (\u{03b1} = 0.05)"
+    );
+    assert_eq!(doc.select(&sel("#reference-chart path.tail")).count(), 1);
+    assert_eq!(doc.select(&sel("#reference-chart path.density")).count(), 1);
+    assert_eq!(doc.select(&sel("#reference-chart .scale-note")).count(), 0);
+    // Positions keep the order of the values, on a linear axis from 0.
+    let x_stat = attr_f64(&doc, "#reference-chart line.statistic", "x1");
+    let x_crit = attr_f64(&doc, "#reference-chart line.critical", "x1");
+    let x0 = attr_f64(&doc, "#reference-chart .tick", "x");
+    assert_eq!(text_of(&doc, "#reference-chart .tick"), "0");
+    let want = (t.statistic / t.critical_value) * (x_crit - x0) + x0;
+    assert!(
+        (x_stat - want).abs() < 0.02,
+        "linear: statistic at {x_stat}, want {want}"
+    );
+    assert!(x_stat < 720.0 - 24.0 + 1e-9, "statistic inside the plot");
+}
+
+#[test]
+fn a_statistic_far_beyond_the_critical_value_is_drawn_on_a_log_axis_that_says_so() {
+    let report = report_of(&five_sites(), Parameters::default());
+    let t = report.test.as_ref().unwrap();
+    assert!(t.statistic > 3.0 * t.critical_value, "{}", t.statistic);
+    let html = render_report(&report, &ctx());
+    let doc = scraper::Html::parse_document(&html);
+    let desc = text_of(&doc, "#reference-chart-desc");
+    let times = super::format::fmt_num(t.statistic / t.critical_value, 0);
+    assert!(
+        desc.contains(&format!(
+            "is {times} times the critical value, so the horizontal axis is on a log scale."
+        )),
+        "{desc}"
+    );
+    assert!(text_of(&doc, "#reference-chart .scale-note").starts_with("log scale: X\u{00b2} = "));
+    assert!(text_of(&doc, "#reference-chart .axis-label").ends_with("(log scale)"));
+    assert!(text_of(&doc, "#reference figcaption").contains("log scale"));
+    // Both marks inside the plot, the statistic right of the critical value, and the
+    // decade ticks evenly spaced.
+    let x_stat = attr_f64(&doc, "#reference-chart line.statistic", "x1");
+    let x_crit = attr_f64(&doc, "#reference-chart line.critical", "x1");
+    assert!(
+        24.0 < x_crit && x_crit < x_stat && x_stat <= 696.0,
+        "{x_crit} {x_stat}"
+    );
+    let ticks: Vec<f64> = doc
+        .select(&sel("#reference-chart .tick"))
+        .map(|t| t.value().attr("x").unwrap().parse().unwrap())
+        .collect();
+    assert!(ticks.len() >= 3, "{ticks:?}");
+    let gap = ticks[1] - ticks[0];
+    assert!(
+        ticks.windows(2).all(|w| ((w[1] - w[0]) - gap).abs() < 0.02),
+        "{ticks:?}"
+    );
+    // No test, no reference chart.
+    let untested = report_of(&[group("KES", "Kestelmoor", 500, 5)], Parameters::default());
+    assert!(untested.test.is_none());
+    assert!(!render_report(&untested, &ctx()).contains("reference-chart"));
+}
+
+/// Eight earlier weeks for `groups`: each code's (inspected, usual defective per
+/// week), with a small wobble so the baselines are not flat.
+fn window(usual: &[(&str, u64, u64)]) -> BaselineWindow {
+    let period: Period = "2026-W16".parse().unwrap();
+    let wobble = [0i64, 3, -2, 1, -3, 2, -1, 0];
+    BaselineWindow {
+        periods: period.earlier(8),
+        counts: usual
+            .iter()
+            .map(|&(code, inspected, defective)| {
+                let weeks = wobble
+                    .iter()
+                    .map(|w| (inspected, defective.saturating_add_signed(*w * 4)))
+                    .collect();
+                (code.to_owned(), weeks)
+            })
+            .collect(),
+        length: 8,
+    }
+}
+
+fn report_with_baseline(groups: &[GroupCounts], usual: &[(&str, u64, u64)]) -> Report {
+    let req = ReportRequest {
+        period: Some("2026-W16".parse::<Period>().unwrap()),
+        level: Some(LevelKind::Site),
+        parameters: Parameters {
+            baseline: Some(8),
+            ..Parameters::default()
+        },
+        baseline: Some(window(usual)),
+        ..ReportRequest::default()
+    };
+    build_report(&req, groups)
+}
+
+/// The demo's W16 in small: KES at three times its usual, the others as usual, MRQ
+/// always above the others, SEM new (no earlier weeks).
+fn drift_week() -> Report {
+    let mut groups = five_sites();
+    groups.push(group("SEM", "Semmering", 5_000, 40));
+    report_with_baseline(
+        &groups,
+        &[
+            ("KES", 97_000, 690),
+            ("MRQ", 80_000, 1_000),
+            ("ODW", 150_000, 1_350),
+            ("TLG", 320_000, 3_200),
+            ("VAL", 7_500, 118),
+        ],
+    )
+}
+
+#[test]
+fn with_baselines_the_page_opens_with_the_changes_then_the_usual_spread_then_the_test() {
+    let report = drift_week();
+    assert_eq!(report.changes.len(), 1, "{:?}", report.changes);
+    let html = render_report(&report, &ctx());
+    let doc = scraper::Html::parse_document(&html);
+    let usual = super::format::fmt_pct(report.changes[0].baseline_rate);
+    assert_eq!(
+        text_of(&doc, "#verdict h1#changes"),
+        format!("KES worse than its usual: 2.02% against {usual}")
+    );
+    assert!(usual.starts_with("0.7"), "{usual}");
+    assert_eq!(
+        text_of(&doc, "#changes-line"),
+        "The other 4 sites as usual. Not known for 1 site: SEM (too few earlier weeks with units to tell)."
+    );
+    let persistent = text_of(&doc, "#persistent");
+    assert!(
+        persistent.starts_with("The sites also differ as they usually do: ")
+            && persistent.contains("; MRQ above the pooled rate in 8 of the last 8 weeks;")
+            && !persistent.contains("SEM"),
+        "{persistent}"
+    );
+    let binomial = text_of(&doc, "#binomial");
+    assert!(
+        binomial.starts_with("Sites differ in defect rate"),
+        "{binomial}"
+    );
+    assert!(
+        text_of(&doc, "#volume-caveat")
+            .contains("even small differences are statistically significant"),
+        "the volume caveat follows the test"
+    );
+    let order = [
+        "id=\"changes\"",
+        "id=\"persistent\"",
+        "id=\"binomial\"",
+        "id=\"flag-summary\"",
+        "<table id=\"groups\"",
+    ];
+    let positions: Vec<usize> = order
+        .iter()
+        .map(|n| html.find(n).unwrap_or_else(|| panic!("{n} missing")))
+        .collect();
+    assert!(positions.windows(2).all(|w| w[0] < w[1]), "{positions:?}");
+    assert!(doc.select(&sel("section#verdict.changed")).next().is_some());
+
+    // The table: usual rate, ratio and the verdict word, with ◉ only on the change.
+    let verdicts: Vec<(String, String)> = doc
+        .select(&sel("table#groups tbody tr"))
+        .map(|tr| {
+            let cell = tr.select(&sel("td[data-baseline]")).next();
+            (
+                tr.value().attr("data-name").unwrap().to_owned(),
+                cell.map(|c| c.text().collect()).unwrap_or_default(),
+            )
+        })
+        .collect();
+    for (code, word) in &verdicts {
+        let want = match code.as_str() {
+            "KES" => "\u{25c9} worse",
+            "SEM" => "unknown",
+            _ => "usual",
+        };
+        assert_eq!(word, want, "{code}");
+    }
+    let kes = doc
+        .select(&sel("table#groups tr[data-name=\"KES\"] td"))
+        .collect::<Vec<_>>();
+    let ratio: String = kes[kes.len() - 2].text().collect();
+    assert!(
+        ratio.ends_with('\u{00d7}') && ratio.starts_with("2."),
+        "{ratio}"
+    );
+    assert!(
+        kes[kes.len() - 1]
+            .value()
+            .attr("title")
+            .is_some_and(|t| !t.is_empty()),
+        "the reason"
+    );
+    let legend = text_of(&doc, "#baseline-legend");
+    assert!(
+        legend.contains("\u{25c9} marks a change")
+            && legend.contains("\u{25b2} \u{25bc} mark a flag"),
+        "{legend}"
+    );
+    let method = text_of(&doc, "#method");
+    assert!(
+        method.contains("Laney 2002") && method.contains("baseline 8"),
+        "{method}"
+    );
+}
+
+#[test]
+fn without_baselines_the_page_reads_as_before_and_untestable_pairs_say_why() {
+    let report = report_of(
+        &[
+            group("A", "a", 500, 0),
+            group("B", "b", 700, 0),
+            group("C", "c", 1_000, 30),
+        ],
+        Parameters::default(),
+    );
+    let html = render_report(&report, &ctx());
+    let doc = scraper::Html::parse_document(&html);
+    assert!(
+        doc.select(&sel(
+            "#changes, #binomial, #baseline-legend, td[data-baseline]"
+        ))
+        .next()
+        .is_none()
+    );
+    assert_eq!(
+        doc.select(&sel("table#groups thead th")).count(),
+        9,
+        "no baseline columns"
+    );
+    let untestable = report
+        .pairs
+        .iter()
+        .find(|p| p.untestable.is_some())
+        .expect("A-B has no test");
+    let reason = untestable.untestable.clone().unwrap();
+    let row = doc
+        .select(&sel(
+            "table#pairwise tbody tr, table#pairwise-rest tbody tr",
+        ))
+        .find(|tr| tr.text().collect::<String>().contains("A \u{2013} B"))
+        .expect("the A-B row");
+    let text: String = row.text().collect();
+    assert!(text.contains("no test") && text.contains(&reason), "{text}");
+    assert!(!text.contains("untestable"), "{text}");
+}
+
+#[test]
+fn the_series_headline_names_the_changes_and_the_strip_rings_them() {
+    let drift = drift_week();
+    let quiet = report_with_baseline(
+        &five_sites()
+            .into_iter()
+            .map(|mut g| {
+                if g.code == "KES" {
+                    g.defective = 700;
+                }
+                g
+            })
+            .collect::<Vec<_>>(),
+        &[
+            ("KES", 97_000, 690),
+            ("MRQ", 80_000, 1_000),
+            ("ODW", 150_000, 1_350),
+            ("TLG", 320_000, 3_200),
+            ("VAL", 7_500, 118),
+        ],
+    );
+    assert!(quiet.changes.is_empty(), "{:?}", quiet.changes);
+    let mut a = quiet.summary();
+    a.period = Some("2026-W15".parse().unwrap());
+    let points = vec![a, drift.summary()];
+    let mut c = ctx();
+    c.selection.period = "2026-W16".to_owned();
+    let series = super::view::SeriesView {
+        from: "2026-W15".to_owned(),
+        to: "2026-W16".to_owned(),
+        alpha: 0.05,
+        points: points.clone(),
+        headline: None,
+    };
+    let html = super::render::render_series(&series, &c);
+    let doc = scraper::Html::parse_document(&html);
+    assert_eq!(
+        text_of(&doc, "#verdict h1"),
+        "KES worse than its usual in 2026-W16"
+    );
+    let rings: Vec<(&str, &str)> = doc
+        .select(&sel("svg#series-chart circle.ring"))
+        .map(|r| {
+            (
+                r.value().attr("data-name").unwrap(),
+                r.value().attr("class").unwrap(),
+            )
+        })
+        .collect();
+    assert_eq!(rings, [("KES", "ring worse")], "one ring, on KES in W16");
+    let ring = doc
+        .select(&sel("svg#series-chart circle.ring"))
+        .next()
+        .unwrap();
+    let column = ring.parent().and_then(scraper::ElementRef::wrap).unwrap();
+    assert_eq!(column.value().attr("data-period"), Some("2026-W16"));
+    // A flag is a triangle, a change a ring: KES has both in W16, distinct.
+    assert!(column.select(&sel("path.mark.above")).count() >= 1);
+    assert!(
+        text_of(&doc, "#series-chart-desc").contains("a solid ring worse, a dashed ring better")
+    );
+    assert_eq!(
+        text_of(
+            &doc,
+            "table#series tr[data-period=\"2026-W16\"] td:last-child"
+        ),
+        "KES \u{25c9} worse"
+    );
+    assert_eq!(
+        text_of(
+            &doc,
+            "table#series tr[data-period=\"2026-W15\"] td:last-child"
+        ),
+        ""
+    );
+
+    // The service's own headline wins.
+    let given = super::view::SeriesView {
+        headline: Some("KES worse than its usual in 2026-W15–W18".to_owned()),
+        ..series
+    };
+    let html = super::render::render_series(&given, &c);
+    let doc = scraper::Html::parse_document(&html);
+    assert_eq!(
+        text_of(&doc, "#verdict h1"),
+        "KES worse than its usual in 2026-W15–W18"
+    );
 }
 
 #[test]
@@ -749,10 +1144,19 @@ mod flow {
     #[tokio::test]
     async fn a_page_and_the_json_endpoint_share_one_cached_report() {
         let f = fixture_with(true).await;
+        f.store
+            .upsert_site(&dispar_core::site::Site {
+                code: dispar_core::code::SiteCode::parse("KES").unwrap(),
+                name: dispar_core::site::SiteName::parse_field("Kestelmoor", "name").unwrap(),
+                time_zone: None,
+            })
+            .await
+            .unwrap();
         let (_, token) = key(&f.store, KeyRole::Read).await;
         let (_, headers, _) = send(&f.app, post_form("/sign-in", form(&token, None), &[])).await;
         let cookie = cookie_pair(headers[header::SET_COOKIE].to_str().unwrap());
-        // The page's site picker is not a filter at the site level: the same report.
+        // The page's site picker (a registered site) is not a filter at the site level:
+        // the same report.
         let (s, _, _) = send(
             &f.app,
             get("/report?period=2026-W16&site=KES&alpha=0.01", Some(&cookie)),
@@ -896,7 +1300,7 @@ fn every_page_keeps_hostile_names_as_text() {
     assert!(report.test.is_some() && !report.excluded.is_empty());
     let c = hostile_ctx();
     let html = render_report(&report, &c);
-    let doc = assert_inert("report", &html, 2, &HOSTILE);
+    let doc = assert_inert("report", &html, 3, &HOSTILE);
     // The names are in the table, the charts' labels, the pairs and the categories.
     assert_eq!(doc.select(&sel("table#groups tbody tr")).count(), 5);
     assert_eq!(doc.select(&sel("svg#rates-chart g.group")).count(), 5);
@@ -927,6 +1331,7 @@ fn every_page_keeps_hostile_names_as_text() {
         to: HOSTILE[2].to_owned(),
         alpha: 0.05,
         points: vec![report.summary(), report.summary()],
+        headline: None,
     };
     let html = super::render::render_series(&series, &c);
     let doc = assert_inert("series", &html, 1, &HOSTILE);
@@ -1072,6 +1477,7 @@ fn the_page_text_has_none_of_the_reported_glitches() {
             report.summary(),
             report_of(&five_sites(), Parameters::default()).summary(),
         ],
+        headline: None,
     };
     let doc = scraper::Html::parse_document(&super::render::render_series(&series, &ctx()));
     let text = page_text(&doc);
@@ -1092,4 +1498,50 @@ fn the_page_text_has_none_of_the_reported_glitches() {
         text.contains("API key with read access (a read or admin key"),
         "{text}"
     );
+}
+
+#[test]
+fn hostile_names_in_changes_and_baselines_stay_text() {
+    let groups = hostile_groups();
+    let usual: Vec<(&str, u64, u64)> = HOSTILE
+        .iter()
+        .zip([
+            (97_000, 690),
+            (80_000, 1_000),
+            (150_000, 1_350),
+            (320_000, 3_200),
+            (7_500, 118),
+        ])
+        .map(|(h, (n, d))| (*h, n, d))
+        .collect();
+    let report = report_with_baseline(&groups, &usual);
+    assert_eq!(
+        report.changes.first().map(|c| c.code.as_str()),
+        Some(HOSTILE[0]),
+        "{:?}",
+        report.changes
+    );
+    let c = hostile_ctx();
+    let html = render_report(&report, &c);
+    let doc = assert_inert("report with baselines", &html, 3, &HOSTILE);
+    assert!(
+        text_of(&doc, "h1#changes").starts_with(&format!("{} worse than its usual", HOSTILE[0]))
+    );
+    assert_eq!(doc.select(&sel("td[data-baseline]")).count(), 5);
+    let mut point = report.summary();
+    point.changes = report.changes.clone();
+    let series = super::view::SeriesView {
+        from: HOSTILE[3].to_owned(),
+        to: HOSTILE[2].to_owned(),
+        alpha: 0.05,
+        points: vec![point.clone(), point],
+        headline: None,
+    };
+    let html = super::render::render_series(&series, &c);
+    let doc = assert_inert("series with changes", &html, 1, &HOSTILE[..1]);
+    let rings: Vec<&str> = doc
+        .select(&sel("svg#series-chart circle.ring"))
+        .filter_map(|r| r.value().attr("data-name"))
+        .collect();
+    assert_eq!(rings, [HOSTILE[0], HOSTILE[0]]);
 }

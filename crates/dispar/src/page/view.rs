@@ -4,14 +4,22 @@
 //!
 //! Page words follow the glossary: "significant" / "not significant at α = …",
 //! "Pairwise comparisons", "Flagged contributors", "Flag rule", "Excluded",
-//! "Cautions"; ▲ and ▼ for a flag above or below the pooled rate, everywhere.
+//! "Cautions"; ▲ and ▼ for a flag above or below the pooled rate, everywhere; ◉ with
+//! the word (`worse`, `better`) for a change against a group's own usual.
 
 use dispar_core::date::format_date;
-use dispar_core::report::model::{Flag, GroupRow, PairRow, TableAnalysis, Test};
+use dispar_core::period::{Granularity, Period};
+use dispar_core::report::baseline::{persistent_words, series_headline};
+use dispar_core::report::model::{
+    Baseline, BaselineVerdict, Flag, GroupRow, PairRow, TableAnalysis, Test,
+};
 use dispar_core::report::text::method_words;
 use dispar_core::report::{LevelKind, Report, SeriesPoint};
 
-use super::charts::{FunnelChart, RatesChart, SeriesChart, Verdict, confidence_words, flag_mark};
+use super::charts::{
+    CHANGE, FunnelChart, RatesChart, ReferenceChart, SeriesChart, Verdict, confidence_words,
+    flag_mark,
+};
 use super::format::{
     count_of, fmt_count, fmt_log10_p, fmt_num, fmt_p, fmt_pct, fmt_pp, fmt_share, fmt_signed,
     p_equals,
@@ -106,6 +114,9 @@ pub struct SeriesView {
     pub alpha: f64,
     /// One point per period, oldest first.
     pub points: Vec<SeriesPoint>,
+    /// The series' headline as the service words it (the changes over the range);
+    /// without it the page composes one from the points' changes.
+    pub headline: Option<String>,
 }
 
 /// Words for what is compared.
@@ -184,11 +195,29 @@ pub struct FlagWords {
     pub words: String,
 }
 
+/// What changed against each group's own usual: the page's opening words when the
+/// report has baselines.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ChangesView {
+    /// `changed` when some group is worse or better than its usual, else `as-usual`.
+    pub class: &'static str,
+    /// `KES worse than its usual: 2.02% against 0.71%`, or that none changed.
+    pub headline: String,
+    /// The others as usual, and those that cannot be told.
+    pub line: String,
+}
+
 /// The verdict section.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct VerdictSection {
-    /// Verdict and headline.
+    /// The changes against each group's usual, first, when there are baselines.
+    pub changes: Option<ChangesView>,
+    /// Persistent differences between the groups over the baseline window.
+    pub persistent: Option<String>,
+    /// The binomial test's verdict and headline.
     pub verdict: VerdictView,
+    /// The caution that at these volumes even small differences are significant.
+    pub caveat: Option<String>,
     /// `1 site flagged:` with the flagged groups, or the sentence saying none is.
     pub flags: Option<(String, Vec<FlagWords>)>,
     /// The pooled rate and the sample behind it.
@@ -237,6 +266,36 @@ pub struct GroupView {
     pub flag: Option<Flag>,
     /// Share of X², or a dash.
     pub share: String,
+    /// Against its own usual, when the report has baselines.
+    pub baseline: Option<BaselineCells>,
+}
+
+/// A group's cells against its own usual.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct BaselineCells {
+    /// The usual (baseline) rate, or a dash.
+    pub usual: String,
+    /// Tooltip: its interval and the periods behind it.
+    pub usual_title: String,
+    /// `2.85×`, or a dash.
+    pub ratio: String,
+    /// Tooltip: the ratio's interval and the z-score against the limit.
+    pub ratio_title: String,
+    /// The verdict.
+    pub verdict: BaselineVerdict,
+    /// `◉ worse`, `◉ better`, `usual`, `unknown`.
+    pub word: String,
+    /// The verdict's reason in words.
+    pub reason: String,
+}
+
+/// The verdict against its usual as the table shows it: changes carry ◉.
+pub fn baseline_word(v: BaselineVerdict) -> String {
+    if v.is_change() {
+        format!("{CHANGE} {}", v.as_str())
+    } else {
+        v.as_str().to_owned()
+    }
 }
 
 /// The flag's tag words: `▲ above`, `▼ below`.
@@ -267,6 +326,8 @@ pub struct PairView {
     pub p_adjusted: String,
     /// `yes` / `no` against the minimum difference of interest, when one was given.
     pub beyond: Option<&'static str>,
+    /// Why the pair is no test, when it is not.
+    pub untestable: Option<String>,
 }
 
 /// The pairwise comparisons section.
@@ -363,6 +424,10 @@ pub struct ReportView {
     pub conf: String,
     /// The groups table.
     pub groups: Vec<GroupView>,
+    /// The groups table has the columns against each group's usual.
+    pub with_baseline: bool,
+    /// The legend of the baseline columns.
+    pub baseline_legend: Option<String>,
     /// `All (5)`, inspected, defective, rate.
     pub totals: [String; 4],
     /// The flag rule, when there was a test.
@@ -389,6 +454,8 @@ pub struct ReportView {
     pub excluded: Vec<(String, String)>,
     /// How it was computed.
     pub method: Vec<Fact>,
+    /// The test's reference distribution, when there is a test.
+    pub reference: Option<ReferenceChart>,
     /// Cautions.
     pub cautions: Vec<String>,
     /// The query of the same report as JSON.
@@ -405,7 +472,9 @@ impl ReportView {
         Self {
             title: report_title(report),
             verdict: verdict_section(report, &units),
-            groups: report.groups.iter().map(group_view).collect(),
+            groups: report.groups.iter().map(|g| group_view(g, &conf)).collect(),
+            with_baseline: report.groups.iter().any(|g| g.baseline.is_some()),
+            baseline_legend: baseline_legend(report),
             totals: [
                 format!("All ({})", fmt_count(t.group_count as u64)),
                 fmt_count(t.inspected),
@@ -451,6 +520,7 @@ impl ReportView {
                 .map(|e| (e.code.clone(), e.reason.clone()))
                 .collect(),
             method: method_facts(report),
+            reference: ReferenceChart::of(report),
             cautions: report.cautions.clone(),
             json_query: json_query(report),
             conf,
@@ -558,7 +628,14 @@ fn verdict_section(report: &Report, units: &Units) -> VerdictSection {
     });
     let t = &report.totals;
     VerdictSection {
+        changes: changes_view(report, units),
+        persistent: persistent_view(report, units),
         verdict,
+        caveat: report
+            .cautions
+            .iter()
+            .find(|c| c.contains("even small differences are statistically significant"))
+            .cloned(),
         flags,
         pooled: format!(
             "Pooled defect rate {} ({} defective of {} inspected, {}).",
@@ -570,7 +647,108 @@ fn verdict_section(report: &Report, units: &Units) -> VerdictSection {
     }
 }
 
-fn group_view(g: &GroupRow) -> GroupView {
+/// The changes against each group's usual, in words; `None` without baselines.
+fn changes_view(report: &Report, units: &Units) -> Option<ChangesView> {
+    let with: Vec<(&GroupRow, &Baseline)> = report
+        .groups
+        .iter()
+        .filter_map(|g| g.baseline.as_ref().map(|b| (g, b)))
+        .collect();
+    if with.is_empty() {
+        return None;
+    }
+    let unit = unit_word(report.period.as_ref());
+    let count = |v: BaselineVerdict| with.iter().filter(|(_, b)| b.verdict == v).count();
+    let (usual, unknown) = (
+        count(BaselineVerdict::Usual),
+        count(BaselineVerdict::Unknown),
+    );
+    let headline = if report.changes.is_empty() {
+        format!("No {} worse or better than its usual", units.singular)
+    } else {
+        report
+            .changes
+            .iter()
+            .map(|c| {
+                format!(
+                    "{} {} than its usual: {} against {}",
+                    c.code,
+                    c.verdict.as_str(),
+                    fmt_pct(c.rate),
+                    fmt_pct(c.baseline_rate)
+                )
+            })
+            .collect::<Vec<_>>()
+            .join("; ")
+    };
+    let mut line = match (report.changes.is_empty(), usual) {
+        (_, 0) => String::new(),
+        (true, n) if n == with.len() => format!(
+            "All {} as usual, each against its own last {unit}s.",
+            units.count(n)
+        ),
+        (true, n) => format!("{} as usual.", units.count(n)),
+        (false, n) => format!(
+            "The other {} as usual.",
+            if n == 1 {
+                units.singular.to_owned()
+            } else {
+                units.count(n)
+            }
+        ),
+    };
+    if unknown > 0 {
+        let who: Vec<&str> = with
+            .iter()
+            .filter(|(_, b)| b.verdict == BaselineVerdict::Unknown)
+            .map(|(g, _)| g.code.as_str())
+            .collect();
+        if !line.is_empty() {
+            line.push(' ');
+        }
+        line.push_str(&format!(
+            "Not known for {}: {} (too few earlier {unit}s with units to tell).",
+            units.count(unknown),
+            who.join(", ")
+        ));
+    }
+    Some(ChangesView {
+        class: if report.changes.is_empty() {
+            "as-usual"
+        } else {
+            "changed"
+        },
+        headline,
+        line,
+    })
+}
+
+/// Persistent differences over the baseline window, in words.
+fn persistent_view(report: &Report, units: &Units) -> Option<String> {
+    let spread = report.usual_spread.as_ref()?;
+    let persistent = persistent_words(spread, unit_word(report.period.as_ref()));
+    let differ = report.test.as_ref().is_some_and(|t| t.significant);
+    let usually = spread.phi.is_some_and(|phi| phi > 1.0);
+    let list = persistent.join("; ");
+    match (differ && usually, persistent.is_empty()) {
+        (true, true) => Some(format!(
+            "The {} also differ as they usually do (over the last {}).",
+            units.plural,
+            {
+                let unit = unit_word(report.period.as_ref());
+                count_of(spread.periods, unit, &format!("{unit}s"))
+            }
+        )),
+        (true, false) => Some(format!(
+            "The {} also differ as they usually do: {list}.",
+            units.plural
+        )),
+        (false, false) => Some(format!("Persistent differences: {list}.")),
+        (false, true) => None,
+    }
+}
+
+fn group_view(g: &GroupRow, conf: &str) -> GroupView {
     GroupView {
         code: g.code.clone(),
         name: g.name.clone().filter(|l| *l != g.code),
@@ -590,7 +768,85 @@ fn group_view(g: &GroupRow) -> GroupView {
         share: g
             .share_of_statistic
             .map_or_else(|| "\u{2014}".to_owned(), fmt_share),
+        baseline: g.baseline.as_ref().map(|b| baseline_cells(b, conf)),
     }
+}
+
+const DASH: &str = "\u{2014}";
+
+fn baseline_cells(b: &Baseline, conf: &str) -> BaselineCells {
+    let left_out = if b.left_out.is_empty() {
+        String::new()
+    } else {
+        format!("; left out as excursions: {}", b.left_out.join(", "))
+    };
+    BaselineCells {
+        usual: b.rate.map_or_else(|| DASH.to_owned(), fmt_pct),
+        usual_title: format!(
+            "pooled over {}{}{left_out}",
+            count_of(b.periods, "earlier period", "earlier periods"),
+            b.rate_ci
+                .map(|ci| format!(
+                    ", {conf} interval {} to {}",
+                    fmt_pct(ci.lower),
+                    fmt_pct(ci.upper)
+                ))
+                .unwrap_or_default()
+        ),
+        ratio: b
+            .ratio
+            .filter(|r| r.is_finite())
+            .map_or_else(|| DASH.to_owned(), |r| format!("{}\u{00d7}", fmt_num(r, 2))),
+        ratio_title: format!(
+            "{}{}",
+            b.ratio_ci
+                .filter(|ci| ci.lower.is_finite() && ci.upper.is_finite())
+                .map(|ci| format!(
+                    "{conf} interval {}\u{00d7} to {}\u{00d7}; ",
+                    fmt_num(ci.lower, 2),
+                    fmt_num(ci.upper, 2)
+                ))
+                .unwrap_or_default(),
+            match b.z {
+                Some(z) => format!(
+                    "z = {} against \u{00b1}{} ({})",
+                    fmt_num(z, 1),
+                    fmt_num(b.limit, 2),
+                    b.method
+                ),
+                None => format!("no z ({})", b.method),
+            }
+        ),
+        verdict: b.verdict,
+        word: baseline_word(b.verdict),
+        reason: b.reason.clone(),
+    }
+}
+
+/// `week`, `month`, … for the report's kind of period.
+fn unit_word(period: Option<&Period>) -> &'static str {
+    match period.map(Period::granularity) {
+        Some(Granularity::Day) => "day",
+        Some(Granularity::IsoWeek) => "week",
+        Some(Granularity::Month) => "month",
+        Some(Granularity::Quarter) => "quarter",
+        Some(Granularity::Year) => "year",
+        Some(Granularity::Range) => "range",
+        None => "period",
+    }
+}
+
+fn baseline_legend(report: &Report) -> Option<String> {
+    let b = report.groups.iter().find_map(|g| g.baseline.as_ref())?;
+    let unit = unit_word(report.period.as_ref());
+    Some(format!(
+        "Usual rate: the group's own pooled rate over up to {} earlier {unit}s; ratio: this {unit}'s rate divided by it. {CHANGE} marks a change against the group's own usual (worse or better, in words), with the between-{unit} variation folded in (limit \u{00b1}{}); \u{25b2} \u{25bc} mark a flag against the pooled rate of this {unit}'s groups. Hover a verdict for its reason.",
+        report
+            .parameters
+            .baseline
+            .map_or_else(|| fmt_count(b.periods as u64), |n| fmt_count(n as u64)),
+        fmt_num(b.limit, 2),
+    ))
 }
 
 fn flag_rule(report: &Report, conf: &str) -> Option<String> {
@@ -632,9 +888,12 @@ fn pair_view(p: &PairRow, with_practical: bool) -> PairView {
             fmt_pp(p.difference_ci.upper)
         ),
         method: method_words(p.method),
-        p: fmt_p(p.p_value),
-        p_title: fmt_log10_p(p.log10_p),
-        p_adjusted: fmt_p(p.p_adjusted),
+        // An untestable pair has no p (the report says why in `untestable`).
+        // An untestable pair has no p (the reason is shown instead).
+        p: p.p_value.map_or_else(|| "\u{2014}".to_owned(), fmt_p),
+        p_title: p.log10_p.map_or_else(String::new, fmt_log10_p),
+        p_adjusted: p.p_adjusted.map_or_else(|| "\u{2014}".to_owned(), fmt_p),
+        untestable: p.untestable.clone(),
         beyond: with_practical.then_some(match p.beyond_min_difference {
             Some(true) => "yes",
             Some(false) => "no",
@@ -650,8 +909,16 @@ fn pairs_view(report: &Report, conf: &str) -> PairsView {
     pairs.sort_by(|a, b| {
         b.significant
             .cmp(&a.significant)
-            .then(a.p_adjusted.total_cmp(&b.p_adjusted))
-            .then(a.log10_p.total_cmp(&b.log10_p))
+            .then(
+                a.p_adjusted
+                    .unwrap_or(f64::INFINITY)
+                    .total_cmp(&b.p_adjusted.unwrap_or(f64::INFINITY)),
+            )
+            .then(
+                a.log10_p
+                    .unwrap_or(f64::INFINITY)
+                    .total_cmp(&b.log10_p.unwrap_or(f64::INFINITY)),
+            )
     });
     let significant = pairs.iter().filter(|p| p.significant).count();
     let (shown, rest): (Vec<&PairRow>, Vec<&PairRow>) = if significant > 0 {
@@ -861,6 +1128,51 @@ fn method_facts(report: &Report) -> Vec<Fact> {
             ),
         ));
     }
+    if let Some(b) = report.groups.iter().find_map(|g| g.baseline.as_ref()) {
+        let unit = unit_word(report.period.as_ref());
+        let exact = report
+            .groups
+            .iter()
+            .filter(|g| g.baseline.as_ref().is_some_and(|b| b.method == "exact"))
+            .count();
+        facts.push(Fact::new(
+            "Against its usual",
+            format!(
+                "Each group's rate against its own pooled rate over up to {} earlier {unit}s; the z-score has the group's between-{unit} variation folded in (Laney 2002), and |z| beyond \u{00b1}{} (a \u{0160}id\u{00e1}k-adjusted limit for {} calls) is a change. A baseline {unit} beyond the limit against the rest is left out as an excursion.{}",
+                report
+                    .parameters
+                    .baseline
+                    .map_or_else(|| fmt_count(b.periods as u64), |n| fmt_count(n as u64)),
+                fmt_num(b.limit, 2),
+                fmt_count(report.groups.iter().filter(|g| g.baseline.is_some()).count() as u64),
+                if exact > 0 {
+                    format!(
+                        " {} with small counts {} judged by an exact test instead.",
+                        count_of(exact, "group", "groups"),
+                        if exact == 1 { "is" } else { "are" }
+                    )
+                } else {
+                    String::new()
+                }
+            ),
+        ));
+    }
+    if let Some(u) = &report.usual_spread {
+        facts.push(Fact::new(
+            "Usual spread",
+            match u.phi {
+                Some(phi) => format!(
+                    "Between-group overdispersion phi = {} over the last {} (Spiegelhalter 2005).",
+                    fmt_num(phi, 2),
+                    count_of(u.periods, "period", "periods")
+                ),
+                None => format!(
+                    "Not estimable over the last {}.",
+                    count_of(u.periods, "period", "periods")
+                ),
+            },
+        ));
+    }
     if let Some(o) = &report.overdispersion {
         facts.push(Fact::new("Overdispersion", o.note.clone()));
     }
@@ -868,7 +1180,7 @@ fn method_facts(report: &Report) -> Vec<Fact> {
     facts.push(Fact::new(
         "Parameters",
         format!(
-            "{alpha}, method {}, pairwise {}, adjustment {}, {} Monte Carlo resamples{}, overdispersion {}{}",
+            "{alpha}, method {}, pairwise {}, adjustment {}, {} Monte Carlo resamples{}, overdispersion {}{}{}",
             p.method,
             p.pairwise,
             adjust_words(p.adjust.as_str()),
@@ -880,6 +1192,10 @@ fn method_facts(report: &Report) -> Vec<Fact> {
                 ))
                 .unwrap_or_default(),
             p.overdispersion,
+            match p.baseline {
+                Some(n) => format!(", baseline {n}"),
+                None => ", baseline off".to_owned(),
+            },
             p.as_of
                 .as_deref()
                 .map(|a| format!(", data as of {a}"))
@@ -888,7 +1204,7 @@ fn method_facts(report: &Report) -> Vec<Fact> {
     ));
     facts.push(Fact::new(
         "Sources",
-        "Pearson chi-square and likelihood-ratio tests of homogeneity; Fisher's exact test; Monte Carlo p-values over tables with the same margins (Patefield 1981); Wilson (1927) score intervals; Newcombe (1998) intervals for differences; Holm (1979) adjustment; adjusted residuals (Haberman 1973) compared with the analysis-of-means critical value; overdispersion after Spiegelhalter (2005); funnel limits after Spiegelhalter (2005).".to_owned(),
+        "Pearson chi-square and likelihood-ratio tests of homogeneity; Fisher's exact test; Monte Carlo p-values over tables with the same margins (Patefield 1981); Wilson (1927) score intervals; Newcombe (1998) intervals for differences; Holm (1979) adjustment; adjusted residuals (Haberman 1973) compared with the analysis-of-means critical value; overdispersion after Spiegelhalter (2005); funnel limits after Spiegelhalter (2005); each group against its own baseline after Laney (2002), with \u{0160}id\u{00e1}k-adjusted limits.".to_owned(),
     ));
     facts
 }
@@ -931,6 +1247,8 @@ pub struct SeriesRow {
     pub verdict: Verdict,
     /// Flagged groups: (code, flag).
     pub flagged: Vec<(String, Flag)>,
+    /// Changes against the groups' own usual: (code, verdict, tooltip).
+    pub changes: Vec<(String, BaselineVerdict, String)>,
 }
 
 /// Everything the series page shows.
@@ -1003,6 +1321,24 @@ impl SeriesPage {
                     },
                     verdict,
                     flagged: p.flagged.iter().map(|f| (f.code.clone(), f.flag)).collect(),
+                    changes: p
+                        .changes
+                        .iter()
+                        .map(|c| {
+                            (
+                                c.code.clone(),
+                                c.verdict,
+                                format!(
+                                    "{} {} than its usual: {} against {} (z = {})",
+                                    c.code,
+                                    c.verdict.as_str(),
+                                    fmt_pct(c.rate),
+                                    fmt_pct(c.baseline_rate),
+                                    fmt_num(c.z, 1)
+                                ),
+                            )
+                        })
+                        .collect(),
                 }
             })
             .collect();
@@ -1012,12 +1348,18 @@ impl SeriesPage {
             } else {
                 Verdict::NotSignificant.class()
             },
-            headline: format!(
-                "{}: significant in {} of {}",
-                units.title,
-                fmt_count(significant as u64),
-                count_of(view.points.len(), "period", "periods")
-            ),
+            headline: match &view.headline {
+                Some(h) => h.clone(),
+                None if view.points.iter().any(|p| !p.changes.is_empty()) => {
+                    series_headline(&view.points, sel.level, true)
+                }
+                None => format!(
+                    "{}: significant in {} of {}",
+                    units.title,
+                    fmt_count(significant as u64),
+                    count_of(view.points.len(), "period", "periods")
+                ),
+            },
             line: format!(
                 "From {} to {}: the difference in defect rate between the {} is significant at {alpha} in {} of the {} that could be tested{}.",
                 view.from,

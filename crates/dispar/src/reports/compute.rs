@@ -9,8 +9,11 @@ use std::time::Instant;
 use dispar_core::period::Period;
 use dispar_core::report::build::CAUTIONS;
 use dispar_core::report::model::ParametersEcho;
-use dispar_core::report::{GroupCounts, Level, Report, SeriesPoint, build_report, build_summary};
-use dispar_store::{GroupTotals, Store, StoreError};
+use dispar_core::report::{
+    BaselineWindow, GroupCounts, Level, Report, SeriesPoint, build_report, build_summary,
+};
+use dispar_store::{AggregateQuery, GroupTotals, Store, StoreError};
+use time::Date;
 
 use super::spec::{ReportSpec, format_as_of};
 
@@ -55,6 +58,40 @@ pub enum Detail {
     Summary,
 }
 
+/// The display names of the groups at the spec's level: site names at the site and
+/// all-lines levels, line names at the line level.
+async fn names(
+    store: &dyn Store,
+    spec: &ReportSpec,
+) -> Result<HashMap<String, String>, StoreError> {
+    Ok(match &spec.level {
+        Level::Site | Level::AllLines => store
+            .list_sites()
+            .await?
+            .into_iter()
+            .map(|s| (s.code.as_str().to_owned(), s.name.as_str().to_owned()))
+            .collect(),
+        Level::Line { site } => store
+            .get_site(site)
+            .await?
+            .lines
+            .into_iter()
+            .filter_map(|l| {
+                let name = l.name?;
+                Some((l.code.as_str().to_owned(), name.as_str().to_owned()))
+            })
+            .collect(),
+    })
+}
+
+/// The name of a group `g` from `names` (by line at the line level, else by site).
+fn label_of(spec: &ReportSpec, names: &HashMap<String, String>, g: &GroupTotals) -> Option<String> {
+    match (&spec.level, &g.line) {
+        (Level::Line { .. }, Some(line)) => names.get(line.as_str()).cloned(),
+        _ => names.get(g.site.as_str()).cloned(),
+    }
+}
+
 /// Sums the counts of `period` per group (one `aggregate` call). For a full report it
 /// also reads the display names: site names at the site and all-lines levels, line
 /// names at the line level (read after the sums, so they are never older than the
@@ -73,37 +110,16 @@ pub async fn load(
             g.defects.clear();
         }
     }
-    let names: HashMap<String, String> = if detail == Detail::Summary || aggregate.groups.is_empty()
-    {
+    let names = if detail == Detail::Summary || aggregate.groups.is_empty() {
         HashMap::new()
     } else {
-        match &spec.level {
-            Level::Site | Level::AllLines => store
-                .list_sites()
-                .await?
-                .into_iter()
-                .map(|s| (s.code.as_str().to_owned(), s.name.as_str().to_owned()))
-                .collect(),
-            Level::Line { site } => store
-                .get_site(site)
-                .await?
-                .lines
-                .into_iter()
-                .filter_map(|l| {
-                    let name = l.name?;
-                    Some((l.code.as_str().to_owned(), name.as_str().to_owned()))
-                })
-                .collect(),
-        }
+        names(store, spec).await?
     };
     let groups = aggregate
         .groups
         .into_iter()
         .map(|g| {
-            let label = match (&spec.level, &g.line) {
-                (Level::Line { .. }, Some(line)) => names.get(line.as_str()).cloned(),
-                _ => names.get(g.site.as_str()).cloned(),
-            };
+            let label = label_of(spec, &names, &g);
             counts(group_name(&spec.level, &g), label, g)
         })
         .collect();
@@ -113,15 +129,18 @@ pub async fn load(
     })
 }
 
-/// The report of `period` over `groups` (pure; CPU-bound for many groups), the
-/// statistics giving up at `deadline`.
+/// The report of `period` over `groups` against the baseline `window` (pure;
+/// CPU-bound for many groups), the statistics giving up at `deadline`.
 pub fn build(
     spec: &ReportSpec,
     period: Period,
     groups: &[GroupCounts],
+    window: Option<BaselineWindow>,
     deadline: Option<Instant>,
 ) -> Report {
-    build_report(&spec.request(period, deadline), groups)
+    let mut request = spec.request(period, deadline);
+    request.baseline = window;
+    build_report(&request, groups)
 }
 
 /// One period's verdict for a series.
@@ -129,9 +148,164 @@ pub fn summary(
     spec: &ReportSpec,
     period: Period,
     groups: &[GroupCounts],
+    window: Option<BaselineWindow>,
     deadline: Option<Instant>,
 ) -> SeriesPoint {
-    build_summary(&spec.request(period, deadline), groups)
+    let mut request = spec.request(period, deadline);
+    request.baseline = window;
+    build_summary(&request, groups)
+}
+
+/// Per-bucket sums of a bucketed aggregate as group code -> counts per bucket.
+fn by_code(spec: &ReportSpec, buckets: &[Vec<GroupTotals>]) -> BTreeMap<String, Vec<(u64, u64)>> {
+    let mut counts: BTreeMap<String, Vec<(u64, u64)>> = BTreeMap::new();
+    for (i, bucket) in buckets.iter().enumerate() {
+        for g in bucket {
+            let v = counts
+                .entry(group_name(&spec.level, g))
+                .or_insert_with(|| vec![(0, 0); buckets.len()]);
+            v[i] = (g.inspected, g.defective);
+        }
+    }
+    counts
+}
+
+/// The dates of `periods` as store buckets, with the range they span.
+fn buckets_of(
+    spec: &ReportSpec,
+    periods: &[Period],
+) -> Option<(AggregateQuery, Vec<(Date, Date)>)> {
+    let first = periods.first()?;
+    let last = periods.last()?;
+    let mut query = spec.aggregate_query(first);
+    query.to = last.last_day();
+    let buckets = periods
+        .iter()
+        .map(|p| (p.first_day(), p.last_day()))
+        .collect();
+    Some((query, buckets))
+}
+
+/// The baseline window of `period` (one bucketed aggregate over its earlier periods),
+/// or `None` with `baseline=off`; with the data version it was read at.
+pub async fn load_window(
+    store: &dyn Store,
+    spec: &ReportSpec,
+    period: &Period,
+) -> Result<Option<(BaselineWindow, u64)>, StoreError> {
+    let Some(length) = spec.parameters.baseline else {
+        return Ok(None);
+    };
+    let periods = period.earlier(length);
+    let Some((query, buckets)) = buckets_of(spec, &periods) else {
+        return Ok(Some((
+            BaselineWindow {
+                periods,
+                counts: BTreeMap::new(),
+                length,
+            },
+            store.data_version().await?,
+        )));
+    };
+    let a = store.aggregate_buckets(&query, &buckets).await?;
+    Ok(Some((
+        BaselineWindow {
+            counts: by_code(spec, &a.buckets),
+            periods,
+            length,
+        },
+        a.data_version,
+    )))
+}
+
+/// Every period of a series with the baseline window of each, from ONE bucketed
+/// aggregate over the earlier periods of the first and the periods of the series.
+#[derive(Debug, Clone)]
+pub struct SeriesLoad {
+    /// Per period of the series, its groups (no names, no categories).
+    pub groups: Vec<Vec<GroupCounts>>,
+    /// Per period of the series, its baseline window (`None` with `baseline=off`).
+    pub windows: Vec<Option<BaselineWindow>>,
+    /// The data version of the read.
+    pub data_version: u64,
+}
+
+/// Loads a series: the periods of `span` and, with a baseline, the earlier periods
+/// before the first, in one aggregate bucketed by period.
+pub async fn load_series(
+    store: &dyn Store,
+    spec: &ReportSpec,
+    periods: &[Period],
+) -> Result<SeriesLoad, StoreError> {
+    let length = spec.parameters.baseline;
+    let before = match (length, periods.first()) {
+        (Some(n), Some(first)) => first.earlier(n),
+        _ => Vec::new(),
+    };
+    let all: Vec<Period> = before.iter().chain(periods).copied().collect();
+    let Some((query, buckets)) = buckets_of(spec, &all) else {
+        return Ok(SeriesLoad {
+            groups: Vec::new(),
+            windows: Vec::new(),
+            data_version: store.data_version().await?,
+        });
+    };
+    let a = store.aggregate_buckets(&query, &buckets).await?;
+    // Read after the sums, so the names are never older than the data; the changes
+    // of a point show them.
+    let names = names(store, spec).await?;
+    let counts = by_code(spec, &a.buckets);
+    let offset = before.len();
+    // A point's window is the `wanted` buckets before it (the first point's window
+    // may be shorter near year 2000; later points then have the longer one).
+    let wanted = periods
+        .first()
+        .zip(length)
+        .map_or(0, |(p, n)| p.earlier(n).len().max(offset));
+    let windows = (0..periods.len())
+        .map(|j| {
+            let length = length?;
+            let end = offset + j;
+            let start = end.saturating_sub(wanted);
+            Some(BaselineWindow {
+                periods: all[start..end].to_vec(),
+                counts: counts
+                    .iter()
+                    .map(|(code, v)| (code.clone(), v[start..end].to_vec()))
+                    .collect(),
+                length,
+            })
+        })
+        .collect();
+    let groups = a.buckets[offset..]
+        .iter()
+        .map(|bucket| {
+            bucket
+                .iter()
+                .map(|g| GroupCounts {
+                    code: group_name(&spec.level, g),
+                    name: label_of(spec, &names, g),
+                    inspected: g.inspected,
+                    defective: g.defective,
+                    defects: BTreeMap::new(),
+                })
+                .collect()
+        })
+        .collect();
+    Ok(SeriesLoad {
+        groups,
+        windows,
+        data_version: a.data_version,
+    })
+}
+
+/// The headline of a series (see [`dispar_core::report::baseline::series_headline`]).
+pub fn series_headline(spec: &ReportSpec, points: &[SeriesPoint]) -> String {
+    dispar_core::report::baseline::series_headline(
+        points,
+        spec.level.kind(),
+        spec.parameters.baseline.is_some(),
+    )
 }
 
 /// The parameters as a report echoes them.
@@ -146,6 +320,7 @@ pub fn echo(spec: &ReportSpec) -> ParametersEcho {
         min_difference: p.min_difference,
         overdispersion: p.overdispersion,
         as_of: spec.as_of.map(format_as_of),
+        baseline: p.baseline,
     }
 }
 

@@ -41,6 +41,7 @@
 
 pub mod cache;
 pub mod compute;
+pub mod cost;
 pub mod params;
 pub mod service;
 pub mod spec;
@@ -200,13 +201,16 @@ async fn get_report(
     let (spec, period) = ReportSpec::parse_report(&q).map_err(params_error)?;
     let key = service::report_key(&spec, period);
     let reports = state.reports();
-    // One cheap read decides a conditional request before anything is computed.
-    let version = reports.data_version().await?;
+    // One cheap read decides a conditional request before anything is computed: the
+    // data version of what this report reads (its days, baseline window and sites).
+    let version = reports.report_version(&spec, period).await?;
     let wanted = none_match(&headers, &etag(&key, version));
     if wanted == NoneMatch::Tag {
         return Ok(not_modified(&etag(&key, version)));
     }
-    let answer = reports.report_at(version, &spec, period).await?;
+    let answer = reports
+        .report_at(version, &spec, period, Some(caller.key_id))
+        .await?;
     Ok(respond(wanted, &key, answer))
 }
 
@@ -221,12 +225,14 @@ async fn get_series(
     let (spec, span) = ReportSpec::parse_series(&q).map_err(params_error)?;
     let key = service::series_key(&spec, &span);
     let reports = state.reports();
-    let version = reports.data_version().await?;
+    let version = reports.series_version(&spec, &span).await?;
     let wanted = none_match(&headers, &etag(&key, version));
     if wanted == NoneMatch::Tag {
         return Ok(not_modified(&etag(&key, version)));
     }
-    let answer = reports.series_at(version, &spec, &span).await?;
+    let answer = reports
+        .series_at(version, &spec, &span, Some(caller.key_id))
+        .await?;
     Ok(respond(wanted, &key, answer))
 }
 

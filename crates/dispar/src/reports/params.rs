@@ -21,6 +21,7 @@ pub const REPORT_PARAMETERS: &[&str] = &[
     "resamples",
     "min_difference",
     "overdispersion",
+    "baseline",
     "as_of",
 ];
 
@@ -38,6 +39,7 @@ pub const SERIES_PARAMETERS: &[&str] = &[
     "resamples",
     "min_difference",
     "overdispersion",
+    "baseline",
     "as_of",
 ];
 
@@ -66,7 +68,7 @@ pub struct ReportParams {
     /// Only this product.
     #[arg(long)]
     pub product: Option<String>,
-    /// Significance level, between 0 and 1 (default 0.05).
+    /// Significance level, from 1e-12 up to (not including) 1 (default 0.05).
     #[arg(long)]
     pub alpha: Option<String>,
     /// Omnibus test: auto, pearson, g, exact.
@@ -88,6 +90,10 @@ pub struct ReportParams {
     /// flag rule's limit by sqrt(phi) when phi > 1).
     #[arg(long, value_name = "estimate|widen")]
     pub overdispersion: Option<String>,
+    /// Earlier periods of the same kind each group is compared with (2 to 52, default
+    /// 8; a day uses the group's earlier days with production), or off.
+    #[arg(long, value_name = "N|off")]
+    pub baseline: Option<String>,
     /// Use the data as they stood at this RFC 3339 instant (e.g. 2026-04-01T00:00:00Z).
     #[arg(long, value_name = "TIMESTAMP")]
     pub as_of: Option<String>,
@@ -112,6 +118,7 @@ impl ReportParams {
             resamples,
             min_difference,
             overdispersion,
+            baseline,
             as_of,
         } = self;
         let value = match name {
@@ -128,6 +135,7 @@ impl ReportParams {
             "resamples" => resamples,
             "min_difference" => min_difference,
             "overdispersion" => overdispersion,
+            "baseline" => baseline,
             "as_of" => as_of,
             _ => return None,
         };

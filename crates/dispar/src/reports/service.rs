@@ -17,7 +17,7 @@ use axum::body::Bytes;
 use dispar_core::period::{Granularity, Period};
 use dispar_core::report::model::ParametersEcho;
 use dispar_core::report::{Filters, LevelKind, Report, SeriesPoint};
-use dispar_store::{AggregateQuery, Store, StoreError};
+use dispar_store::{AggregateQuery, Store, StoreError, VersionScope};
 use serde::Serialize;
 use time::Date;
 use tokio::sync::Semaphore;
@@ -44,6 +44,9 @@ pub struct Series {
     pub filters: Filters,
     /// The statistical choices.
     pub parameters: ParametersEcho,
+    /// The series in words: the changes over the range ("KES worse than its usual in
+    /// 2026-W15–W18"), or, with `baseline=off`, how many periods differ.
+    pub headline: String,
     /// One verdict per period, in order.
     pub periods: Vec<SeriesPoint>,
     /// The cautions every series carries.
@@ -85,6 +88,9 @@ pub enum ReportError {
     /// The computation itself failed (a worker panicked, the JSON could not be
     /// written); the cause is for the log.
     Failed(String),
+    /// The request's Monte Carlo work would exceed the bound ([`super::cost`]); the
+    /// words say how many resamples would fit.
+    TooCostly(String),
 }
 
 impl fmt::Display for ReportError {
@@ -93,6 +99,7 @@ impl fmt::Display for ReportError {
             ReportError::Store(e) => e.fmt(f),
             ReportError::TimedOut => f.write_str("the report took longer than allowed"),
             ReportError::Failed(cause) => write!(f, "the report computation failed: {cause}"),
+            ReportError::TooCostly(why) => f.write_str(why),
         }
     }
 }
@@ -121,6 +128,14 @@ impl From<ReportError> for ApiError {
                 "The report took longer than this server allows; ask for a shorter period, fewer resamples or method=auto.",
             ),
             e @ ReportError::Failed(_) => ApiError::internal(e),
+            ReportError::TooCostly(why) => ApiError::validation(
+                "The report would take too much computing.",
+                vec![crate::error::ErrorItem::parameter(
+                    "resamples",
+                    "too-costly",
+                    why,
+                )],
+            ),
         }
     }
 }
@@ -130,6 +145,43 @@ impl From<ReportError> for ApiError {
 enum Cached {
     Report(Arc<Report>, Bytes),
     Series(Arc<Series>, Bytes),
+}
+
+/// What a report of `period` reads: its days widened to its baseline window (the first
+/// day of the earliest earlier period; for a day, the candidate days a baseline of days
+/// with production is drawn from), and its site (line level, or a site filter).
+pub fn report_scope(spec: &ReportSpec, period: Period) -> VersionScope {
+    VersionScope {
+        from: window_start(spec, period),
+        to: period.last_day(),
+        site: scope_site(spec),
+    }
+}
+
+/// What a series reads: its periods and the baseline window before the first.
+pub fn series_scope(spec: &ReportSpec, span: &Span) -> VersionScope {
+    VersionScope {
+        from: window_start(spec, span.from),
+        to: span
+            .periods
+            .last()
+            .map_or(span.to.last_day(), Period::last_day),
+        site: scope_site(spec),
+    }
+}
+
+fn window_start(spec: &ReportSpec, first: Period) -> Date {
+    spec.parameters
+        .baseline
+        .and_then(|n| first.earlier(n).first().map(Period::first_day))
+        .unwrap_or(first.first_day())
+}
+
+fn scope_site(spec: &ReportSpec) -> Option<dispar_core::code::SiteCode> {
+    match &spec.level {
+        dispar_core::report::Level::Line { site } => Some(site.clone()),
+        _ => spec.filters.site.clone(),
+    }
 }
 
 /// The cache and entity-tag key of a one-period report.
@@ -157,6 +209,9 @@ pub struct ReportService {
     store: Arc<dyn Store>,
     cache: ReportCache<Cached>,
     slots: Arc<Semaphore>,
+    /// One heavy job per API key at a time: a key's second uncached report waits for
+    /// its first, so one key cannot hold every CPU slot.
+    per_key: std::sync::Mutex<std::collections::HashMap<dispar_store::KeyId, Arc<Semaphore>>>,
     time_limit: Option<Duration>,
 }
 
@@ -169,14 +224,33 @@ impl ReportService {
             store,
             cache: ReportCache::default(),
             slots: Arc::new(Semaphore::new(cores)),
+            per_key: std::sync::Mutex::default(),
             time_limit,
         }
     }
 
-    /// The store's data version now: what the cache and the entity tags are keyed by
-    /// (every write bumps it).
+    /// The store's data version now (every write bumps it).
     pub async fn data_version(&self) -> Result<u64, ReportError> {
         Ok(self.store.data_version().await?)
+    }
+
+    /// The data version of what a report of `period` reads ([`report_scope`]): what
+    /// its cache entry and entity tag are keyed by, so a write elsewhere leaves both
+    /// alone. Held in the database, so every instance on it agrees.
+    pub async fn report_version(
+        &self,
+        spec: &ReportSpec,
+        period: Period,
+    ) -> Result<u64, ReportError> {
+        Ok(self
+            .store
+            .scoped_version(&report_scope(spec, period))
+            .await?)
+    }
+
+    /// [`Self::report_version`] for a series ([`series_scope`]).
+    pub async fn series_version(&self, spec: &ReportSpec, span: &Span) -> Result<u64, ReportError> {
+        Ok(self.store.scoped_version(&series_scope(spec, span)).await?)
     }
 
     /// True when any site inspected a unit from `first` to `last` (both included).
@@ -202,17 +276,20 @@ impl ReportService {
         spec: &ReportSpec,
         period: Period,
     ) -> Result<Answer<Report>, ReportError> {
-        let version = self.data_version().await?;
-        self.report_at(version, spec, period).await
+        let version = self.report_version(spec, period).await?;
+        self.report_at(version, spec, period, None).await
     }
 
     /// [`Self::report`] for a caller that has just read the data `version` itself
     /// (to answer a conditional request without computing).
+    /// `who` is the API key asking (one heavy job per key at a time; `None` for the
+    /// command line and the pages, which have their own budget).
     pub async fn report_at(
         &self,
         version: u64,
         spec: &ReportSpec,
         period: Period,
+        who: Option<dispar_store::KeyId>,
     ) -> Result<Answer<Report>, ReportError> {
         let key = report_key(spec, period);
         if let Some(Cached::Report(value, body)) = self.cache.get(&key, version) {
@@ -228,13 +305,22 @@ impl ReportService {
         let deadline = self.deadline();
         let started = Instant::now();
         let loaded = compute::load(self.store.as_ref(), spec, &period, Detail::Report).await?;
+        let window = compute::load_window(self.store.as_ref(), spec, &period).await?;
         let db = ms_since(started);
-        let version = loaded.data_version;
+        // Keyed by the scoped version the caller read before the sums: the data read
+        // are at least that new, so an entry is never older than its tag (a write in
+        // between only makes the next request miss).
+        let window = window.map(|w| w.0);
+        let resamples = spec.parameters.resamples;
+        let cells = super::cost::period_cells(spec.parameters.method, resamples, &loaded.groups);
+        if let Some(why) = super::cost::refusal(cells, resamples) {
+            return Err(ReportError::TooCostly(why));
+        }
         let spec = spec.clone();
         let (report, body, stats, json) = self
-            .blocking(deadline, move || {
+            .blocking(deadline, who, move || {
                 let started = Instant::now();
-                let report = compute::build(&spec, period, &loaded.groups, deadline);
+                let report = compute::build(&spec, period, &loaded.groups, window, deadline);
                 let stats = ms_since(started);
                 let started = Instant::now();
                 let body = compute::to_json(&report)?;
@@ -264,8 +350,8 @@ impl ReportService {
         spec: &ReportSpec,
         span: &Span,
     ) -> Result<Answer<Series>, ReportError> {
-        let version = self.data_version().await?;
-        self.series_at(version, spec, span).await
+        let version = self.series_version(spec, span).await?;
+        self.series_at(version, spec, span, None).await
     }
 
     /// [`Self::series`] for a caller that has just read the data `version` itself.
@@ -274,6 +360,7 @@ impl ReportService {
         version: u64,
         spec: &ReportSpec,
         span: &Span,
+        who: Option<dispar_store::KeyId>,
     ) -> Result<Answer<Series>, ReportError> {
         let key = series_key(spec, span);
         if let Some(Cached::Series(value, body)) = self.cache.get(&key, version) {
@@ -288,26 +375,33 @@ impl ReportService {
         count("miss");
         let deadline = self.deadline();
         let started = Instant::now();
-        let mut loads = Vec::with_capacity(span.periods.len());
-        for p in &span.periods {
-            loads.push(compute::load(self.store.as_ref(), spec, p, Detail::Summary).await?);
-        }
-        // Each period is its own read; a write in between makes the versions differ.
-        // Such an answer carries the oldest version and is not cached.
-        let version = loads.iter().map(|l| l.data_version).min().unwrap_or(0);
-        let consistent = loads.iter().all(|l| l.data_version == version);
+        // One read: the periods of the series and the baseline window before them.
+        let load = compute::load_series(self.store.as_ref(), spec, &span.periods).await?;
         let db = ms_since(started);
+        let resamples = spec.parameters.resamples;
+        let cells: u128 = load
+            .groups
+            .iter()
+            .map(|g| super::cost::period_cells(spec.parameters.method, resamples, g))
+            .sum();
+        if let Some(why) = super::cost::refusal(cells, resamples) {
+            return Err(ReportError::TooCostly(why));
+        }
         let spec = spec.clone();
         let span = span.clone();
         let (series, body, stats, json) = self
-            .blocking(deadline, move || {
+            .blocking(deadline, who, move || {
                 let started = Instant::now();
-                let points = span
+                let points: Vec<SeriesPoint> = span
                     .periods
                     .iter()
-                    .zip(&loads)
-                    .map(|(p, l)| compute::summary(&spec, *p, &l.groups, deadline))
+                    .zip(load.groups)
+                    .zip(load.windows)
+                    .map(|((p, groups), window)| {
+                        compute::summary(&spec, *p, &groups, window, deadline)
+                    })
                     .collect();
+                let headline = compute::series_headline(&spec, &points);
                 let stats = ms_since(started);
                 let started = Instant::now();
                 let series = Series {
@@ -317,6 +411,7 @@ impl ReportService {
                     level: spec.level.kind(),
                     filters: spec.filters.clone(),
                     parameters: compute::echo(&spec),
+                    headline,
                     periods: points,
                     cautions: compute::cautions(),
                 };
@@ -326,14 +421,12 @@ impl ReportService {
             .await?;
         let value = Arc::new(series);
         let body = Bytes::from(body);
-        if consistent {
-            self.cache.insert(
-                &key,
-                version,
-                Cached::Series(value.clone(), body.clone()),
-                2 * body.len(),
-            );
-        }
+        self.cache.insert(
+            &key,
+            version,
+            Cached::Series(value.clone(), body.clone()),
+            2 * body.len(),
+        );
         Ok(Answer {
             value,
             body,
@@ -355,8 +448,26 @@ impl ReportService {
     async fn blocking<T: Send + 'static>(
         &self,
         deadline: Option<Instant>,
+        who: Option<dispar_store::KeyId>,
         work: impl FnOnce() -> serde_json::Result<T> + Send + 'static,
     ) -> Result<T, ReportError> {
+        let key_slot = match who {
+            Some(id) => {
+                let sem = match self.per_key.lock() {
+                    Ok(mut map) => map
+                        .entry(id)
+                        .or_insert_with(|| Arc::new(Semaphore::new(1)))
+                        .clone(),
+                    Err(_) => Arc::new(Semaphore::new(1)),
+                };
+                Some(
+                    sem.acquire_owned()
+                        .await
+                        .map_err(|e| ReportError::Failed(e.to_string()))?,
+                )
+            }
+            None => None,
+        };
         let permit = self
             .slots
             .clone()
@@ -366,10 +477,15 @@ impl ReportService {
         let out = tokio::task::spawn_blocking(move || {
             let out = work();
             drop(permit);
+            drop(key_slot);
             out
         })
         .await
         .map_err(|e| ReportError::Failed(e.to_string()))?;
+        // Forget the semaphores no job holds, so the map does not grow with every key.
+        if let Ok(mut map) = self.per_key.lock() {
+            map.retain(|_, sem| Arc::strong_count(sem) > 1 || sem.available_permits() == 0);
+        }
         if deadline.is_some_and(|d| Instant::now() >= d) {
             return Err(ReportError::TimedOut);
         }

@@ -193,7 +193,7 @@ impl ReportSpec {
             Level::AllLines => "all-lines".to_owned(),
         };
         format!(
-            "level={level}&site={}&product={}&alpha={:?}&method={}&pairwise={}&adjust={}&resamples={}&min_difference={}&overdispersion={}&as_of={}",
+            "level={level}&site={}&product={}&alpha={:?}&method={}&pairwise={}&adjust={}&resamples={}&min_difference={}&overdispersion={}&baseline={}&as_of={}",
             self.filters.site.as_ref().map_or("", SiteCode::as_str),
             self.filters
                 .product
@@ -206,6 +206,8 @@ impl ReportSpec {
             p.resamples,
             p.min_difference.map_or(String::new(), |d| format!("{d:?}")),
             p.overdispersion,
+            p.baseline
+                .map_or_else(|| "off".to_owned(), |n| n.to_string()),
             self.as_of.map(format_as_of).unwrap_or_default(),
         )
     }
@@ -236,6 +238,7 @@ impl ReportSpec {
             parameters: self.parameters.clone(),
             as_of: self.as_of.map(format_as_of),
             deadline,
+            baseline: None,
         }
     }
 }

@@ -1,0 +1,23 @@
+-- Data versions scoped to what a report reads, so a write to one site and day leaves the
+-- ETags and cache entries of unrelated reports alone.
+--
+-- day_versions: per (date, site), the data version of the last write that created or
+-- corrected a record of that site on that day. registry_version: the data version of
+-- the last change to a site or line (it can change every report's groups or names).
+-- A report's scoped version is the largest of registry_version and the day_versions
+-- of its days (widened to its baseline window) and sites.
+CREATE TABLE day_versions (
+    date     TEXT NOT NULL,
+    site     TEXT NOT NULL,
+    version  INTEGER NOT NULL,
+    PRIMARY KEY (date, site)
+) STRICT, WITHOUT ROWID;
+
+ALTER TABLE store_state ADD COLUMN registry_version INTEGER NOT NULL DEFAULT 0;
+
+-- Existing data: every day with records, and the registry, at the current version.
+INSERT INTO day_versions (date, site, version)
+SELECT DISTINCT date, site, (SELECT data_version FROM store_state WHERE id = 1)
+FROM counts_current;
+
+UPDATE store_state SET registry_version = data_version WHERE id = 1;
