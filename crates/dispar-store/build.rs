@@ -1,4 +1,5 @@
 //! Rebuild when a migration changes: they are embedded with `sqlx::migrate!`.
 fn main() {
     println!("cargo:rerun-if-changed=migrations/sqlite");
+    println!("cargo:rerun-if-changed=migrations/postgres");
 }

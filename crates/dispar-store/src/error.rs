@@ -49,6 +49,11 @@ pub enum StoreError {
     /// request may be retried.
     #[error("the database is busy; try again")]
     Busy,
+    /// Two transactions collided (a serialization failure or a deadlock, PostgreSQL
+    /// SQLSTATE 40001 or 40P01). The PostgreSQL store retries such a write a few times
+    /// itself; callers see this only when the retries ran out, and may retry later.
+    #[error("the write collided with another transaction; try again")]
+    WriteConflict,
     /// The URL names a backend this build does not have.
     #[error("{0}")]
     Unsupported(String),
@@ -64,7 +69,7 @@ fn first_problem(errors: &[RecordError]) -> String {
 impl StoreError {
     /// True when the same request may succeed if retried later ([`StoreError::Busy`]).
     pub fn is_retryable(&self) -> bool {
-        matches!(self, StoreError::Busy)
+        matches!(self, StoreError::Busy | StoreError::WriteConflict)
     }
 
     pub(crate) fn internal(message: impl Into<String>) -> Self {
@@ -128,6 +133,9 @@ impl From<sqlx::Error> for StoreError {
         match &e {
             sqlx::Error::PoolTimedOut => return StoreError::Busy,
             sqlx::Error::Database(db) => {
+                if let Some(pg) = db.try_downcast_ref::<sqlx::postgres::PgDatabaseError>() {
+                    return from_postgres(pg).unwrap_or_else(|| StoreError::Internal(Box::new(e)));
+                }
                 // SQLite extended result codes: the primary code is the low byte.
                 // SQLITE_BUSY = 5 (and BUSY_RECOVERY/SNAPSHOT/TIMEOUT), SQLITE_LOCKED = 6.
                 if let Some(code) = db.code().and_then(|c| c.parse::<i64>().ok()) {
@@ -143,6 +151,20 @@ impl From<sqlx::Error> for StoreError {
             _ => {}
         }
         StoreError::Internal(Box::new(e))
+    }
+}
+
+/// PostgreSQL's SQLSTATE codes that mean something to callers; `None`: internal.
+fn from_postgres(e: &sqlx::postgres::PgDatabaseError) -> Option<StoreError> {
+    match e.code() {
+        // serialization_failure, deadlock_detected
+        "40001" | "40P01" => Some(StoreError::WriteConflict),
+        // lock_not_available (lock_timeout), query_canceled (statement_timeout),
+        // too_many_connections, cannot_connect_now (starting up or shutting down)
+        "55P03" | "57014" | "53300" | "57P03" => Some(StoreError::Busy),
+        _ => e.constraint().map(|name| StoreError::Constraint {
+            name: name.to_owned(),
+        }),
     }
 }
 

@@ -51,6 +51,7 @@ mod error;
 mod keys;
 mod options;
 mod plan;
+mod postgres;
 mod reports;
 mod sessions;
 mod sites;
@@ -68,6 +69,7 @@ pub use crate::counts::{
 pub use crate::error::{RecordError, RecordProblem, StoreError};
 pub use crate::keys::{ApiKey, KeyId, KeyRole, UnknownRole};
 pub use crate::options::{Backend, OpenOptions, backend_of};
+pub use crate::postgres::PostgresStore;
 pub use crate::reports::{
     Aggregate, AggregateQuery, BucketedAggregate, GroupTotals, Level, VersionScope,
 };
@@ -89,8 +91,6 @@ pub async fn open(url: &str) -> Result<Arc<dyn Store>, StoreError> {
 pub async fn open_with(options: &OpenOptions) -> Result<Arc<dyn Store>, StoreError> {
     match backend_of(&options.url)? {
         Backend::Sqlite => Ok(Arc::new(SqliteStore::open(options).await?)),
-        Backend::Postgres => Err(StoreError::Unsupported(
-            "the PostgreSQL backend is not built yet; use an SQLite path or sqlite: URL".to_owned(),
-        )),
+        Backend::Postgres => Ok(Arc::new(PostgresStore::open(options).await?)),
     }
 }

@@ -9,7 +9,7 @@ use crate::error::StoreError;
 pub enum Backend {
     /// An SQLite file.
     Sqlite,
-    /// A PostgreSQL server (not built yet).
+    /// A PostgreSQL server.
     Postgres,
 }
 
@@ -18,22 +18,24 @@ pub enum Backend {
 pub struct OpenOptions {
     /// `sqlite:PATH`, `sqlite://PATH`, a plain file path, or `postgres://...`.
     pub url: String,
-    /// Size of the read pool (SQLite).
-    pub read_connections: u32,
+    /// Database connections: on SQLite the readers (the one writer comes on top), on
+    /// PostgreSQL the whole pool. `None`: 4 on SQLite, 10 on PostgreSQL.
+    pub connections: Option<u32>,
     /// How long a statement waits for a lock held by another process before
     /// [`StoreError::Busy`].
     pub busy_timeout: Duration,
-    /// How long a write waits for the single writer connection before
-    /// [`StoreError::Busy`].
+    /// How long a write waits for the single writer connection (SQLite) or the write
+    /// lock (PostgreSQL) before [`StoreError::Busy`].
     pub write_wait: Duration,
 }
 
 impl OpenOptions {
-    /// Defaults for `url`: 4 readers, 5 s busy timeout, 30 s wait for the writer.
+    /// Defaults for `url`: the backend's default connections, 5 s busy timeout, 30 s
+    /// wait for the writer (on PostgreSQL: for the write lock).
     pub fn new(url: impl Into<String>) -> Self {
         Self {
             url: url.into(),
-            read_connections: 4,
+            connections: None,
             busy_timeout: Duration::from_secs(5),
             write_wait: Duration::from_secs(30),
         }

@@ -369,9 +369,7 @@ where
     /// The sums of a query: `(site, line, inspected, defective)` per group and
     /// `(site, line, category, count)` per group and category. `None` when the range
     /// is empty.
-    pub(crate) fn sums(
-        query: &AggregateQuery,
-    ) -> Result<Option<SumQueries<DB>>, StoreError> {
+    pub(crate) fn sums(query: &AggregateQuery) -> Result<Option<SumQueries<DB>>, StoreError> {
         let Some(as_of) = query.as_of.map(format_instant).transpose()? else {
             let parts = split_range(query.from, query.to);
             if parts.is_empty() {

@@ -610,7 +610,7 @@ impl From<StoreError> for ApiError {
                     )],
                 )
             }
-            StoreError::Busy => ApiError::unavailable("The database is busy; retry shortly.", 1),
+            StoreError::Busy | StoreError::WriteConflict => ApiError::unavailable("The database is busy; retry shortly.", 1),
             e @ (StoreError::Unsupported(_) | StoreError::Internal(_)) => ApiError::internal(e),
         }
     }

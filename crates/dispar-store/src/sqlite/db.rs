@@ -56,7 +56,7 @@ impl SqliteStore {
         MIGRATOR.run(&writer).await?;
 
         let reader = SqlitePoolOptions::new()
-            .max_connections(options.read_connections.max(1))
+            .max_connections(options.connections.unwrap_or(4).max(1))
             .acquire_timeout(options.write_wait)
             .connect_with(base.create_if_missing(false).pragma("query_only", "ON"))
             .await?;

@@ -6,30 +6,117 @@ use std::sync::Arc;
 use dispar_core::code::{CategoryCode, LineCode, ProductCode, SiteCode};
 use dispar_core::record::{CountRecord, Counts, RecordKey};
 use dispar_core::site::{Line, LineName, Site, SiteName};
-use dispar_store::{OpenOptions, SqliteStore, Store};
+use dispar_store::{OpenOptions, PostgresStore, SqliteStore, Store};
+use sqlx::Connection;
 use tempfile::TempDir;
 use time::Date;
 use time::macros::date;
 
-/// A fresh migrated database in a temp dir (removed on drop).
+/// A fresh migrated database: an SQLite file in a temp dir (removed on drop), or, with
+/// `DISPAR_TEST_POSTGRES` set to a server URL, a new database on that server (left for
+/// the throwaway server to discard).
 pub struct TestDb {
+    pub store: Arc<dyn Store>,
+    backing: Backing,
+}
+
+enum Backing {
+    Sqlite(SqliteDb),
+    Postgres(PostgresStore),
+}
+
+/// A fresh SQLite store with its file.
+pub struct SqliteDb {
     pub store: Arc<dyn Store>,
     pub sqlite: SqliteStore,
     pub path: std::path::PathBuf,
     _dir: TempDir,
 }
 
+/// The PostgreSQL server of the store tests, if any.
+pub fn postgres_server() -> Option<String> {
+    std::env::var("DISPAR_TEST_POSTGRES")
+        .ok()
+        .filter(|u| !u.trim().is_empty())
+}
+
+/// A fresh store on the backend the environment chooses (see [`TestDb`]).
 pub async fn fresh() -> TestDb {
+    match postgres_server() {
+        Some(server) => {
+            let url = new_postgres_database(&server).await;
+            let store = PostgresStore::open(&OpenOptions::new(url))
+                .await
+                .expect("open a fresh PostgreSQL store");
+            TestDb {
+                store: Arc::new(store.clone()),
+                backing: Backing::Postgres(store),
+            }
+        }
+        None => {
+            let db = fresh_sqlite().await;
+            TestDb {
+                store: db.store.clone(),
+                backing: Backing::Sqlite(db),
+            }
+        }
+    }
+}
+
+/// A fresh SQLite store, whatever the environment (for tests of the file itself).
+pub async fn fresh_sqlite() -> SqliteDb {
     let dir = tempfile::tempdir().expect("temp dir");
     let path = dir.path().join("dispar.db");
     let sqlite = SqliteStore::open(&OpenOptions::new(path.to_string_lossy()))
         .await
         .expect("open a fresh store");
-    TestDb {
+    SqliteDb {
         store: Arc::new(sqlite.clone()),
         sqlite,
         path,
         _dir: dir,
+    }
+}
+
+/// Creates a new empty database on `server` and returns its URL.
+pub async fn new_postgres_database(server: &str) -> String {
+    static NEXT: std::sync::atomic::AtomicU32 = std::sync::atomic::AtomicU32::new(0);
+    let n = NEXT.fetch_add(1, std::sync::atomic::Ordering::SeqCst);
+    let nanos = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.subsec_nanos());
+    let name = format!("dispar_store_{}_{n}_{nanos}", std::process::id());
+    let mut admin = sqlx::PgConnection::connect(server)
+        .await
+        .expect("connect to DISPAR_TEST_POSTGRES");
+    sqlx::query(sqlx::AssertSqlSafe(format!("CREATE DATABASE {name}")))
+        .execute(&mut admin)
+        .await
+        .expect("create a test database");
+    admin.close().await.ok();
+    let (head, query) = server
+        .split_once('?')
+        .map_or((server, None), |(h, q)| (h, Some(q)));
+    let base = head.rsplit_once('/').map_or(head, |(b, _)| b);
+    match query {
+        Some(q) => format!("{base}/{name}?{q}"),
+        None => format!("{base}/{name}"),
+    }
+}
+
+impl TestDb {
+    /// One integer from `sql`, read on whichever backend the store is.
+    pub async fn scalar(&self, sql: &'static str) -> i64 {
+        match &self.backing {
+            Backing::Sqlite(db) => sqlx::query_scalar(sql)
+                .fetch_one(db.sqlite.read_pool())
+                .await
+                .expect("query"),
+            Backing::Postgres(pg) => sqlx::query_scalar(sql)
+                .fetch_one(pg.pool())
+                .await
+                .expect("query"),
+        }
     }
 }
 

@@ -105,9 +105,6 @@ async fn expired_sessions_are_purged_when_a_session_starts() {
     s.create_page_session(&session(2, key, t0 + Duration::days(2)), 50)
         .await
         .expect("new");
-    let rows: i64 = sqlx::query_scalar("SELECT COUNT(*) FROM page_sessions")
-        .fetch_one(db.sqlite.read_pool())
-        .await
-        .expect("count");
+    let rows = db.scalar("SELECT COUNT(*) FROM page_sessions").await;
     assert_eq!(rows, 1, "the expired session was deleted");
 }

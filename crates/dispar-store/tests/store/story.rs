@@ -238,7 +238,7 @@ pub async fn story(store: Arc<dyn Store>) {
 }
 
 #[tokio::test]
-async fn the_story_holds_on_sqlite() {
+async fn the_story_holds() {
     let db = fresh().await;
     story(db.store.clone()).await;
 }
