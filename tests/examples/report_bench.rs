@@ -22,8 +22,8 @@
 //!
 //! Timing is client-side (`reqwest`, keep-alive, body read to the end), with the
 //! server's own split of a miss from its `Server-Timing` header. A miss is the request
-//! after a write (a correction of a record outside the month bumps the data version,
-//! as new data would), so it is computed again: sums, statistics, JSON; a hit repeats
+//! after a write (a correction of a record inside the month changes the data version of
+//! what the report reads, as new data would), so it is computed again: sums, statistics, JSON; a hit repeats
 //! the request; a 304 sends its `If-None-Match`. The Python time is measured by the script itself
 //! (`time.perf_counter`) and printed next to ours.
 
@@ -139,8 +139,8 @@ fn generate() -> (String, Vec<String>) {
 fn bump(s: &Server, i: usize) {
     let r = s.as_admin(
         "PUT",
-        "/v1/sites/S001/lines/L1/days/2025-12-31",
-        Body::Json(dispar_system_tests::json!({"inspected": 100_000, "defective": 10 + i})),
+        "/v1/sites/S001/lines/L1/days/2025-06-30",
+        Body::Json(dispar_system_tests::json!({"inspected": 1_000, "defective": 20 + i % 7})),
     );
     assert!(r.status == 200 || r.status == 201, "{}", r.text);
 }
@@ -209,8 +209,10 @@ fn main() {
     let read = s.key("read", &[]);
     let path = format!("/v1/reports?period={MONTH}&level=site");
     let path_off = format!("{path}&baseline=off");
-    // Misses: before each, a correction of a record outside the month bumps the data
-    // version (new data arrived), so the same request is computed again. With and without
+    // Misses: before each, a correction of a record inside the month changes the data
+    // version of what the report reads (new data arrived), so the same request is
+    // computed again (checked with Server-Timing's cache entry). A write outside what a
+    // report reads would leave it cached. With and without
     // baselines alternate, so both see the same machine state.
     let mut misses = Vec::new();
     let mut misses_off = Vec::new();
@@ -223,6 +225,13 @@ fn main() {
         let r = s.request("GET", &path, Some(&read), Body::None);
         let elapsed = t.elapsed();
         assert_eq!(r.status, 200, "{}", r.text);
+        assert!(
+            r.header("server-timing")
+                .unwrap_or("")
+                .starts_with("db;dur="),
+            "a miss: {:?}",
+            r.header("server-timing")
+        );
         bump(&s, 2 * i + 1);
         let t = Instant::now();
         let off = s.request("GET", &path_off, Some(&read), Body::None);

@@ -165,6 +165,13 @@ impl Drop for PgDatabase {
     }
 }
 
+/// A database a server served, kept for a restart (see [`Server::served`]).
+#[derive(Clone)]
+pub struct Served {
+    url: String,
+    pg: Option<std::sync::Arc<PgDatabase>>,
+}
+
 /// A running `dispar serve` with its own temporary directory and database.
 pub struct Server {
     child: Option<Child>,
@@ -211,6 +218,22 @@ impl Server {
                 Self::spawn(dir, &database, extra)
             }
         }
+    }
+
+    /// This server's database, to start a server on after this one stopped (a restart;
+    /// on PostgreSQL the database lives as long as a handle to it).
+    pub fn served(&self) -> Served {
+        Served {
+            url: self.database.clone(),
+            pg: self.pg.clone(),
+        }
+    }
+
+    /// Starts a server on `served` (a restart), its log in `dir`.
+    pub fn start_on(dir: &Path, served: &Served, extra: &[&str]) -> Server {
+        let mut s = Self::spawn(dir, &served.url, extra);
+        s.pg.clone_from(&served.pg);
+        s
     }
 
     /// Starts another server on this server's database (a second instance), with its

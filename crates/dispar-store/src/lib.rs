@@ -1,7 +1,8 @@
-//! Persistence for dispar: the [`Store`] trait and its SQLite implementation.
+//! Persistence for dispar: the [`Store`] trait and its SQLite and PostgreSQL
+//! implementations.
 //!
 //! [`open`] chooses the backend from the database URL (`sqlite:` URLs and plain paths
-//! open SQLite; `postgres://` is refused until that backend is built), runs the
+//! open SQLite; `postgres://` and `postgresql://` open PostgreSQL), runs the
 //! embedded migrations and returns an `Arc<dyn Store>`.
 //!
 //! # Records and revisions
@@ -23,7 +24,17 @@
 //! record is checked against the state the earlier ones left.
 //!
 //! These rules belong to no backend: a private planner applies them to a batch and the
-//! current values a backend loaded, and the backend writes the plan.
+//! current values a backend loaded, and the backend writes the plan with statements
+//! both backends share (built once for any sqlx database, in each one's placeholders).
+//!
+//! # PostgreSQL
+//!
+//! Several instances share one database. Writes run at READ COMMITTED under one
+//! transaction-scoped advisory lock, so they are serialised across instances as SQLite
+//! serialises them in one file, and ids follow commit order; a collision with a foreign
+//! session is retried a bounded number of times. See [`PostgresStore`]. The schema
+//! (`migrations/postgres`) stores the same encoding as SQLite's, with byte-order
+//! (`COLLATE "C"`) keys.
 //!
 //! # SQLite
 //!
@@ -86,7 +97,7 @@ pub async fn open(url: &str) -> Result<Arc<dyn Store>, StoreError> {
 
 /// Opens the store named by `options.url`, chosen by scheme: `sqlite:` or a plain path
 /// is SQLite (the file is created if missing); `postgres://` and `postgresql://` are
-/// refused with [`StoreError::Unsupported`] until that backend exists. Migrations run
+/// PostgreSQL ([`PostgresStore`]). Migrations run
 /// every time (they are idempotent), so `open` is also "migrate".
 pub async fn open_with(options: &OpenOptions) -> Result<Arc<dyn Store>, StoreError> {
     match backend_of(&options.url)? {
