@@ -64,6 +64,7 @@ mod options;
 mod plan;
 mod postgres;
 mod reports;
+mod run;
 mod sessions;
 mod sites;
 mod sql;

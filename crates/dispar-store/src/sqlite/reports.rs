@@ -1,33 +1,13 @@
-//! Aggregation for reports: runs the shared statements of [`crate::sql`] in one read
-//! transaction (so the data version, the registry and the sums are one snapshot).
+//! Aggregation for reports: the shared reads of [`crate::run`] in one read transaction
+//! (so the data version, the registry and the sums are one snapshot).
 
 use sqlx::Sqlite;
 use time::Date;
 
 use super::db::SqliteStore;
-use crate::aggregate::{GroupKey, TotalsRow, finish, finish_buckets, named_site};
 use crate::error::StoreError;
 use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate};
-use crate::sql::{DATA_VERSION, Sql};
-
-type Tx = sqlx::Transaction<'static, Sqlite>;
-
-/// The registered groups at the query's level; refuses an unknown site.
-async fn registered_groups(
-    tx: &mut Tx,
-    query: &AggregateQuery,
-) -> Result<Vec<GroupKey>, StoreError> {
-    let (check, mut registry) = Sql::<Sqlite>::registered_groups(query);
-    if let Some(mut check) = check {
-        let found: Option<String> = check.build_query_scalar().fetch_optional(&mut **tx).await?;
-        if found.is_none() {
-            return Err(StoreError::UnknownSite {
-                site: named_site(query),
-            });
-        }
-    }
-    Ok(registry.build_query_as().fetch_all(&mut **tx).await?)
-}
+use crate::run::Run;
 
 impl SqliteStore {
     pub(super) async fn aggregate_buckets_impl(
@@ -36,15 +16,9 @@ impl SqliteStore {
         buckets: &[(Date, Date)],
     ) -> Result<BucketedAggregate, StoreError> {
         let mut tx = self.reader.begin().await?;
-        let version: i64 = sqlx::query_scalar(DATA_VERSION).fetch_one(&mut *tx).await?;
-        let registered = registered_groups(&mut tx, query).await?;
-        let rows: Vec<(i64, String, Option<String>, i64, i64)> =
-            match Sql::<Sqlite>::bucket_sums(query, buckets)? {
-                Some(mut q) => q.build_query_as().fetch_all(&mut *tx).await?,
-                None => Vec::new(),
-            };
+        let out = Run::<Sqlite>::aggregate_buckets(&mut tx, query, buckets).await;
         tx.rollback().await?;
-        finish_buckets(version, &registered, buckets.len(), rows)
+        out
     }
 
     pub(super) async fn aggregate_impl(
@@ -52,15 +26,8 @@ impl SqliteStore {
         query: &AggregateQuery,
     ) -> Result<Aggregate, StoreError> {
         let mut tx = self.reader.begin().await?;
-        let version: i64 = sqlx::query_scalar(DATA_VERSION).fetch_one(&mut *tx).await?;
-        let registered = registered_groups(&mut tx, query).await?;
-        let Some((mut totals, mut defects)) = Sql::<Sqlite>::sums(query)? else {
-            tx.rollback().await?;
-            return finish(version, registered, Vec::new(), Vec::new());
-        };
-        let totals: Vec<TotalsRow> = totals.build_query_as().fetch_all(&mut *tx).await?;
-        let defects = defects.build_query_as().fetch_all(&mut *tx).await?;
+        let out = Run::<Sqlite>::aggregate(&mut tx, query).await;
         tx.rollback().await?;
-        finish(version, registered, totals, defects)
+        out
     }
 }

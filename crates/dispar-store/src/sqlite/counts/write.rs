@@ -10,18 +10,17 @@
 //!
 //! Any refusal rolls the whole transaction back.
 
-use std::collections::HashSet;
-
 use dispar_core::record::CountRecord;
 use sqlx::Sqlite;
 use sqlx::sqlite::SqliteConnection;
 use time::OffsetDateTime;
 
 use crate::counts::{BatchResult, Idempotency, StoredAnswer, stored_answer};
-use crate::error::{RecordError, StoreError};
+use crate::error::StoreError;
 use crate::keys::KeyId;
-use crate::plan::{Batch, Current, plan_batch};
-use crate::sql::{LAST_RECORDED_AT, LOOKUP_CHUNK, Sql};
+use crate::plan::{Batch, plan_batch};
+use crate::run::Run;
+use crate::sql::{LAST_RECORDED_AT, Sql};
 use crate::sqlite::db::{SqliteStore, WriteTx, bump_data_version};
 use crate::timestamp::{format_date, format_instant, next_instant, parse_instant};
 
@@ -49,11 +48,11 @@ impl SqliteStore {
             return Ok(BatchResult::Replayed(answer));
         }
 
-        let unregistered = check_registry(&mut tx, &batch).await?;
+        let unregistered = Run::<Sqlite>::unregistered(&mut tx, &batch).await?;
         if !unregistered.is_empty() {
             return Err(StoreError::Rejected(unregistered));
         }
-        let current = load_current(&mut tx, &batch, &dates).await?;
+        let current = Run::<Sqlite>::current_values(&mut tx, &batch, &dates).await?;
         let first_id = next_revision_id(&mut tx).await?;
         let plan = plan_batch(&batch, current, first_id).map_err(StoreError::Rejected)?;
         if !plan.revisions.is_empty() {
@@ -114,62 +113,6 @@ pub(in crate::sqlite) async fn find_idempotent(
         .fetch_optional(&mut *conn)
         .await?;
     stored_answer(row, body_sha256)
-}
-
-/// The records whose site or line is not registered.
-async fn check_registry(
-    tx: &mut WriteTx,
-    batch: &Batch<'_>,
-) -> Result<Vec<RecordError>, StoreError> {
-    let mut known_sites: HashSet<String> = HashSet::new();
-    for chunk in batch.sites().chunks(LOOKUP_CHUNK) {
-        let found: Vec<String> = Sql::<Sqlite>::known_sites(chunk)
-            .build_query_scalar()
-            .fetch_all(&mut **tx)
-            .await?;
-        known_sites.extend(found);
-    }
-    let mut known_lines: HashSet<(String, String)> = HashSet::new();
-    for chunk in batch.lines().chunks(LOOKUP_CHUNK) {
-        let found: Vec<(String, String)> = Sql::<Sqlite>::known_lines(chunk)
-            .build_query_as()
-            .fetch_all(&mut **tx)
-            .await?;
-        known_lines.extend(found);
-    }
-    Ok(batch.unregistered(
-        |site| known_sites.contains(site),
-        |site, line| known_lines.contains(&(site.to_owned(), line.to_owned())),
-    ))
-}
-
-/// Reads the current value of every distinct key of the batch, in the order of
-/// [`Batch::key_rows`].
-async fn load_current(
-    tx: &mut WriteTx,
-    batch: &Batch<'_>,
-    dates: &[String],
-) -> Result<Vec<Option<Current>>, StoreError> {
-    let keys: Vec<_> = batch.key_rows().collect();
-    let mut current: Vec<Option<Current>> = vec![None; keys.len()];
-    for (chunk_no, chunk) in keys.chunks(LOOKUP_CHUNK).enumerate() {
-        let base = chunk_no * LOOKUP_CHUNK;
-        let found: Vec<(i64, i64, i64, i64, Option<i64>)> =
-            Sql::<Sqlite>::current_of(chunk, base, dates)
-                .build_query_as()
-                .fetch_all(&mut **tx)
-                .await?;
-        if found.is_empty() {
-            continue;
-        }
-        let defects: Vec<(i64, String, i64)> =
-            Sql::<Sqlite>::current_defects_of(chunk, base, dates)
-                .build_query_as()
-                .fetch_all(&mut **tx)
-                .await?;
-        crate::plan::fill_current(&mut current, found, defects)?;
-    }
-    Ok(current)
 }
 
 /// The id the next revision gets: one above any id ever used.
