@@ -5,23 +5,46 @@
 
 use std::collections::{BTreeMap, HashMap, HashSet};
 
-use dispar_core::code::CategoryCode;
+use dispar_core::code::{CategoryCode, SiteCode};
 use dispar_core::record::RecordKey;
+use dispar_core::site::{Line, Site};
 use sqlx::{Database, Decode, Encode, Executor, FromRow, IntoArguments, QueryBuilder, Type};
+use time::OffsetDateTime;
 
 use crate::aggregate::{DefectsRow, GroupKey, TotalsRow, finish, finish_buckets, named_site};
 use crate::counts::{CountFilter, CountPage, MAX_PAGE, StoredRecord};
 use crate::decode::{
-    CURRENT_SELECT, CurrentRow, HISTORY_SELECT, HistoryRow, decode_cursor, defects_by_revision,
-    encode_cursor, history_from_rows, stored_from_current,
+    CURRENT_SELECT, CurrentRow, HISTORY_SELECT, HistoryRow, KEY_COLUMNS, KeyRow, decode_cursor,
+    defects_by_revision, encode_cursor, history_from_rows, keys_from_rows, line_from_row,
+    site_from_row, stored_from_current,
 };
 use crate::error::{RecordError, StoreError};
+use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::plan::{Batch, Current, fill_current};
 use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate};
-use crate::sql::{DATA_VERSION, LOOKUP_CHUNK, Sql};
-use crate::timestamp::format_date;
+use crate::sessions::{NewPageSession, PageSession};
+use crate::sites::{SiteWithLines, Upserted};
+use crate::sql::{BUMP_DATA_VERSION, DATA_VERSION, LOOKUP_CHUNK, MARK_REGISTRY_VERSION, Sql};
+use crate::timestamp::{format_date, format_instant, parse_instant};
 
-/// Shared reads for database `DB`.
+/// Rows a statement changed, for any database's query result.
+pub(crate) trait QueryRows {
+    fn rows(&self) -> u64;
+}
+
+impl QueryRows for sqlx::sqlite::SqliteQueryResult {
+    fn rows(&self) -> u64 {
+        self.rows_affected()
+    }
+}
+
+impl QueryRows for sqlx::postgres::PgQueryResult {
+    fn rows(&self) -> u64 {
+        self.rows_affected()
+    }
+}
+
+/// Shared reads and small writes for database `DB`.
 pub(crate) struct Run<DB>(std::marker::PhantomData<DB>);
 
 impl<DB> Run<DB>
@@ -45,7 +68,306 @@ where
     for<'r> (i64, String, Option<String>, i64, i64): FromRow<'r, DB::Row>,
     for<'r> CurrentRow: FromRow<'r, DB::Row>,
     for<'r> HistoryRow: FromRow<'r, DB::Row>,
+    for<'t> Option<&'t str>: Encode<'t, DB> + Type<DB>,
+    for<'r> (String, Option<String>): FromRow<'r, DB::Row>,
+    for<'r> (Option<String>,): FromRow<'r, DB::Row>,
+    for<'r> (String, String, Option<String>): FromRow<'r, DB::Row>,
+    for<'r> KeyRow: FromRow<'r, DB::Row>,
+    for<'r> (i64, String): FromRow<'r, DB::Row>,
+    for<'r> (i64, String, String): FromRow<'r, DB::Row>,
+    for<'t> Vec<u8>: Decode<'t, DB> + Type<DB>,
+    for<'r> (Vec<u8>,): FromRow<'r, DB::Row>,
+    for<'r> (Vec<u8>, i64, Vec<u8>): FromRow<'r, DB::Row>,
+    DB::QueryResult: QueryRows,
 {
+    /// Creates or updates a site (inside a write transaction).
+    pub(crate) async fn upsert_site(
+        conn: &mut DB::Connection,
+        site: &Site,
+    ) -> Result<Upserted, StoreError> {
+        let mut q = QueryBuilder::new("SELECT name, time_zone FROM sites WHERE code = ");
+        q.push_bind(site.code.as_str());
+        let existing: Option<(String, Option<String>)> =
+            q.build_query_as().fetch_optional(&mut *conn).await?;
+        let name = site.name.as_str();
+        let tz = site.time_zone.as_ref().map(|t| t.as_str());
+        let (mut q, done) = match existing {
+            None => {
+                let mut q = QueryBuilder::new("INSERT INTO sites (code, name, time_zone) VALUES (");
+                q.separated(", ")
+                    .push_bind(site.code.as_str())
+                    .push_bind(name)
+                    .push_bind(tz);
+                q.push(")");
+                (q, Upserted::Created)
+            }
+            Some((n, t)) if n == name && t.as_deref() == tz => return Ok(Upserted::Unchanged),
+            Some(_) => {
+                let mut q = QueryBuilder::new("UPDATE sites SET name = ");
+                q.push_bind(name)
+                    .push(", time_zone = ")
+                    .push_bind(tz)
+                    .push(" WHERE code = ")
+                    .push_bind(site.code.as_str());
+                (q, Upserted::Updated)
+            }
+        };
+        q.build().execute(&mut *conn).await?;
+        Self::bump_registry_version(conn).await?;
+        Ok(done)
+    }
+
+    /// Creates or updates a line of a registered site (inside a write transaction).
+    pub(crate) async fn upsert_line(
+        conn: &mut DB::Connection,
+        line: &Line,
+    ) -> Result<Upserted, StoreError> {
+        let mut q = QueryBuilder::new("SELECT code FROM sites WHERE code = ");
+        q.push_bind(line.site.as_str());
+        let site_known: Option<String> = q.build_query_scalar().fetch_optional(&mut *conn).await?;
+        if site_known.is_none() {
+            return Err(StoreError::UnknownSite {
+                site: line.site.to_string(),
+            });
+        }
+        let mut q = QueryBuilder::new("SELECT name FROM lines WHERE site = ");
+        q.push_bind(line.site.as_str())
+            .push(" AND code = ")
+            .push_bind(line.code.as_str());
+        let existing: Option<(Option<String>,)> =
+            q.build_query_as().fetch_optional(&mut *conn).await?;
+        let name = line.name.as_ref().map(|n| n.as_str());
+        let (mut q, done) = match existing {
+            None => {
+                let mut q = QueryBuilder::new("INSERT INTO lines (site, code, name) VALUES (");
+                q.separated(", ")
+                    .push_bind(line.site.as_str())
+                    .push_bind(line.code.as_str())
+                    .push_bind(name);
+                q.push(")");
+                (q, Upserted::Created)
+            }
+            Some((n,)) if n.as_deref() == name => return Ok(Upserted::Unchanged),
+            Some(_) => {
+                let mut q = QueryBuilder::new("UPDATE lines SET name = ");
+                q.push_bind(name)
+                    .push(" WHERE site = ")
+                    .push_bind(line.site.as_str())
+                    .push(" AND code = ")
+                    .push_bind(line.code.as_str());
+                (q, Upserted::Updated)
+            }
+        };
+        q.build().execute(&mut *conn).await?;
+        Self::bump_registry_version(conn).await?;
+        Ok(done)
+    }
+
+    /// Bumps the data version and marks it as the registry's.
+    async fn bump_registry_version(conn: &mut DB::Connection) -> Result<(), StoreError> {
+        sqlx::query(BUMP_DATA_VERSION).execute(&mut *conn).await?;
+        sqlx::query(MARK_REGISTRY_VERSION)
+            .execute(&mut *conn)
+            .await?;
+        Ok(())
+    }
+
+    /// All sites, ordered by code.
+    pub(crate) async fn sites(conn: &mut DB::Connection) -> Result<Vec<Site>, StoreError> {
+        let rows: Vec<(String, String, Option<String>)> =
+            sqlx::query_as("SELECT code, name, time_zone FROM sites ORDER BY code")
+                .fetch_all(&mut *conn)
+                .await?;
+        rows.iter()
+            .map(|(c, n, t)| site_from_row(c, n, t.as_deref()))
+            .collect()
+    }
+
+    /// One site with its lines (call inside one read snapshot).
+    pub(crate) async fn site(
+        conn: &mut DB::Connection,
+        site: &SiteCode,
+    ) -> Result<SiteWithLines, StoreError> {
+        let mut q = QueryBuilder::new("SELECT code, name, time_zone FROM sites WHERE code = ");
+        q.push_bind(site.as_str());
+        let row: Option<(String, String, Option<String>)> =
+            q.build_query_as().fetch_optional(&mut *conn).await?;
+        let Some((c, n, t)) = row else {
+            return Err(StoreError::NotFound {
+                what: "site",
+                key: site.to_string(),
+            });
+        };
+        let mut q = QueryBuilder::new("SELECT site, code, name FROM lines WHERE site = ");
+        q.push_bind(site.as_str()).push(" ORDER BY code");
+        let lines: Vec<(String, String, Option<String>)> =
+            q.build_query_as().fetch_all(&mut *conn).await?;
+        Ok(SiteWithLines {
+            site: site_from_row(&c, &n, t.as_deref())?,
+            lines: lines
+                .iter()
+                .map(|(s, c, n)| line_from_row(s, c, n.as_deref()))
+                .collect::<Result<_, _>>()?,
+        })
+    }
+
+    /// Stores a new key with the sites it may write (inside a transaction).
+    pub(crate) async fn create_key(
+        conn: &mut DB::Connection,
+        role: KeyRole,
+        sites: &[SiteCode],
+        label: Option<&str>,
+        secret_hash: &[u8],
+    ) -> Result<KeyId, StoreError> {
+        let mut q = QueryBuilder::new(
+            "INSERT INTO api_keys (role, label, secret_hash, created_at) VALUES (",
+        );
+        q.separated(", ")
+            .push_bind(role.as_str())
+            .push_bind(label)
+            .push_bind(secret_hash)
+            .push_bind(format_instant(OffsetDateTime::now_utc())?);
+        q.push(") RETURNING id");
+        let id: i64 = q.build_query_scalar().fetch_one(&mut *conn).await?;
+        let mut unique: Vec<&str> = sites.iter().map(SiteCode::as_str).collect();
+        unique.sort_unstable();
+        unique.dedup();
+        for chunk in unique.chunks(LOOKUP_CHUNK) {
+            let mut q = QueryBuilder::new("INSERT INTO api_key_sites (key_id, site) ");
+            q.push_values(chunk, |mut b, site| {
+                b.push_bind(id).push_bind(*site);
+            });
+            q.build().execute(&mut *conn).await?;
+        }
+        Ok(id)
+    }
+
+    /// One key with its sites (call inside one read snapshot).
+    pub(crate) async fn key(
+        conn: &mut DB::Connection,
+        id: KeyId,
+    ) -> Result<Option<ApiKey>, StoreError> {
+        let mut q = QueryBuilder::new(KEY_COLUMNS);
+        q.push(" WHERE id = ").push_bind(id);
+        let row: Option<KeyRow> = q.build_query_as().fetch_optional(&mut *conn).await?;
+        let Some(row) = row else {
+            return Ok(None);
+        };
+        let mut q = QueryBuilder::new("SELECT key_id, site FROM api_key_sites WHERE key_id = ");
+        q.push_bind(id).push(" ORDER BY site");
+        let sites: Vec<(i64, String)> = q.build_query_as().fetch_all(&mut *conn).await?;
+        Ok(keys_from_rows(vec![row], sites)?.pop())
+    }
+
+    /// Every key with its sites, by id (call inside one read snapshot).
+    pub(crate) async fn keys(conn: &mut DB::Connection) -> Result<Vec<ApiKey>, StoreError> {
+        let rows: Vec<KeyRow> =
+            sqlx::query_as(sqlx::AssertSqlSafe(format!("{KEY_COLUMNS} ORDER BY id")))
+                .fetch_all(&mut *conn)
+                .await?;
+        let site_rows: Vec<(i64, String)> =
+            sqlx::query_as("SELECT key_id, site FROM api_key_sites ORDER BY key_id, site")
+                .fetch_all(&mut *conn)
+                .await?;
+        keys_from_rows(rows, site_rows)
+    }
+
+    /// Revokes a key (keeping the first revocation time).
+    pub(crate) async fn revoke_key(conn: &mut DB::Connection, id: KeyId) -> Result<(), StoreError> {
+        let mut q = QueryBuilder::new("UPDATE api_keys SET revoked_at = COALESCE(revoked_at, ");
+        q.push_bind(format_instant(OffsetDateTime::now_utc())?)
+            .push(") WHERE id = ")
+            .push_bind(id);
+        let done = q.build().execute(&mut *conn).await?;
+        if done.rows() == 0 {
+            return Err(StoreError::NotFound {
+                what: "api key",
+                key: id.to_string(),
+            });
+        }
+        Ok(())
+    }
+
+    /// Purges expired sessions, ends the key's oldest beyond `max_per_key - 1`, and
+    /// stores the new one (inside a write transaction).
+    pub(crate) async fn start_session(
+        conn: &mut DB::Connection,
+        session: &NewPageSession,
+        max_per_key: usize,
+    ) -> Result<(), StoreError> {
+        let created_at = format_instant(session.created_at)?;
+        let expires_at = format_instant(session.expires_at)?;
+        let mut q = QueryBuilder::new("DELETE FROM page_sessions WHERE expires_at <= ");
+        q.push_bind(created_at.clone());
+        q.build().execute(&mut *conn).await?;
+        // The new session is one of the key's `max_per_key`: keep the newest
+        // `max_per_key - 1` of the others (at least none).
+        let keep = i64::try_from(max_per_key.saturating_sub(1)).unwrap_or(i64::MAX);
+        let mut q = QueryBuilder::new("SELECT id_hash FROM page_sessions WHERE key_id = ");
+        q.push_bind(session.key_id)
+            .push(" ORDER BY created_at DESC, id_hash DESC");
+        let hashes: Vec<Vec<u8>> = q.build_query_scalar().fetch_all(&mut *conn).await?;
+        let old: Vec<&[u8]> = hashes
+            .iter()
+            .skip(usize::try_from(keep).unwrap_or(usize::MAX))
+            .map(Vec::as_slice)
+            .collect();
+        for chunk in old.chunks(LOOKUP_CHUNK) {
+            let mut q = QueryBuilder::new("DELETE FROM page_sessions WHERE id_hash IN (");
+            let mut sep = q.separated(", ");
+            for h in chunk {
+                sep.push_bind(*h);
+            }
+            q.push(")");
+            q.build().execute(&mut *conn).await?;
+        }
+        let mut q = QueryBuilder::new(
+            "INSERT INTO page_sessions (id_hash, key_id, created_at, expires_at) VALUES (",
+        );
+        q.separated(", ")
+            .push_bind(session.id_hash.as_slice())
+            .push_bind(session.key_id)
+            .push_bind(created_at)
+            .push_bind(expires_at);
+        q.push(")");
+        q.build().execute(&mut *conn).await?;
+        Ok(())
+    }
+
+    /// The live session with this id hash at `now`.
+    pub(crate) async fn session(
+        conn: &mut DB::Connection,
+        id_hash: &[u8; 32],
+        now: OffsetDateTime,
+    ) -> Result<Option<PageSession>, StoreError> {
+        let mut q = QueryBuilder::new(
+            "SELECT key_id, created_at, expires_at FROM page_sessions WHERE id_hash = ",
+        );
+        q.push_bind(id_hash.as_slice())
+            .push(" AND expires_at > ")
+            .push_bind(format_instant(now)?);
+        let row: Option<(i64, String, String)> =
+            q.build_query_as().fetch_optional(&mut *conn).await?;
+        row.map(|(key_id, created_at, expires_at)| {
+            Ok(PageSession {
+                key_id,
+                created_at: parse_instant(&created_at)?,
+                expires_at: parse_instant(&expires_at)?,
+            })
+        })
+        .transpose()
+    }
+
+    /// Ends a session; true when there was one.
+    pub(crate) async fn end_session(
+        conn: &mut DB::Connection,
+        id_hash: &[u8; 32],
+    ) -> Result<bool, StoreError> {
+        let mut q = QueryBuilder::new("DELETE FROM page_sessions WHERE id_hash = ");
+        q.push_bind(id_hash.as_slice());
+        Ok(q.build().execute(&mut *conn).await?.rows() > 0)
+    }
+
     /// The current record at `key`, if any (call inside one read snapshot).
     pub(crate) async fn record(
         conn: &mut DB::Connection,
@@ -168,6 +490,21 @@ where
             defects_by_revision(rows, &mut out)?;
         }
         Ok(out)
+    }
+
+    /// A stored batch answer: `None` if the Idempotency-Key is unused, the answer if it
+    /// was used with this body hash, [`StoreError::IdempotencyMismatch`] otherwise.
+    pub(crate) async fn answer(
+        conn: &mut DB::Connection,
+        api_key_id: Option<KeyId>,
+        key: &str,
+        body_sha256: &[u8; 32],
+    ) -> Result<Option<crate::counts::StoredAnswer>, StoreError> {
+        let row: Option<(Vec<u8>, i64, Vec<u8>)> = Sql::<DB>::find_answer(api_key_id, key)
+            .build_query_as()
+            .fetch_optional(&mut *conn)
+            .await?;
+        crate::counts::stored_answer(row, body_sha256)
     }
 
     /// The records of `batch` whose site or line is not registered.

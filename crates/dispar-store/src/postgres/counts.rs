@@ -3,13 +3,11 @@
 //! of current records and histories.
 
 use dispar_core::record::{CountRecord, RecordKey};
-use sqlx::{PgConnection, Postgres};
+use sqlx::Postgres;
 use time::OffsetDateTime;
 
 use super::db::{PostgresStore, retrying};
-use crate::counts::{
-    BatchResult, CountFilter, CountPage, Idempotency, StoredAnswer, StoredRecord, stored_answer,
-};
+use crate::counts::{BatchResult, CountFilter, CountPage, Idempotency, StoredAnswer, StoredRecord};
 use crate::error::StoreError;
 use crate::keys::KeyId;
 use crate::plan::{Batch, plan_batch};
@@ -45,7 +43,7 @@ impl PostgresStore {
         let mut tx = self.begin_write().await?;
         if let Some(idem) = idempotency
             && let Some(answer) =
-                find_idempotent(&mut tx, api_key_id, idem.key, &idem.body_sha256).await?
+                Run::<Postgres>::answer(&mut tx, api_key_id, idem.key, &idem.body_sha256).await?
         {
             tx.rollback().await?;
             return Ok(BatchResult::Replayed(answer));
@@ -103,7 +101,7 @@ impl PostgresStore {
         body_sha256: &[u8; 32],
     ) -> Result<Option<StoredAnswer>, StoreError> {
         let mut conn = self.pool.acquire().await?;
-        find_idempotent(&mut conn, api_key_id, key, body_sha256).await
+        Run::<Postgres>::answer(&mut conn, api_key_id, key, body_sha256).await
     }
 
     pub(super) async fn purge_idempotency_impl(
@@ -148,17 +146,4 @@ impl PostgresStore {
         let mut conn = self.pool.acquire().await?;
         Run::<Postgres>::history(&mut conn, key).await
     }
-}
-
-async fn find_idempotent(
-    conn: &mut PgConnection,
-    api_key_id: Option<KeyId>,
-    key: &str,
-    body_sha256: &[u8; 32],
-) -> Result<Option<StoredAnswer>, StoreError> {
-    let row = PgSql::find_answer(api_key_id, key)
-        .build_query_as()
-        .fetch_optional(&mut *conn)
-        .await?;
-    stored_answer(row, body_sha256)
 }

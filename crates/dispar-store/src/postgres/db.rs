@@ -32,7 +32,6 @@ use sqlx::{Postgres, Transaction};
 
 use crate::error::StoreError;
 use crate::options::OpenOptions;
-use crate::sql::{BUMP_DATA_VERSION, MARK_REGISTRY_VERSION};
 
 /// The embedded PostgreSQL migrations (this crate's `migrations/postgres`).
 pub static MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("migrations/postgres");
@@ -120,15 +119,6 @@ where
             other => return other,
         }
     }
-}
-
-/// Bumps the data version and marks it as the registry's.
-pub(super) async fn bump_registry_version(tx: &mut WriteTx) -> Result<(), StoreError> {
-    sqlx::query(BUMP_DATA_VERSION).execute(&mut **tx).await?;
-    sqlx::query(MARK_REGISTRY_VERSION)
-        .execute(&mut **tx)
-        .await?;
-    Ok(())
 }
 
 #[cfg(test)]

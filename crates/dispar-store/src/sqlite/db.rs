@@ -7,10 +7,10 @@ use sqlx::sqlite::{
 };
 use sqlx::{Sqlite, Transaction};
 
-pub(super) use crate::decode::{parse_code, to_u64};
+pub(super) use crate::decode::to_u64;
 use crate::error::StoreError;
 use crate::options::OpenOptions;
-use crate::sql::{BUMP_DATA_VERSION, MARK_REGISTRY_VERSION};
+use crate::sql::BUMP_DATA_VERSION;
 
 /// The embedded SQLite migrations (this crate's `migrations/sqlite`).
 pub static MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("migrations/sqlite");
@@ -74,16 +74,6 @@ impl SqliteStore {
     pub(super) async fn begin_write(&self) -> Result<WriteTx, StoreError> {
         Ok(self.writer.begin_with("BEGIN IMMEDIATE").await?)
     }
-}
-
-/// Bumps the data version and marks it as the registry's (inside a write transaction
-/// that changed a site or line).
-pub(super) async fn bump_registry_version(tx: &mut WriteTx) -> Result<(), StoreError> {
-    bump_data_version(tx).await?;
-    sqlx::query(MARK_REGISTRY_VERSION)
-        .execute(&mut **tx)
-        .await?;
-    Ok(())
 }
 
 /// Bumps the data version (inside a write transaction that changed report input).

@@ -100,7 +100,7 @@ impl Store for SqliteStore {
         body_sha256: &[u8; 32],
     ) -> Result<Option<StoredAnswer>, StoreError> {
         let mut conn = self.reader.acquire().await?;
-        counts::find_idempotent(&mut conn, api_key_id, key, body_sha256).await
+        crate::run::Run::<Sqlite>::answer(&mut conn, api_key_id, key, body_sha256).await
     }
 
     async fn purge_idempotency(&self, before: OffsetDateTime) -> Result<u64, StoreError> {

@@ -3,5 +3,3 @@
 
 mod read;
 mod write;
-
-pub(super) use write::find_idempotent;

@@ -12,10 +12,9 @@
 
 use dispar_core::record::CountRecord;
 use sqlx::Sqlite;
-use sqlx::sqlite::SqliteConnection;
 use time::OffsetDateTime;
 
-use crate::counts::{BatchResult, Idempotency, StoredAnswer, stored_answer};
+use crate::counts::{BatchResult, Idempotency};
 use crate::error::StoreError;
 use crate::keys::KeyId;
 use crate::plan::{Batch, plan_batch};
@@ -42,7 +41,7 @@ impl SqliteStore {
         let mut tx = self.begin_write().await?;
         if let Some(idem) = &idempotency
             && let Some(answer) =
-                find_idempotent(&mut tx, api_key_id, idem.key, &idem.body_sha256).await?
+                Run::<Sqlite>::answer(&mut tx, api_key_id, idem.key, &idem.body_sha256).await?
         {
             tx.rollback().await?;
             return Ok(BatchResult::Replayed(answer));
@@ -98,21 +97,6 @@ impl SqliteStore {
         tx.commit().await?;
         Ok(done.rows_affected())
     }
-}
-
-/// Looks up a stored answer: `None` if the key is unused, the answer if it was used
-/// with this body hash, `IdempotencyMismatch` otherwise.
-pub(in crate::sqlite) async fn find_idempotent(
-    conn: &mut SqliteConnection,
-    api_key_id: Option<KeyId>,
-    key: &str,
-    body_sha256: &[u8; 32],
-) -> Result<Option<StoredAnswer>, StoreError> {
-    let row = Sql::<Sqlite>::find_answer(api_key_id, key)
-        .build_query_as()
-        .fetch_optional(&mut *conn)
-        .await?;
-    stored_answer(row, body_sha256)
 }
 
 /// The id the next revision gets: one above any id ever used.
