@@ -253,3 +253,21 @@ fn a_write_through_one_instance_changes_the_etag_the_other_serves_only_where_it_
     );
     assert_eq!(stale.status, 200, "B never answers 304 to a stale ETag");
 }
+
+#[test]
+fn migrate_on_a_served_database_is_a_no_op_and_never_prints_the_password() {
+    let s = Server::start();
+    s.site("S1", &["L1"]);
+    let out = s.cli(&["migrate"]);
+    assert!(out.status.success(), "{out:?}");
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("is migrated"), "{err}");
+    if s.database.contains("://") && s.database.contains('@') {
+        assert!(!err.contains(":dispar@"), "the password is redacted: {err}");
+        assert!(err.contains(":***@"), "{err}");
+    }
+    // The data are untouched and the running instance still answers.
+    let sites = s.as_admin("GET", "/v1/sites", Body::None);
+    assert_eq!(sites.status, 200);
+    assert!(sites.text.contains("\"S1\""), "{}", sites.text);
+}
