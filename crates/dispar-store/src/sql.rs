@@ -32,6 +32,9 @@ const DEFECT_CHUNK: usize = 2000;
 /// Bumps the data version (inside a write transaction that changed report input).
 pub(crate) const BUMP_DATA_VERSION: &str =
     "UPDATE store_state SET data_version = data_version + 1 WHERE id = 1";
+/// [`BUMP_DATA_VERSION`], returning the new version.
+pub(crate) const NEXT_DATA_VERSION: &str =
+    "UPDATE store_state SET data_version = data_version + 1 WHERE id = 1 RETURNING data_version";
 /// Marks the data version as the registry's (after [`BUMP_DATA_VERSION`], in a
 /// transaction that changed a site or line).
 pub(crate) const MARK_REGISTRY_VERSION: &str =
@@ -162,14 +165,13 @@ where
     }
 
     /// The statements that write an accepted plan, in order: the new revisions and
-    /// their defects, the new current values (an upsert) and their defects, the
-    /// changes of the monthly sums, and the scoped versions of the days written. The
-    /// data version must have been bumped before the last of them runs.
+    /// their defects, then [`Self::plan_updates`].
     pub(crate) fn plan_writes(
         plan: &Plan<'_>,
         dates: &[String],
         recorded_at: &str,
         api_key_id: Option<KeyId>,
+        version: i64,
     ) -> Vec<QueryBuilder<DB>> {
         let mut out = Vec::new();
         for chunk in plan.revisions.chunks(INSERT_CHUNK) {
@@ -192,13 +194,7 @@ where
             });
             out.push(q);
         }
-
-        let revision_defects: Vec<(i64, &str, i64)> = plan
-            .revisions
-            .iter()
-            .flat_map(|rev| rev.row.defects.iter().map(move |&(c, n)| (rev.id, c, n)))
-            .collect();
-        for chunk in revision_defects.chunks(DEFECT_CHUNK) {
+        for chunk in revision_defects(plan).chunks(DEFECT_CHUNK) {
             let mut q =
                 QueryBuilder::new("INSERT INTO revision_defects (revision_id, category, count) ");
             q.push_values(chunk, |mut b, &(id, c, n)| {
@@ -206,7 +202,34 @@ where
             });
             out.push(q);
         }
+        out.extend(Self::plan_updates(plan, dates, version));
+        for chunk in current_defects(plan).chunks(DEFECT_CHUNK) {
+            let mut q = QueryBuilder::new(
+                "INSERT INTO current_defects (date, site, line, product, category, count) ",
+            );
+            q.push_values(chunk, |mut b, &(r, c, n)| {
+                b.push_bind(dates[r.index].as_str())
+                    .push_bind(r.key.site)
+                    .push_bind(r.key.line)
+                    .push_bind(r.key.product)
+                    .push_bind(c)
+                    .push_bind(n);
+            });
+            out.push(q);
+        }
+        out
+    }
 
+    /// The statements of a plan that change existing rows: the new current values (an
+    /// upsert), the removal of the defects they replace, the changes of the monthly
+    /// sums, and the scoped versions of the days written (set to `version`, the data
+    /// version this transaction bumped to). The new current defects go in after them.
+    pub(crate) fn plan_updates(
+        plan: &Plan<'_>,
+        dates: &[String],
+        version: i64,
+    ) -> Vec<QueryBuilder<DB>> {
+        let mut out = Vec::new();
         for chunk in plan.current.chunks(INSERT_CHUNK) {
             let mut q = QueryBuilder::new(
                 "INSERT INTO counts_current (date, site, line, product, revision_id, inspected, \
@@ -252,26 +275,6 @@ where
             out.push(q);
         }
 
-        let current_defects: Vec<_> = plan
-            .current
-            .iter()
-            .flat_map(|c| c.row.defects.iter().map(move |&(cat, n)| (c.row, cat, n)))
-            .collect();
-        for chunk in current_defects.chunks(DEFECT_CHUNK) {
-            let mut q = QueryBuilder::new(
-                "INSERT INTO current_defects (date, site, line, product, category, count) ",
-            );
-            q.push_values(chunk, |mut b, &(r, c, n)| {
-                b.push_bind(dates[r.index].as_str())
-                    .push_bind(r.key.site)
-                    .push_bind(r.key.line)
-                    .push_bind(r.key.product)
-                    .push_bind(c)
-                    .push_bind(n);
-            });
-            out.push(q);
-        }
-
         for chunk in plan.month_totals.chunks(INSERT_CHUNK) {
             let mut q = QueryBuilder::new(
                 "INSERT INTO month_totals (month, site, line, product, inspected, defective) ",
@@ -310,14 +313,12 @@ where
             out.push(q);
         }
 
-        // The scoped version of every (date, site) written becomes the data version
-        // bumped in this transaction.
-        for chunk in plan.touched_days().chunks(LOOKUP_CHUNK) {
+        for chunk in plan.touched_days().chunks(DEFECT_CHUNK) {
             let mut q = QueryBuilder::new("INSERT INTO day_versions (date, site, version) ");
             q.push_values(chunk, |mut b, (site, date)| {
                 b.push_bind(format_date(*date))
                     .push_bind(*site)
-                    .push("(SELECT data_version FROM store_state WHERE id = 1)");
+                    .push_bind(version);
             });
             q.push(" ON CONFLICT (date, site) DO UPDATE SET version = excluded.version");
             out.push(q);
@@ -498,6 +499,22 @@ where
         ));
         Ok(Some(q))
     }
+}
+
+/// `(revision_id, category, count)` of every defect count of the plan's new revisions.
+pub(crate) fn revision_defects<'p>(plan: &'p Plan<'_>) -> Vec<(i64, &'p str, i64)> {
+    plan.revisions
+        .iter()
+        .flat_map(|rev| rev.row.defects.iter().map(move |&(c, n)| (rev.id, c, n)))
+        .collect()
+}
+
+/// `(row, category, count)` of every defect count of the plan's new current values.
+pub(crate) fn current_defects<'p, 'a>(plan: &'p Plan<'a>) -> Vec<(&'p Row<'a>, &'a str, i64)> {
+    plan.current
+        .iter()
+        .flat_map(|c| c.row.defects.iter().map(move |&(cat, n)| (c.row, cat, n)))
+        .collect()
 }
 
 /// The site a query is limited to: the site of a line-level query, or its filter.

@@ -10,7 +10,6 @@ use sqlx::{Sqlite, Transaction};
 pub(super) use crate::decode::to_u64;
 use crate::error::StoreError;
 use crate::options::OpenOptions;
-use crate::sql::BUMP_DATA_VERSION;
 
 /// The embedded SQLite migrations (this crate's `migrations/sqlite`).
 pub static MIGRATOR: sqlx::migrate::Migrator = sqlx::migrate!("migrations/sqlite");
@@ -74,10 +73,4 @@ impl SqliteStore {
     pub(super) async fn begin_write(&self) -> Result<WriteTx, StoreError> {
         Ok(self.writer.begin_with("BEGIN IMMEDIATE").await?)
     }
-}
-
-/// Bumps the data version (inside a write transaction that changed report input).
-pub(super) async fn bump_data_version(tx: &mut WriteTx) -> Result<(), StoreError> {
-    sqlx::query(BUMP_DATA_VERSION).execute(&mut **tx).await?;
-    Ok(())
 }

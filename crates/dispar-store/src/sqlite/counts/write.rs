@@ -19,8 +19,8 @@ use crate::error::StoreError;
 use crate::keys::KeyId;
 use crate::plan::{Batch, plan_batch};
 use crate::run::Run;
-use crate::sql::{LAST_RECORDED_AT, Sql};
-use crate::sqlite::db::{SqliteStore, WriteTx, bump_data_version};
+use crate::sql::{LAST_RECORDED_AT, NEXT_DATA_VERSION, Sql};
+use crate::sqlite::db::{SqliteStore, WriteTx};
 use crate::timestamp::{format_date, format_instant, next_instant, parse_instant};
 
 impl SqliteStore {
@@ -55,9 +55,13 @@ impl SqliteStore {
         let first_id = next_revision_id(&mut tx).await?;
         let plan = plan_batch(&batch, current, first_id).map_err(StoreError::Rejected)?;
         if !plan.revisions.is_empty() {
-            bump_data_version(&mut tx).await?;
+            let version: i64 = sqlx::query_scalar(NEXT_DATA_VERSION)
+                .fetch_one(&mut *tx)
+                .await?;
             let recorded_at = format_instant(next_instant(last_recorded_at(&mut tx).await?))?;
-            for mut q in Sql::<Sqlite>::plan_writes(&plan, &dates, &recorded_at, api_key_id) {
+            for mut q in
+                Sql::<Sqlite>::plan_writes(&plan, &dates, &recorded_at, api_key_id, version)
+            {
                 q.build().execute(&mut *tx).await?;
             }
         }
