@@ -82,10 +82,19 @@ impl PostgresStore {
     /// wait for it.
     pub(super) async fn begin_write(&self) -> Result<WriteTx, StoreError> {
         let mut tx = self.pool.begin().await?;
-        sqlx::query("SELECT set_config('lock_timeout', $1, true)")
-            .bind(format!("{}ms", self.lock_wait_ms.max(1)))
-            .execute(&mut *tx)
-            .await?;
+        // A write looks its keys up with a VALUES list joined to the current values.
+        // While a table grows faster than its statistics, the planner takes the list
+        // for a hash join over a scan of the whole table (measured: 25 ms per lookup of
+        // 500 keys at 150,000 records, against under 1 ms by the primary key). A write
+        // transaction never needs a hash or merge join, so it turns them off.
+        sqlx::query(
+            "SELECT set_config('lock_timeout', $1, true), \
+             set_config('enable_hashjoin', 'off', true), \
+             set_config('enable_mergejoin', 'off', true)",
+        )
+        .bind(format!("{}ms", self.lock_wait_ms.max(1)))
+        .execute(&mut *tx)
+        .await?;
         sqlx::query("SELECT pg_advisory_xact_lock($1)")
             .bind(WRITE_LOCK)
             .execute(&mut *tx)
