@@ -22,8 +22,8 @@
 //!
 //! Timing is client-side (`reqwest`, keep-alive, body read to the end), with the
 //! server's own split of a miss from its `Server-Timing` header. A miss is the request
-//! after a write (a correction of a record inside the month changes the data version of
-//! what the report reads, as new data would), so it is computed again: sums, statistics, JSON; a hit repeats
+//! after a write (a site renamed: it changes the data version of what every report reads,
+//! as new data in the month would, and no count), so it is computed again: sums, statistics, JSON; a hit repeats
 //! the request; a 304 sends its `If-None-Match`. The Python time is measured by the script itself
 //! (`time.perf_counter`) and printed next to ours.
 
@@ -137,10 +137,12 @@ fn generate() -> (String, Vec<String>) {
 /// Corrects a December record of S001 (never in the measured month) to counts it has
 /// not had before (`i` distinct per call), so the data version changes.
 fn bump(s: &Server, i: usize) {
+    // A new name for one site changes the registry, which every report reads, without
+    // changing a count (so the comparison with the script still holds).
     let r = s.as_admin(
         "PUT",
-        "/v1/sites/S001/lines/L1/days/2025-06-30",
-        Body::Json(dispar_system_tests::json!({"inspected": 1_000, "defective": 20 + i % 7})),
+        "/v1/sites/S001",
+        Body::Json(dispar_system_tests::json!({"name": format!("Plant S001 ({i})")})),
     );
     assert!(r.status == 200 || r.status == 201, "{}", r.text);
 }
@@ -209,10 +211,10 @@ fn main() {
     let read = s.key("read", &[]);
     let path = format!("/v1/reports?period={MONTH}&level=site");
     let path_off = format!("{path}&baseline=off");
-    // Misses: before each, a correction of a record inside the month changes the data
-    // version of what the report reads (new data arrived), so the same request is
-    // computed again (checked with Server-Timing's cache entry). A write outside what a
-    // report reads would leave it cached. With and without
+    // Misses: before each, a site is renamed, which changes the data version of what
+    // every report reads (as new data in the month would), so the same request is
+    // computed again (checked with Server-Timing). A write outside what a report reads
+    // would leave it cached. With and without
     // baselines alternate, so both see the same machine state.
     let mut misses = Vec::new();
     let mut misses_off = Vec::new();

@@ -323,20 +323,34 @@ where
             q.push(" ON CONFLICT (date, site) DO UPDATE SET version = excluded.version");
             out.push(q);
         }
+        let mut dates: Vec<Date> = plan.touched_days().iter().map(|(_, d)| *d).collect();
+        dates.sort_unstable();
+        dates.dedup();
+        for chunk in dates.chunks(DEFECT_CHUNK) {
+            let mut q = QueryBuilder::new("INSERT INTO date_versions (date, version) ");
+            q.push_values(chunk, |mut b, date| {
+                b.push_bind(format_date(*date)).push_bind(version);
+            });
+            q.push(" ON CONFLICT (date) DO UPDATE SET version = excluded.version");
+            out.push(q);
+        }
         out
     }
 
-    /// `(largest day version in scope or 0, registry version)`.
+    /// `(largest day version in scope or 0, registry version)`: from one site's days
+    /// (an index range) or from the per-date maxima of every site.
     pub(crate) fn scoped_version(scope: &VersionScope) -> QueryBuilder<DB> {
-        let mut q = QueryBuilder::new(
-            "SELECT COALESCE((SELECT MAX(version) FROM day_versions WHERE date BETWEEN ",
-        );
+        let mut q = QueryBuilder::new("SELECT COALESCE((SELECT MAX(version) FROM ");
+        if let Some(site) = &scope.site {
+            q.push("day_versions WHERE site = ")
+                .push_bind(site.as_str())
+                .push(" AND date BETWEEN ");
+        } else {
+            q.push("date_versions WHERE date BETWEEN ");
+        }
         q.push_bind(format_date(scope.from))
             .push(" AND ")
             .push_bind(format_date(scope.to));
-        if let Some(site) = &scope.site {
-            q.push(" AND site = ").push_bind(site.as_str());
-        }
         q.push("), 0), registry_version FROM store_state WHERE id = 1");
         q
     }

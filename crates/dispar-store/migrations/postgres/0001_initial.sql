@@ -161,3 +161,10 @@ CREATE TABLE day_versions (
     version  bigint NOT NULL,
     PRIMARY KEY (date, site)
 );
+CREATE INDEX day_versions_by_site ON day_versions (site, date, version);
+
+-- Per date, the largest day version of any site: what a report over every site reads.
+CREATE TABLE date_versions (
+    date     text COLLATE "C" NOT NULL PRIMARY KEY,
+    version  bigint NOT NULL
+);
