@@ -6,7 +6,8 @@
 //!
 //! ```text
 //! cargo run --release -p dispar-system-tests --example report_bench -- \
-//!     [--out DIR] [--python /tmp/venv-ref/bin/python] [--misses 30] [--hits 200] [--series 5]
+//!     [--out DIR] [--python /tmp/venv-ref/bin/python] [--misses 30] [--hits 200] [--series 5] \
+//!     [--analyze]   (PostgreSQL: ANALYZE after the load, as autovacuum soon would)
 //! ```
 //!
 //! `--python` names an interpreter with `tools/reference/requirements.txt` installed (the
@@ -49,6 +50,7 @@ struct Options {
     misses: usize,
     hits: usize,
     series: usize,
+    analyze: bool,
 }
 
 fn options() -> Options {
@@ -58,11 +60,17 @@ fn options() -> Options {
         misses: 30,
         hits: 200,
         series: 5,
+        analyze: false,
     };
     let args: Vec<String> = std::env::args().skip(1).collect();
     let mut i = 0;
     while i < args.len() {
         let value = args.get(i + 1).cloned().unwrap_or_default();
+        if args[i] == "--analyze" {
+            o.analyze = true;
+            i += 1;
+            continue;
+        }
         match args[i].as_str() {
             "--out" => o.out = Some(PathBuf::from(value)),
             "--python" => o.python = Some(value),
@@ -208,6 +216,16 @@ fn main() {
         ingest.as_secs_f64()
     );
 
+    if o.analyze && s.database.starts_with("postgres") {
+        // A freshly loaded PostgreSQL database has no planner statistics until
+        // autovacuum analyzes it (within a minute or so of the load); `--analyze` measures
+        // that settled state at once.
+        let out = std::process::Command::new("psql")
+            .args([s.database.as_str(), "-qAtc", "ANALYZE"])
+            .output()
+            .expect("psql runs");
+        assert!(out.status.success(), "ANALYZE: {:?}", out);
+    }
     let read = s.key("read", &[]);
     let path = format!("/v1/reports?period={MONTH}&level=site");
     let path_off = format!("{path}&baseline=off");

@@ -487,11 +487,17 @@ where
                 } else {
                     ("counts_current", "date", format_date(lo), format_date(hi))
                 };
+                // The buckets drive the join: each is a range of the table's primary key
+                // (which starts with the date or month), so both databases read each
+                // bucket's rows by the key instead of testing every row of the range
+                // against every bucket.
                 q.push(format!(
-                    ", t AS (SELECT site, line, {column} AS at, inspected, defective FROM {table}"
+                    " SELECT buckets.b, {cols}, CAST(SUM(t.inspected) AS BIGINT), \
+                     CAST(SUM(t.defective) AS BIGINT) \
+                     FROM buckets JOIN {table} AS t ON t.{column} BETWEEN buckets.lo AND buckets.hi"
                 ));
                 push_filters(&mut q, query, column, a, b);
-                q.push(")");
+                q.push(format!(" GROUP BY buckets.b, {group}"));
             }
             Some(as_of) => {
                 push_buckets(&mut q, buckets, false);
@@ -504,13 +510,14 @@ where
                     ", t AS (SELECT r.site, r.line, r.date AS at, r.inspected, r.defective \
                      FROM latest JOIN count_revisions r ON r.id = latest.id)",
                 );
+                q.push(format!(
+                    " SELECT buckets.b, {cols}, CAST(SUM(t.inspected) AS BIGINT), \
+                     CAST(SUM(t.defective) AS BIGINT) \
+                     FROM t JOIN buckets ON t.at BETWEEN buckets.lo AND buckets.hi \
+                     GROUP BY buckets.b, {group}"
+                ));
             }
         }
-        q.push(format!(
-            " SELECT buckets.b, {cols}, CAST(SUM(t.inspected) AS BIGINT), CAST(SUM(t.defective) AS BIGINT) \
-             FROM t JOIN buckets ON t.at BETWEEN buckets.lo AND buckets.hi \
-             GROUP BY buckets.b, {group}"
-        ));
         Ok(Some(q))
     }
 }
