@@ -169,3 +169,75 @@ async fn memory_and_unknown_urls_are_refused_with_a_clear_message() {
         }
     }
 }
+
+#[tokio::test]
+async fn the_scoped_version_migration_covers_data_written_before_it() {
+    use dispar_store::VersionScope;
+    use time::macros::date;
+    // A database at migration 0002 (before scoped versions) with data in it.
+    let dir = tempfile::tempdir().expect("temp dir");
+    let path = dir.path().join("old.db");
+    let old = dir.path().join("migrations");
+    std::fs::create_dir(&old).expect("dir");
+    let here = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("migrations/sqlite");
+    for name in ["0001_initial.sql", "0002_page_sessions.sql"] {
+        std::fs::copy(here.join(name), old.join(name)).expect("copy migration");
+    }
+    let url = format!("sqlite:{}", path.display());
+    let options = sqlx::sqlite::SqliteConnectOptions::new()
+        .filename(&path)
+        .create_if_missing(true);
+    let mut conn = sqlx::SqliteConnection::connect_with(&options)
+        .await
+        .expect("connect");
+    sqlx::migrate::Migrator::new(old.as_path())
+        .await
+        .expect("old migrations")
+        .run(&mut conn)
+        .await
+        .expect("migrate to 0002");
+    for sql in [
+        "INSERT INTO sites (code, name) VALUES ('S1', 'Site 1'), ('S2', 'Site 2')",
+        "INSERT INTO lines (site, code) VALUES ('S1', 'L1'), ('S2', 'L1')",
+        "INSERT INTO count_revisions (id, site, line, date, inspected, defective, recorded_at) \
+         VALUES (1, 'S1', 'L1', '2026-03-02', 10, 1, '2026-03-02T08:00:00.000000Z')",
+        "INSERT INTO counts_current VALUES ('2026-03-02', 'S1', 'L1', '', 1, 10, 1, NULL)",
+        "UPDATE store_state SET data_version = 5",
+    ] {
+        sqlx::query(sql).execute(&mut conn).await.expect(sql);
+    }
+    conn.close().await.expect("close");
+
+    // Opening runs 0003: the existing day and the registry take the current version.
+    let store = dispar_store::open(&url).await.expect("open and migrate");
+    let scope = |site: Option<&str>, from, to| VersionScope {
+        from,
+        to,
+        site: site.map(|s| crate::helpers::site_code(s)),
+    };
+    let march = |site| scope(site, date!(2026 - 03 - 01), date!(2026 - 03 - 31));
+    assert_eq!(store.scoped_version(&march(None)).await.expect("v"), 5);
+    assert_eq!(
+        store.scoped_version(&march(Some("S1"))).await.expect("v"),
+        5
+    );
+    // S2 has no day of its own, but the registry was at 5 too.
+    assert_eq!(
+        store.scoped_version(&march(Some("S2"))).await.expect("v"),
+        5
+    );
+    // A new write to S2 moves S2's and the all-site scope, not S1's.
+    store
+        .put_record(&rec("S2", "L1", D1, 20, 2), None)
+        .await
+        .expect("write");
+    assert_eq!(store.scoped_version(&march(None)).await.expect("v"), 6);
+    assert_eq!(
+        store.scoped_version(&march(Some("S2"))).await.expect("v"),
+        6
+    );
+    assert_eq!(
+        store.scoped_version(&march(Some("S1"))).await.expect("v"),
+        5
+    );
+}
