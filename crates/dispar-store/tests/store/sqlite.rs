@@ -213,7 +213,7 @@ async fn the_scoped_version_migration_covers_data_written_before_it() {
     let scope = |site: Option<&str>, from, to| VersionScope {
         from,
         to,
-        site: site.map(|s| crate::helpers::site_code(s)),
+        site: site.map(crate::helpers::site_code),
     };
     let march = |site| scope(site, date!(2026 - 03 - 01), date!(2026 - 03 - 31));
     assert_eq!(store.scoped_version(&march(None)).await.expect("v"), 5);
