@@ -43,6 +43,12 @@ pub struct Tail {
 /// # Ok::<(), dispar_stats::StatsError>(())
 /// ```
 pub fn upper_tail(x: f64, df: u64) -> Result<Tail, StatsError> {
+    check(x, "chi-square statistic", df)?;
+    Ok(upper_tail_unchecked(x, df))
+}
+
+/// Refuses `df` 0 and a non-finite `x` (named `x_name` in the error).
+fn check(x: f64, x_name: &'static str, df: u64) -> Result<(), StatsError> {
     if df == 0 {
         return Err(StatsError::InvalidParameter {
             name: "df",
@@ -52,12 +58,12 @@ pub fn upper_tail(x: f64, df: u64) -> Result<Tail, StatsError> {
     }
     if !x.is_finite() {
         return Err(StatsError::InvalidParameter {
-            name: "chi-square statistic",
+            name: x_name,
             value: x,
             requirement: "finite",
         });
     }
-    Ok(upper_tail_unchecked(x, df))
+    Ok(())
 }
 
 /// Density of the chi-square distribution with `df` degrees of freedom at `x` (0 for
@@ -73,20 +79,7 @@ pub fn upper_tail(x: f64, df: u64) -> Result<Tail, StatsError> {
 /// # Ok::<(), dispar_stats::StatsError>(())
 /// ```
 pub fn density(x: f64, df: u64) -> Result<f64, StatsError> {
-    if df == 0 {
-        return Err(StatsError::InvalidParameter {
-            name: "df",
-            value: 0.0,
-            requirement: "at least 1",
-        });
-    }
-    if !x.is_finite() {
-        return Err(StatsError::InvalidParameter {
-            name: "x",
-            value: x,
-            requirement: "finite",
-        });
-    }
+    check(x, "x", df)?;
     Ok(match df {
         _ if x < 0.0 => 0.0,
         1 if x == 0.0 => f64::INFINITY,

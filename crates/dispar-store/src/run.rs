@@ -507,6 +507,32 @@ where
         crate::counts::stored_answer(row, body_sha256)
     }
 
+    /// Renders and stores the answer to a batch written under an Idempotency-Key
+    /// (inside the batch's transaction); `None` without a key.
+    pub(crate) async fn keep_answer(
+        conn: &mut DB::Connection,
+        api_key_id: Option<KeyId>,
+        idempotency: Option<&crate::counts::Idempotency<'_>>,
+        outcome: &crate::counts::BatchOutcome,
+    ) -> Result<Option<crate::counts::StoredAnswer>, StoreError> {
+        let Some(idem) = idempotency else {
+            return Ok(None);
+        };
+        let answer = (idem.render)(outcome);
+        Sql::<DB>::store_answer(
+            api_key_id,
+            idem.key,
+            &idem.body_sha256,
+            answer.status,
+            &answer.body,
+            format_instant(OffsetDateTime::now_utc())?,
+        )
+        .build()
+        .execute(&mut *conn)
+        .await?;
+        Ok(Some(answer))
+    }
+
     /// The records of `batch` whose site or line is not registered.
     pub(crate) async fn unregistered(
         conn: &mut DB::Connection,

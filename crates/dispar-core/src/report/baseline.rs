@@ -150,8 +150,8 @@ fn reason_words(c: &Comparison, unit: &str, left_out: &[String]) -> String {
     }
 }
 
-/// The name of a period kind in words, for reasons ("8 earlier weeks").
-pub(super) fn unit_of(period: Option<&Period>) -> &'static str {
+/// The name of a period kind in words, for reasons ("8 earlier weeks") and the pages.
+pub fn unit_of(period: Option<&Period>) -> &'static str {
     match period.map(Period::granularity) {
         Some(Granularity::Day) => "day",
         Some(Granularity::IsoWeek) => "week",

@@ -72,24 +72,8 @@ impl PostgresStore {
             write_plan(&mut tx, &plan, dates, &recorded_at, api_key_id, version).await?;
         }
         let outcome = plan.outcome;
-        let answer = match idempotency {
-            Some(idem) => {
-                let answer = (idem.render)(&outcome);
-                PgSql::store_answer(
-                    api_key_id,
-                    idem.key,
-                    &idem.body_sha256,
-                    answer.status,
-                    &answer.body,
-                    format_instant(OffsetDateTime::now_utc())?,
-                )
-                .build()
-                .execute(&mut *tx)
-                .await?;
-                Some(answer)
-            }
-            None => None,
-        };
+        let answer =
+            Run::<Postgres>::keep_answer(&mut tx, api_key_id, idempotency, &outcome).await?;
         tx.commit().await?;
         Ok(BatchResult::Written { outcome, answer })
     }

@@ -8,8 +8,7 @@
 //! the word (`worse`, `better`) for a change against a group's own usual.
 
 use dispar_core::date::format_date;
-use dispar_core::period::{Granularity, Period};
-use dispar_core::report::baseline::{persistent_words, series_headline};
+use dispar_core::report::baseline::{persistent_words, series_headline, unit_of};
 use dispar_core::report::model::{
     Baseline, BaselineVerdict, Flag, GroupRow, PairRow, TableAnalysis, Test,
 };
@@ -657,7 +656,7 @@ fn changes_view(report: &Report, units: &Units) -> Option<ChangesView> {
     if with.is_empty() {
         return None;
     }
-    let unit = unit_word(report.period.as_ref());
+    let unit = unit_of(report.period.as_ref());
     let count = |v: BaselineVerdict| with.iter().filter(|(_, b)| b.verdict == v).count();
     let (usual, unknown) = (
         count(BaselineVerdict::Usual),
@@ -726,7 +725,7 @@ fn changes_view(report: &Report, units: &Units) -> Option<ChangesView> {
 /// Persistent differences over the baseline window, in words.
 fn persistent_view(report: &Report, units: &Units) -> Option<String> {
     let spread = report.usual_spread.as_ref()?;
-    let persistent = persistent_words(spread, unit_word(report.period.as_ref()));
+    let persistent = persistent_words(spread, unit_of(report.period.as_ref()));
     let differ = report.test.as_ref().is_some_and(|t| t.significant);
     let usually = spread.phi.is_some_and(|phi| phi > 1.0);
     let list = persistent.join("; ");
@@ -735,7 +734,7 @@ fn persistent_view(report: &Report, units: &Units) -> Option<String> {
             "The {} also differ as they usually do (over the last {}).",
             units.plural,
             {
-                let unit = unit_word(report.period.as_ref());
+                let unit = unit_of(report.period.as_ref());
                 count_of(spread.periods, unit, &format!("{unit}s"))
             }
         )),
@@ -823,22 +822,9 @@ fn baseline_cells(b: &Baseline, conf: &str) -> BaselineCells {
     }
 }
 
-/// `week`, `month`, … for the report's kind of period.
-fn unit_word(period: Option<&Period>) -> &'static str {
-    match period.map(Period::granularity) {
-        Some(Granularity::Day) => "day",
-        Some(Granularity::IsoWeek) => "week",
-        Some(Granularity::Month) => "month",
-        Some(Granularity::Quarter) => "quarter",
-        Some(Granularity::Year) => "year",
-        Some(Granularity::Range) => "range",
-        None => "period",
-    }
-}
-
 fn baseline_legend(report: &Report) -> Option<String> {
     let b = report.groups.iter().find_map(|g| g.baseline.as_ref())?;
-    let unit = unit_word(report.period.as_ref());
+    let unit = unit_of(report.period.as_ref());
     Some(format!(
         "Usual rate: the group's own pooled rate over up to {} earlier {unit}s; ratio: this {unit}'s rate divided by it. {CHANGE} marks a change against the group's own usual (worse or better, in words), with the between-{unit} variation folded in (limit \u{00b1}{}); \u{25b2} \u{25bc} mark a flag against the pooled rate of this {unit}'s groups. Hover a verdict for its reason.",
         report
@@ -1129,7 +1115,7 @@ fn method_facts(report: &Report) -> Vec<Fact> {
         ));
     }
     if let Some(b) = report.groups.iter().find_map(|g| g.baseline.as_ref()) {
-        let unit = unit_word(report.period.as_ref());
+        let unit = unit_of(report.period.as_ref());
         let exact = report
             .groups
             .iter()

@@ -67,24 +67,8 @@ impl SqliteStore {
         }
 
         let outcome = plan.outcome;
-        let answer = match &idempotency {
-            Some(idem) => {
-                let answer = (idem.render)(&outcome);
-                Sql::<Sqlite>::store_answer(
-                    api_key_id,
-                    idem.key,
-                    &idem.body_sha256,
-                    answer.status,
-                    &answer.body,
-                    format_instant(OffsetDateTime::now_utc())?,
-                )
-                .build()
-                .execute(&mut *tx)
-                .await?;
-                Some(answer)
-            }
-            None => None,
-        };
+        let answer =
+            Run::<Sqlite>::keep_answer(&mut tx, api_key_id, idempotency.as_ref(), &outcome).await?;
         tx.commit().await?;
         Ok(BatchResult::Written { outcome, answer })
     }
