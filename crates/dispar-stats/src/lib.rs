@@ -63,11 +63,15 @@ mod loader;
 pub mod montecarlo;
 pub mod overdispersion;
 pub mod pairwise;
+pub mod power;
 pub mod residuals;
 pub mod spread;
+pub mod standardise;
+pub mod stratified;
 pub mod table;
 #[cfg(test)]
 mod testutil;
+pub mod trend;
 pub mod validity;
 
 pub use error::{NotTestable, NotTestableReason, StatsError};
