@@ -97,6 +97,7 @@ async fn main() -> Result<(), Error> {
                 site: None,
                 product: None,
                 as_of,
+                by_product: false,
             };
             store.aggregate(&q).await?; // warm the page cache
             let runs = 20;

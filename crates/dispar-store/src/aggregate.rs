@@ -5,7 +5,7 @@
 
 use std::collections::BTreeMap;
 
-use dispar_core::code::{CategoryCode, LineCode, SiteCode};
+use dispar_core::code::{CategoryCode, LineCode, ProductCode, SiteCode};
 use time::{Date, Duration};
 
 use crate::decode::{parse_code, to_u64};
@@ -77,26 +77,46 @@ pub(crate) fn whole_months(buckets: &[(Date, Date)]) -> bool {
 
 /// A group: site code, and line code at the line levels.
 pub(crate) type GroupKey = (String, Option<String>);
-/// A group's summed (inspected, defective) as read.
-pub(crate) type TotalsRow = (String, Option<String>, i64, i64);
+/// A group's summed (inspected, defective) as read, per product ('' for records
+/// without one) when the query splits by product, else with an empty product.
+pub(crate) type TotalsRow = (String, Option<String>, String, i64, i64);
 /// A group's summed count of one defect category as read.
 pub(crate) type DefectsRow = (String, Option<String>, String, i64);
 
-/// Merges the registered groups with the sums (groups without data get zeros).
+/// A group's sums while merging: inspected, defective, defects, and per product.
+type Sums = (
+    u64,
+    u64,
+    BTreeMap<CategoryCode, u64>,
+    BTreeMap<Option<ProductCode>, (u64, u64)>,
+);
+
+/// Merges the rows of one read into groups: every registered group (zeros when it has
+/// no data), with the per-product split when `by_product`.
 pub(crate) fn finish(
     version: i64,
+    by_product: bool,
     registered: Vec<GroupKey>,
     totals: Vec<TotalsRow>,
     defects: Vec<DefectsRow>,
 ) -> Result<Aggregate, StoreError> {
-    let mut groups: BTreeMap<GroupKey, (u64, u64, BTreeMap<CategoryCode, u64>)> = BTreeMap::new();
+    let mut groups: BTreeMap<GroupKey, Sums> = BTreeMap::new();
     for key in registered {
         groups.entry(key).or_default();
     }
-    for (site, line, inspected, defective) in totals {
+    for (site, line, product, inspected, defective) in totals {
         let g = groups.entry((site, line)).or_default();
-        g.0 = to_u64(inspected, "sum")?;
-        g.1 = to_u64(defective, "sum")?;
+        let inspected = to_u64(inspected, "sum")?;
+        let defective = to_u64(defective, "sum")?;
+        g.0 = g.0.saturating_add(inspected);
+        g.1 = g.1.saturating_add(defective);
+        if by_product && inspected > 0 {
+            let product = match product.as_str() {
+                "" => None,
+                code => Some(parse_code::<ProductCode>(code)?),
+            };
+            g.3.insert(product, (inspected, defective));
+        }
     }
     for (site, line, category, count) in defects {
         let count = to_u64(count, "sum")?;
@@ -110,15 +130,18 @@ pub(crate) fn finish(
     }
     let groups = groups
         .into_iter()
-        .map(|((site, line), (inspected, defective, defects))| {
-            Ok(GroupTotals {
-                site: parse_code::<SiteCode>(&site)?,
-                line: line.as_deref().map(parse_code::<LineCode>).transpose()?,
-                inspected,
-                defective,
-                defects,
-            })
-        })
+        .map(
+            |((site, line), (inspected, defective, defects, products))| {
+                Ok(GroupTotals {
+                    site: parse_code::<SiteCode>(&site)?,
+                    line: line.as_deref().map(parse_code::<LineCode>).transpose()?,
+                    inspected,
+                    defective,
+                    defects,
+                    products,
+                })
+            },
+        )
         .collect::<Result<_, StoreError>>()?;
     Ok(Aggregate {
         data_version: to_u64(version, "data version")?,
@@ -150,12 +173,12 @@ pub(crate) fn finish_buckets(
     let mut per_bucket: Vec<Vec<TotalsRow>> = vec![Vec::new(); buckets];
     for (b, site, line, inspected, defective) in rows {
         if let Some(v) = usize::try_from(b).ok().and_then(|b| per_bucket.get_mut(b)) {
-            v.push((site, line, inspected, defective));
+            v.push((site, line, String::new(), inspected, defective));
         }
     }
     let mut out = Vec::with_capacity(buckets);
     for totals in per_bucket {
-        out.push(finish(version, registered.to_vec(), totals, Vec::new())?.groups);
+        out.push(finish(version, false, registered.to_vec(), totals, Vec::new())?.groups);
     }
     Ok(crate::reports::BucketedAggregate {
         data_version: to_u64(version, "data version")?,

@@ -35,6 +35,9 @@ pub struct AggregateQuery {
     /// Use the data as it stood at this instant (the latest revision per record with
     /// `recorded_at <= as_of`) instead of the current data.
     pub as_of: Option<OffsetDateTime>,
+    /// Also split each group's sums by product ([`GroupTotals::products`]), in the same
+    /// statement, so the split always adds up to the group's totals.
+    pub by_product: bool,
 }
 
 /// The summed counts of one group.
@@ -50,6 +53,9 @@ pub struct GroupTotals {
     pub defective: u64,
     /// Defects by category (categories with a zero sum are left out).
     pub defects: BTreeMap<CategoryCode, u64>,
+    /// With [`AggregateQuery::by_product`]: (inspected, defective) per product (`None`:
+    /// records without a product), products with no units left out; empty otherwise.
+    pub products: BTreeMap<Option<ProductCode>, (u64, u64)>,
 }
 
 /// The result of an aggregation.

@@ -619,11 +619,17 @@ where
             .await?;
         let registered = Self::registered_groups(conn, query).await?;
         let Some((mut totals, mut defects)) = Sql::<DB>::sums(query)? else {
-            return finish(version, registered, Vec::new(), Vec::new());
+            return finish(
+                version,
+                query.by_product,
+                registered,
+                Vec::new(),
+                Vec::new(),
+            );
         };
         let totals: Vec<TotalsRow> = totals.build_query_as().fetch_all(&mut *conn).await?;
         let defects: Vec<DefectsRow> = defects.build_query_as().fetch_all(&mut *conn).await?;
-        finish(version, registered, totals, defects)
+        finish(version, query.by_product, registered, totals, defects)
     }
 
     /// [`crate::Store::aggregate_buckets`] on a connection inside one read snapshot.

@@ -406,16 +406,17 @@ where
                     push_filters(q, query, column, a, b);
                 }
             };
+            let (product, by) = product_columns(query, "");
             let mut totals = QueryBuilder::new(format!(
-                "SELECT {cols}, CAST(SUM(inspected) AS BIGINT), CAST(SUM(defective) AS BIGINT) FROM ("
+                "SELECT {cols}, {product}, CAST(SUM(inspected) AS BIGINT), CAST(SUM(defective) AS BIGINT) FROM ("
             ));
             union(
                 &mut totals,
                 "counts_current",
                 "month_totals",
-                "inspected, defective",
+                "product, inspected, defective",
             );
-            totals.push(format!(") AS u GROUP BY {group}"));
+            totals.push(format!(") AS u GROUP BY {group}{by}"));
             let mut defects = QueryBuilder::new(format!(
                 "SELECT {cols}, category, CAST(SUM(count) AS BIGINT) FROM ("
             ));
@@ -444,9 +445,10 @@ where
         };
         let mut totals = QueryBuilder::new("");
         latest(&mut totals);
+        let (product, by) = product_columns(query, "r.");
         totals.push(format!(
-            "SELECT {cols}, CAST(SUM(r.inspected) AS BIGINT), CAST(SUM(r.defective) AS BIGINT) \
-             FROM latest JOIN count_revisions r ON r.id = latest.id GROUP BY {group}"
+            "SELECT {cols}, {product}, CAST(SUM(r.inspected) AS BIGINT), CAST(SUM(r.defective) AS BIGINT) \
+             FROM latest JOIN count_revisions r ON r.id = latest.id GROUP BY {group}{by}"
         ));
         let mut defects = QueryBuilder::new("");
         latest(&mut defects);
@@ -598,4 +600,14 @@ where
             .push(")");
     }
     q.push(")");
+}
+
+/// The product column of a totals statement and its GROUP BY addition: the product
+/// (qualified by `table`) when the query splits by product, else one empty product.
+fn product_columns(query: &AggregateQuery, table: &str) -> (String, String) {
+    if query.by_product {
+        (format!("{table}product"), format!(", {table}product"))
+    } else {
+        ("CAST('' AS TEXT)".to_owned(), String::new())
+    }
 }

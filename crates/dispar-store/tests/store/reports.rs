@@ -11,6 +11,7 @@ fn query(level: Level, from: Date, to: Date) -> AggregateQuery {
         site: None,
         product: None,
         as_of: None,
+        by_product: false,
     }
 }
 
@@ -156,6 +157,81 @@ async fn the_product_filter_keeps_only_that_product() {
         ]
     );
     assert_eq!(a.groups[1].defects.len(), 1);
+}
+
+/// (site, line, product, inspected, defective) of every group's split by product.
+fn split(groups: &[GroupTotals]) -> Vec<(String, Option<String>, Option<String>, u64, u64)> {
+    groups
+        .iter()
+        .flat_map(|g| {
+            g.products.iter().map(|(p, (i, d))| {
+                (
+                    g.site.to_string(),
+                    g.line.as_ref().map(ToString::to_string),
+                    p.as_ref().map(ToString::to_string),
+                    *i,
+                    *d,
+                )
+            })
+        })
+        .collect()
+}
+
+#[tokio::test]
+async fn the_split_by_product_adds_up_to_each_group_from_days_months_and_history() {
+    let db = seeded().await;
+    let p1 = Some("P1".to_owned());
+    let s1 = || "S1".to_owned();
+    let s2 = || "S2".to_owned();
+    let days = AggregateQuery {
+        by_product: true,
+        ..query(Level::Site, D1, D3)
+    };
+    let month = AggregateQuery {
+        from: time::macros::date!(2026 - 03 - 01),
+        to: time::macros::date!(2026 - 03 - 31),
+        ..days.clone()
+    };
+    let history = AggregateQuery {
+        as_of: Some(time::OffsetDateTime::now_utc()),
+        ..days.clone()
+    };
+    let want_days = vec![
+        (s1(), None, None, 300, 14),
+        (s1(), None, p1.clone(), 50, 1),
+        (s2(), None, None, 300, 3),
+        (s2(), None, p1.clone(), 400, 8),
+    ];
+    let mut want_month = want_days.clone();
+    want_month[2] = (s2(), None, None, 1299, 102);
+    for (q, want) in [
+        (&days, &want_days),
+        (&month, &want_month),
+        (&history, &want_days),
+    ] {
+        let a = db.store.aggregate(q).await.expect("aggregate");
+        assert_eq!(split(&a.groups), *want, "{q:?}");
+        for g in &a.groups {
+            let (i, d) = g
+                .products
+                .values()
+                .fold((0, 0), |(i, d), (a, b)| (i + a, d + b));
+            assert_eq!((i, d), (g.inspected, g.defective), "{q:?}: {}", g.site);
+        }
+    }
+    // At the line level too; without by_product the split stays empty.
+    let lines = AggregateQuery {
+        by_product: true,
+        ..query(Level::AllLines, D1, D3)
+    };
+    let a = db.store.aggregate(&lines).await.expect("aggregate");
+    assert!(split(&a.groups).contains(&(s1(), Some("L1".to_owned()), p1, 50, 1)));
+    let plain = db
+        .store
+        .aggregate(&query(Level::Site, D1, D3))
+        .await
+        .expect("aggregate");
+    assert!(plain.groups.iter().all(|g| g.products.is_empty()));
 }
 
 #[tokio::test]

@@ -183,6 +183,7 @@ pub async fn story(store: Arc<dyn Store>) {
         site: None,
         product: None,
         as_of,
+        by_product: false,
     };
     let now = store
         .aggregate(&q(Level::Site, None))

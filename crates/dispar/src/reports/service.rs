@@ -264,6 +264,7 @@ impl ReportService {
                 site: None,
                 product: None,
                 as_of: None,
+                by_product: false,
             })
             .await?;
         Ok(a.groups.iter().any(|g| g.inspected > 0))

@@ -225,6 +225,7 @@ impl ReportSpec {
             site: self.filters.site.clone(),
             product: self.filters.product.clone(),
             as_of: self.as_of,
+            by_product: false,
         }
     }
 
