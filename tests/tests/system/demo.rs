@@ -61,7 +61,7 @@ impl Demo {
             // Keep draining so the demo never blocks on a full pipe.
             for _ in lines {}
         });
-        // The debug build loads the 2,052 records in a few seconds.
+        // The debug build loads the 2,775 records in a few seconds.
         let banner = match rx.recv_timeout(Duration::from_secs(180)) {
             Ok(b) => b,
             Err(_) => {
@@ -232,7 +232,7 @@ fn the_demo_loads_the_scenario_and_gives_the_readme_verdicts() {
     // Progress of the load on standard error (plain lines when it is not a terminal).
     let log = demo.log();
     assert!(
-        log.contains("loading counts: week 25/25 (2026-W26), 2052/2052 records"),
+        log.contains("loading counts: week 25/25 (2026-W26), 2775/2775 records"),
         "no final progress line in:\n{log}"
     );
     let database = PathBuf::from(demo.line("database: ").split(" (").next().unwrap());

@@ -11,6 +11,7 @@
 
 pub mod baseline;
 pub mod build;
+pub mod gaps;
 pub mod model;
 pub mod params;
 pub mod text;

@@ -171,3 +171,100 @@ pub fn close(actual: f64, expected: f64, rel: f64, abs: f64) -> bool {
 pub fn printed(decimals: i32) -> f64 {
     0.5 * 10f64.powi(-decimals) * (1.0 + 1e-9)
 }
+
+// --- trend (Cochran-Armitage) and power (tests/trend_power.rs) ---
+
+/// Cochran-Armitage z, slope, departure against the mpmath formulas: relative part (a few
+/// dozen operations per point, summed over at most 60 points).
+pub const TREND_REL: f64 = 1e-12;
+
+/// Cochran-Armitage: absolute error per unit of the series' rounding scale (computed in
+/// the test from its inputs: sum (n p̄ + |d - n p̄|) |t - t̄| over the sd for z). Each
+/// d - n p̄ carries ~2 roundings of n p̄ and one of the difference; 8 EPS covers them. At
+/// 1e9 units a period this is the 1e-12-ish absolute error of z no float64 method avoids.
+pub const TREND_ROUNDING: f64 = 8.0 * EPS;
+
+/// Two-sided Student's t p against mpmath's incomplete beta: relative. statrs 0.19.1's
+/// `beta_reg` (continued fraction) at the z_w and df of the fixtures.
+pub const STUDENT_P_REL: f64 = 1e-12;
+
+/// R's prop.trend.test X-squared, a sum of squares from `lm` (QR in float64), against z²:
+/// relative, and absolute relative to the total X² (the fit's rounding scale). Measured
+/// on the fixture: 1.2e-14 of the total X², and R's p within 5.3e-12 of mpmath's; 1e-10
+/// leaves room for R linked to another BLAS, and still fails any convention error
+/// (the hypergeometric one differs by 1/N, 3e-3 at N = 300).
+pub const R_LM_REL: f64 = 1e-10;
+
+/// numpy polyfit's slope (float64 least squares through lstsq): relative, and absolute
+/// in units of the slope's standard error (measured: 2e-13 of it).
+pub const NUMPY_POLYFIT_REL: f64 = 1e-10;
+
+/// Power rule: c, h, the detectable rise and the units needed against mpmath: relative
+/// (c is a Newton root polished to a few EPS; h, the rise and the units are a handful of
+/// correctly rounded functions of it).
+pub const POWER_REL: f64 = 1e-13;
+
+/// statsmodels NormalIndPower.solve_power for the effect size stops its brentq at its own
+/// tolerance: measured up to 2.4e-6 absolute in h over the fixture's cases (1.6% of the
+/// smallest h); the generator asserts 5e-6. Absolute.
+pub const STATSMODELS_POWER_EFFECT_ABS: f64 = 5e-6;
+
+/// statsmodels solve_power for nobs1: measured up to 1.3e-7 relative; the generator
+/// asserts 1e-6. Relative.
+pub const STATSMODELS_POWER_UNITS_REL: f64 = 1e-6;
+
+// --- product mix: indirect standardisation and stratified tests (tests/mix.rs) ---
+
+/// Expected counts E = sum n_s x_s / N_s against exact rationals: relative (each term
+/// two roundings, summed over at most a few strata).
+pub const MIX_EXPECTED_REL: f64 = 1e-14;
+
+/// Garwood interval ends against mpmath roots: relative. The ends are chi-square critical
+/// values (Newton on ln Q to ~1e-15, so ~1e-13 in Q at worst) divided by E.
+pub const GARWOOD_REL: f64 = 1e-12;
+
+/// The exact Poisson p against mpmath: relative part for an exactly given mean (the
+/// incomplete gamma in log space, as `TAIL_P_REL`).
+pub const POISSON_P_REL: f64 = 1e-12;
+
+/// The exact Poisson p: its mean E is itself rounded (`MIX_EXPECTED_REL`), and
+/// d ln p / dE is about (O - E) / E in the tail, so ln p moves by about |O - E| times E's
+/// relative error.
+pub fn poisson_p_rel(observed: u64, expected: f64) -> f64 {
+    POISSON_P_REL + (observed as f64 - expected).abs() * MIX_EXPECTED_REL
+}
+
+/// Ratio funnel limits against the mpmath interpolation: absolute on the ratio scale.
+/// The interpolation weight (F(r) - p) / P(X = r) divides a difference of tail values
+/// (each ~1e-13 relative) by the point probability; over E that is ~1e-12 at the
+/// fixtures' E.
+pub const RATIO_FUNNEL_ABS: f64 = 1e-11;
+
+/// Mantel-Haenszel odds ratio, its RBG standard error and its interval against exact
+/// rationals and mpmath: relative (sums of a few roundings per stratum; the interval
+/// adds an exp of ln OR -+ z se).
+pub const MH_REL: f64 = 1e-12;
+
+/// CMH statistic D^2 / V, D the sum of the strata's deviations a - n1 m1 / n (each exact
+/// up to its final division and conversion, 2 roundings, 4 EPS with the summation) and V
+/// a sum of positive terms (relative `STATISTIC_REL`): absolute.
+pub fn cmh_tolerance(statistic: f64, deviation: f64, sum_abs_dev: f64, variance: f64) -> f64 {
+    STATISTIC_REL * statistic + 2.0 * deviation.abs() * 4.0 * EPS * sum_abs_dev / variance
+}
+
+/// Breslow-Day statistic against mpmath roots: relative, and absolute. The fitted count A
+/// solves a quadratic whose coefficients reach n1 m1 (1e12 at 1e6 units): A carries
+/// ~1e-16 relative error of those, which (a - A)^2 / Var turns into an absolute error
+/// of the statistic of order 1e-10 when a stratum sits near its fit.
+pub const BRESLOW_DAY_REL: f64 = 1e-10;
+
+/// Breslow-Day: absolute part (see `BRESLOW_DAY_REL`).
+pub const BRESLOW_DAY_ABS: f64 = 1e-9;
+
+/// Generalised CMH Q = d^T V^-1 d against a 50-digit solve: relative. The Cholesky solve
+/// loses about log10 cond(V) digits; V of the fixtures' random tables are well
+/// conditioned (group sizes within a factor 1e3).
+pub const GCMH_REL: f64 = 1e-10;
+
+/// Against R and statsmodels (float64 library code): relative, as `SCIPY_REL`.
+pub const LIBRARY_REL: f64 = 1e-9;

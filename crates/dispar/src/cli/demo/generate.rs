@@ -10,13 +10,28 @@
 //! described in `demo-data/README.md`):
 //! - KES (Kestelmoor) drifts worse in ISO weeks 2026-W14 .. W18, mostly `seal-leak`;
 //! - MRQ line L2 spikes on 2026-02-24 .. 26, mostly `short-shot`;
-//! - SEM (Semmerau) makes tens of units a day, so its line-level tables need exact tests.
+//! - SEM (Semmerau) makes tens of units a day, so its line-level tables need exact tests;
+//! - MRQ makes mostly the hard product (`DSP`, dispensing closures, about 1.9 times the
+//!   defect rate of `CAP`, plain screw caps), so its crude rate runs well above the pooled
+//!   rate while its rate standardised for the product mix is close to it.
+//!
+//! Products: six lines record one row per product and day (MRQ's four lines, TLG L2 and
+//! ODW L2, see [`PRODUCT_LINES`]); the other lines record one row a day without a product.
+//! A product line's day is drawn whole first, exactly as for a line without products,
+//! and then split into its product rows by a second stream, so every (site, line, date)
+//! keeps the totals it would have without products and every story told from the totals
+//! still holds. Units are split by the day's product share, defective units by a binomial
+//! draw weighted by the products' relative rates, and the defects of each category by
+//! drawing the day's defective units without replacement, so a product row carries only
+//! defects of its own defective units (at most one second defect each) and the product
+//! rows add up exactly to the day's.
 //!
 //! Determinism: one ChaCha8 stream per line (seed from the caller, stream from the
-//! line's position), and only `+ - * /` and `sqrt` on `f64` (no `exp`, `ln`, `powi`,
-//! whose last bits may differ between platforms), so a seed gives the same bytes on
-//! every machine. The samplers are written here rather than taken from `rand_distr`,
-//! which does not promise value stability across its versions.
+//! line's position) for the day's counts, another per product line for the split, and
+//! only `+ - * /` and `sqrt` on `f64` (no `exp`, `ln`, `powi`, whose last bits may differ
+//! between platforms), so a seed gives the same bytes on every machine. The samplers are
+//! written here rather than taken from `rand_distr`, which does not promise value
+//! stability across its versions.
 
 use std::fmt::Write as _;
 use std::path::Path;
@@ -68,7 +83,51 @@ pub struct DemoLine {
     pub name: &'static str,
 }
 
-/// One day's counts for one line (one row of `counts.csv`).
+/// A product of the demo manufacturer, as recorded in the `product` column.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct DemoProduct {
+    /// Product code.
+    pub code: &'static str,
+    /// What it is.
+    pub name: &'static str,
+    /// Its defect rate relative to [`PRODUCTS`]`[0]` on the same line and day.
+    pub relative_rate: f64,
+}
+
+/// The products, easy one first: a plain screw cap, and a dispensing closure (hinge,
+/// valve or trigger: more parts, more ways to fail).
+pub const PRODUCTS: [DemoProduct; 2] = [
+    DemoProduct {
+        code: "CAP",
+        name: "Screw cap",
+        relative_rate: 1.0,
+    },
+    DemoProduct {
+        code: "DSP",
+        name: "Dispensing closure",
+        relative_rate: 1.9,
+    },
+];
+
+/// A line that records its counts per product: (site, line, mean share of its units
+/// that are [`PRODUCTS`]`[1]`, the hard product; the rest are `PRODUCTS[0]`).
+pub const PRODUCT_LINES: [(&str, &str, f64); 6] = [
+    ("MRQ", "L1", 0.85),
+    ("MRQ", "L2", 0.85),
+    ("MRQ", "L3", 0.85),
+    ("MRQ", "L4", 0.85),
+    ("ODW", "L2", 0.35),
+    ("TLG", "L2", 0.35),
+];
+
+/// Day-to-day spread of a product line's hard-product share (absolute, before clamping
+/// to [`SHARE_BOUNDS`]): orders move the mix a little from day to day.
+const SHARE_SPREAD: f64 = 0.04;
+/// The hard product's share of a day stays within these bounds, so each product row has
+/// units.
+const SHARE_BOUNDS: (f64, f64) = (0.05, 0.95);
+
+/// One day's counts for one line, or for one product of a line (one row of `counts.csv`).
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct DemoRecord {
     /// Site code.
@@ -77,6 +136,8 @@ pub struct DemoRecord {
     pub line: &'static str,
     /// Production date (the plant's local calendar date).
     pub date: Date,
+    /// Product code, on the lines of [`PRODUCT_LINES`]; `None` elsewhere.
+    pub product: Option<&'static str>,
     /// Units inspected.
     pub inspected: u64,
     /// Units found defective (at most `inspected`).
@@ -95,7 +156,7 @@ pub struct DemoData {
     pub sites: Vec<DemoSite>,
     /// Lines, in (site, line) order.
     pub lines: Vec<DemoLine>,
-    /// Daily records, in (date, site, line) order.
+    /// Daily records, in (date, site, line, product) order (no product first).
     pub records: Vec<DemoRecord>,
 }
 
@@ -119,10 +180,13 @@ impl DemoData {
     }
 
     /// `counts.csv` in the batch format of `POST /v1/counts`:
-    /// `site,line,date,inspected,defective,defect:<category>...` (LF line ends).
+    /// `site,line,date,inspected,defective,product,defect:<category>...` (LF line ends;
+    /// an empty `product` for the lines without products).
     pub fn counts_csv(&self) -> String {
         let mut out = String::with_capacity(64 * (self.records.len() + 1));
-        out.push_str("site,line,date,inspected,defective");
+        // `product` after the counts, not beside the key: readers that take the first
+        // five columns by position (site, line, date, inspected, defective) keep working.
+        out.push_str("site,line,date,inspected,defective,product");
         for c in CATEGORIES {
             out.push_str(",defect:");
             out.push_str(c);
@@ -132,12 +196,13 @@ impl DemoData {
             // Writing to a String cannot fail.
             let _ = write!(
                 out,
-                "{},{},{},{},{}",
+                "{},{},{},{},{},{}",
                 r.site,
                 r.line,
                 iso_date(r.date),
                 r.inspected,
-                r.defective
+                r.defective,
+                r.product.unwrap_or("")
             );
             for d in r.defects {
                 let _ = write!(out, ",{d}");
@@ -463,14 +528,26 @@ pub fn generate(seed: u64) -> DemoData {
                 line: line.code,
                 name: line.name,
             });
-            let mut rng = ChaCha8Rng::seed_from_u64(seed);
             // One stream per line: changing one line's plan leaves the others alone.
-            rng.set_stream((site_index as u64) << 8 | line_index as u64);
-            let mut sampler = Sampler { rng };
+            let stream = (site_index as u64) << 8 | line_index as u64;
+            let mut sampler = Sampler::new(seed, stream);
+            let share = PRODUCT_LINES
+                .iter()
+                .find(|(s, l, _)| *s == plant.code && *l == line.code)
+                .map(|p| p.2);
+            // The split has its own stream, so the day's draws are the same bytes as
+            // they would be on a line without products.
+            let mut splitter = Sampler::new(seed, SPLIT_STREAM | stream);
             let mut day = FIRST_DAY;
             while day <= LAST_DAY {
                 if is_production_day(plant, day) {
-                    records.push(simulate_day(&mut sampler, plant, line, day));
+                    let drawn = simulate_day(&mut sampler, plant, line, day);
+                    match share {
+                        Some(share) => {
+                            records.extend(split_by_product(&mut splitter, &drawn, share));
+                        }
+                        None => records.push(drawn.record),
+                    }
                 }
                 match day.next_day() {
                     Some(next) => day = next,
@@ -481,7 +558,9 @@ pub fn generate(seed: u64) -> DemoData {
     }
     sites.sort_by(|a, b| a.code.cmp(b.code));
     lines.sort_by(|a, b| (a.site, a.line).cmp(&(b.site, b.line)));
-    records.sort_by(|a, b| (a.date, a.site, a.line).cmp(&(b.date, b.site, b.line)));
+    records.sort_by(|a, b| {
+        (a.date, a.site, a.line, a.product).cmp(&(b.date, b.site, b.line, b.product))
+    });
     DemoData {
         seed,
         sites,
@@ -494,7 +573,18 @@ fn is_production_day(plant: &SitePlan, day: Date) -> bool {
     !matches!(day.weekday(), Weekday::Saturday | Weekday::Sunday) && !plant.holidays.contains(&day)
 }
 
-fn simulate_day(s: &mut Sampler, plant: &SitePlan, line: &LinePlan, day: Date) -> DemoRecord {
+/// Added to a line's stream number for its product split (line streams are below 2^16).
+const SPLIT_STREAM: u64 = 1 << 32;
+
+/// A line's day as drawn, with its first and second defects apart, so the split can
+/// hand each product only defects its own defective units can carry.
+struct DayDraw {
+    record: DemoRecord,
+    first: [u64; CATEGORIES.len()],
+    second: [u64; CATEGORIES.len()],
+}
+
+fn simulate_day(s: &mut Sampler, plant: &SitePlan, line: &LinePlan, day: Date) -> DayDraw {
     // Volume: the line's typical day, a little lower on Mondays, with a spread,
     // and now and then a short day.
     let mut units = line.daily_units;
@@ -524,21 +614,73 @@ fn simulate_day(s: &mut Sampler, plant: &SitePlan, line: &LinePlan, day: Date) -
         }
         probs[category] += excess * share;
     }
-    let mut defects = s.multinomial(defective, &probs);
+    let first = s.multinomial(defective, &probs);
     // Some defective units carry a second defect, in the plant's usual mix.
-    let second = s.binomial(defective, SECOND_DEFECT);
-    for (d, extra) in defects.iter_mut().zip(s.multinomial(second, &plant.shares)) {
+    let second_count = s.binomial(defective, SECOND_DEFECT);
+    let second = s.multinomial(second_count, &plant.shares);
+    let mut defects = first;
+    for (d, extra) in defects.iter_mut().zip(second) {
         *d += extra;
     }
 
-    DemoRecord {
-        site: plant.code,
-        line: line.code,
-        date: day,
+    DayDraw {
+        record: DemoRecord {
+            site: plant.code,
+            line: line.code,
+            date: day,
+            product: None,
+            inspected,
+            defective,
+            defects,
+        },
+        first,
+        second,
+    }
+}
+
+/// Splits a drawn day into one row per product (in [`PRODUCTS`] order), `hard_share`
+/// being the line's mean share of `PRODUCTS[1]`. The rows add up exactly to the day.
+fn split_by_product(s: &mut Sampler, day: &DayDraw, hard_share: f64) -> [DemoRecord; 2] {
+    let n = day.record.inspected;
+    let share = (hard_share + SHARE_SPREAD * s.normal()).clamp(SHARE_BOUNDS.0, SHARE_BOUNDS.1);
+    // At least one unit of each product (every generated day has 3 units or more).
+    let n_hard = ((n as f64 * share + 0.5).floor() as u64).clamp(1, n.saturating_sub(1));
+    let n_easy = n - n_hard;
+
+    // Each defective unit is the hard product's with the probability its units' share
+    // of the expected defectives gives, within what each product's units allow.
+    let d = day.record.defective;
+    let hard_weight = n_hard as f64 * PRODUCTS[1].relative_rate;
+    let easy_weight = n_easy as f64 * PRODUCTS[0].relative_rate;
+    let d_hard = s
+        .binomial(d, hard_weight / (hard_weight + easy_weight))
+        .min(n_hard)
+        .max(d.saturating_sub(n_easy));
+
+    // The hard product's defective units are d_hard of the day's d, drawn without
+    // replacement: their first defects, how many of them carry a second, and its category.
+    let first_hard = s.without_replacement(&day.first, d_hard);
+    let second_total: u64 = day.second.iter().sum();
+    let [second_count_hard, _] = s.without_replacement(&[second_total, d - second_total], d_hard);
+    let second_hard = s.without_replacement(&day.second, second_count_hard);
+
+    let mut hard_defects = [0; CATEGORIES.len()];
+    let mut easy_defects = [0; CATEGORIES.len()];
+    for k in 0..CATEGORIES.len() {
+        hard_defects[k] = first_hard[k] + second_hard[k];
+        easy_defects[k] = day.record.defects[k] - hard_defects[k];
+    }
+    let row = |product: &DemoProduct, inspected, defective, defects| DemoRecord {
+        product: Some(product.code),
         inspected,
         defective,
         defects,
-    }
+        ..day.record.clone()
+    };
+    [
+        row(&PRODUCTS[0], n_easy, d - d_hard, easy_defects),
+        row(&PRODUCTS[1], n_hard, d_hard, hard_defects),
+    ]
 }
 
 /// The planted drift or spike on this line and day: (rate multiplier, and the
@@ -570,6 +712,41 @@ struct Sampler {
 }
 
 impl Sampler {
+    /// The ChaCha8 stream `stream` of `seed`.
+    fn new(seed: u64, stream: u64) -> Self {
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        rng.set_stream(stream);
+        Sampler { rng }
+    }
+
+    /// Index in [0, n) for n > 0, from a uniform (n is far below 2^53 here, so every
+    /// index is reachable and the bias is negligible).
+    fn below(&mut self, n: u64) -> u64 {
+        ((self.uniform() * n as f64) as u64).min(n.saturating_sub(1))
+    }
+
+    /// Multivariate hypergeometric: how many of each kind among `draws` items taken
+    /// without replacement from `pool` (`pool[k]` items of kind k), one item at a time.
+    /// `draws` beyond the pool's size take the whole pool.
+    fn without_replacement<const K: usize>(&mut self, pool: &[u64; K], draws: u64) -> [u64; K] {
+        let mut left = *pool;
+        let mut out = [0; K];
+        let mut total: u64 = pool.iter().sum();
+        for _ in 0..draws.min(total) {
+            let mut pick = self.below(total);
+            for (kind, count) in left.iter_mut().enumerate() {
+                if pick < *count {
+                    *count -= 1;
+                    out[kind] += 1;
+                    break;
+                }
+                pick -= *count;
+            }
+            total -= 1;
+        }
+        out
+    }
+
     /// Uniform on [0, 1) with 53 random bits.
     fn uniform(&mut self) -> f64 {
         (self.rng.next_u64() >> 11) as f64 * (1.0 / (1u64 << 53) as f64)

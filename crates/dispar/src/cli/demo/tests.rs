@@ -11,6 +11,13 @@
 //!   (p_i - p) / sqrt(p (1 - p) (1/n_i - 1/N)) with p the pooled rate.
 //! - Cochran's rule (Cochran 1954, "Some methods for strengthening the common chi^2
 //!   tests", Biometrics 10:417-451): no expected count below 1 and at most 20% below 5.
+//! - Indirect standardisation for the product mix: a group's expected defectives are
+//!   E = sum over strata s of n_s r_s, with r_s the stratum's rate pooled over all
+//!   groups, and its standardised ratio is O / E (the standardised mortality ratio of
+//!   epidemiology; Breslow and Day 1987, "Statistical Methods in Cancer Research, Vol. II:
+//!   The Design and Analysis of Cohort Studies", IARC Scientific Publications 82,
+//!   chapter 2 (recalled from memory)). The strata are the products, "no product" being
+//!   one of them.
 //!
 //! A group is called "above" here when its adjusted residual exceeds
 //! [`FLAG_THRESHOLD`] = 3.0, a fixed threshold a little stricter than the ANOM
@@ -23,7 +30,7 @@ use std::collections::BTreeMap;
 
 use time::Date;
 
-use super::generate::{CATEGORIES, DemoData, DemoRecord, FIRST_DAY, LAST_DAY};
+use super::generate::{CATEGORIES, DemoData, DemoRecord, FIRST_DAY, LAST_DAY, PRODUCT_LINES};
 use super::{DEFAULT_SEED, generate};
 
 const COMMITTED_SITES: &str = include_str!("../../../../../demo-data/sites.csv");
@@ -40,6 +47,21 @@ const SPIKE_SITE: &str = "MRQ";
 const SPIKE_LINE: &str = "L2";
 const SPIKE_WEEK: u8 = 9;
 const SMALL_SITE: &str = "SEM";
+/// The site whose crude rate is high only because of its product mix.
+const MIX_SITE: &str = "MRQ";
+/// The products of demo-data/README.md, easy one first.
+const PRODUCT_CODES: [&str; 2] = ["CAP", "DSP"];
+/// What the README's totals say: (site, line, date) days, units, defective units. These
+/// are the totals from before the days were split by product, which the split keeps.
+const README_DAYS: usize = 2_052;
+const README_DEFECTIVE: u64 = 161_777;
+const README_UNITS_MILLIONS: f64 = 16.3;
+/// How far from 1 the mix site's O/E may be and still count as "close to 1", as the
+/// README says: about +-8%. A week of MRQ has about 1,000 defective units, whose Poisson
+/// spread alone is about 3% of them, and the daily extra-binomial noise adds as much.
+const OE_CLOSE: f64 = 0.08;
+/// The least crude rate ratio (MRQ against the pooled rate) for "looks worse".
+const CRUDE_ABOVE: f64 = 1.15;
 
 /// One row of a k x 2 table: (group, inspected, defective).
 type Group = (String, u64, u64);
@@ -144,8 +166,11 @@ fn another_seed_gives_other_counts_on_the_same_calendar() {
     let a = generate(DEFAULT_SEED);
     let b = generate(DEFAULT_SEED + 1);
     assert_ne!(a.counts_csv(), b.counts_csv());
-    let key = |d: &DemoData| -> Vec<(Date, &str, &str)> {
-        d.records.iter().map(|r| (r.date, r.site, r.line)).collect()
+    let key = |d: &DemoData| -> Vec<(Date, &str, &str, Option<&str>)> {
+        d.records
+            .iter()
+            .map(|r| (r.date, r.site, r.line, r.product))
+            .collect()
     };
     assert_eq!(key(&a), key(&b), "the calendar does not depend on the seed");
 }
@@ -188,7 +213,7 @@ fn counts_csv_parses_as_the_batch_format_and_every_row_is_plausible() {
         .iter()
         .map(str::to_string)
         .collect();
-    let mut expected = vec!["site", "line", "date", "inspected", "defective"]
+    let mut expected = vec!["site", "line", "date", "inspected", "defective", "product"]
         .into_iter()
         .map(str::to_string)
         .collect::<Vec<_>>();
@@ -204,7 +229,7 @@ fn counts_csv_parses_as_the_batch_format_and_every_row_is_plausible() {
         rows += 1;
         let num = |i: usize| row[i].parse::<u64>().expect("count");
         let (inspected, defective) = (num(3), num(4));
-        let defects: u64 = (5..5 + CATEGORIES.len()).map(num).sum();
+        let defects: u64 = (6..6 + CATEGORIES.len()).map(num).sum();
         assert!(defective <= inspected, "row {rows}: defective > inspected");
         assert!(inspected > 0, "row {rows}: no units");
         assert!(
@@ -215,6 +240,21 @@ fn counts_csv_parses_as_the_batch_format_and_every_row_is_plausible() {
             lines.iter().any(|l| l.site == &row[0] && l.line == &row[1]),
             "row {rows}: unknown line"
         );
+        let product_line = PRODUCT_LINES
+            .iter()
+            .any(|(s, l, _)| *s == &row[0] && *l == &row[1]);
+        if product_line {
+            assert!(
+                PRODUCT_CODES.contains(&&row[5]),
+                "row {rows}: product {:?} on a product line",
+                &row[5]
+            );
+        } else {
+            assert_eq!(
+                &row[5], "",
+                "row {rows}: a product on a line without products"
+            );
+        }
         let date = Date::parse(
             &row[2],
             time::macros::format_description!("[year]-[month]-[day]"),
@@ -362,11 +402,20 @@ fn the_spike_line_is_flagged_above_among_its_plants_lines_in_its_week() {
     // Day level: each spike day, the line stands out among its plant's lines.
     for day in 24..=26 {
         let date = Date::from_calendar_date(2026, time::Month::February, day).expect("date");
-        let groups: Vec<Group> = data
+        // Summed over the line's product rows.
+        let mut by_line: BTreeMap<&str, (u64, u64)> = BTreeMap::new();
+        for r in data
             .records
             .iter()
             .filter(|r| r.site == SPIKE_SITE && r.date == date)
-            .map(|r| (r.line.to_string(), r.inspected, r.defective))
+        {
+            let cell = by_line.entry(r.line).or_default();
+            cell.0 += r.inspected;
+            cell.1 += r.defective;
+        }
+        let groups: Vec<Group> = by_line
+            .into_iter()
+            .map(|(line, (n, x))| (line.to_string(), n, x))
             .collect();
         let stats = k_by_2(&groups);
         let z = residual_of(&groups, &stats, SPIKE_LINE);
@@ -457,4 +506,191 @@ fn the_other_plants_weekly_verdicts_are_as_the_readme_describes() {
             z(SMALL_SITE)
         );
     }
+}
+
+#[test]
+fn splitting_by_product_keeps_the_readme_totals_of_every_day() {
+    let data = generate(DEFAULT_SEED);
+    // (site, line, date) -> the products of its rows.
+    let mut days: BTreeMap<(&str, &str, Date), Vec<Option<&str>>> = BTreeMap::new();
+    for r in &data.records {
+        days.entry((r.site, r.line, r.date))
+            .or_default()
+            .push(r.product);
+        let defects: u64 = r.defects.iter().sum();
+        assert!(
+            r.inspected > 0 && r.defective <= r.inspected,
+            "{} {} {} {:?}: {} of {}",
+            r.site,
+            r.line,
+            r.date,
+            r.product,
+            r.defective,
+            r.inspected
+        );
+        assert!(
+            defects >= r.defective && defects <= 2 * r.defective,
+            "{} {} {} {:?}: {defects} defects for {} defective units",
+            r.site,
+            r.line,
+            r.date,
+            r.product,
+            r.defective
+        );
+    }
+    assert_eq!(days.len(), README_DAYS, "days (site, line, date)");
+    for ((site, line, date), products) in &days {
+        let product_line = PRODUCT_LINES.iter().any(|(s, l, _)| s == site && l == line);
+        let want: Vec<Option<&str>> = if product_line {
+            PRODUCT_CODES.iter().map(|p| Some(*p)).collect()
+        } else {
+            vec![None]
+        };
+        assert_eq!(products, &want, "{site} {line} {date}: rows by product");
+    }
+    let units: u64 = data.records.iter().map(|r| r.inspected).sum();
+    let defective: u64 = data.records.iter().map(|r| r.defective).sum();
+    println!(
+        "{} rows, {units} units, {defective} defective",
+        data.records.len()
+    );
+    assert_eq!(defective, README_DEFECTIVE);
+    assert!(
+        (units as f64 / 1e6 - README_UNITS_MILLIONS).abs() < 0.05,
+        "{units} units"
+    );
+}
+
+/// Observed and expected defectives of each site over the records `keep` selects, the
+/// expected ones from the strata's (products', "no product" included) pooled rates.
+struct MixTable {
+    /// site -> (inspected, defective, expected defective).
+    sites: BTreeMap<&'static str, (u64, u64, f64)>,
+    /// stratum -> (inspected, defective) pooled over all sites.
+    strata: BTreeMap<Option<&'static str>, (u64, u64)>,
+}
+
+impl MixTable {
+    fn new(data: &DemoData, keep: impl Fn(&DemoRecord) -> bool) -> Self {
+        let mut strata: BTreeMap<Option<&str>, (u64, u64)> = BTreeMap::new();
+        let mut cells: BTreeMap<(&str, Option<&str>), (u64, u64)> = BTreeMap::new();
+        for r in data.records.iter().filter(|r| keep(r)) {
+            for cell in [
+                strata.entry(r.product).or_default(),
+                cells.entry((r.site, r.product)).or_default(),
+            ] {
+                cell.0 += r.inspected;
+                cell.1 += r.defective;
+            }
+        }
+        let mut sites: BTreeMap<&str, (u64, u64, f64)> = BTreeMap::new();
+        for ((site, product), (n, x)) in cells {
+            let (sn, sx) = strata[&product];
+            let e = sites.entry(site).or_default();
+            e.0 += n;
+            e.1 += x;
+            e.2 += n as f64 * sx as f64 / sn as f64;
+        }
+        MixTable { sites, strata }
+    }
+
+    fn pooled_rate(&self) -> f64 {
+        let (n, x) = self
+            .strata
+            .values()
+            .fold((0, 0), |acc, c| (acc.0 + c.0, acc.1 + c.1));
+        x as f64 / n as f64
+    }
+
+    fn crude_rate(&self, site: &str) -> f64 {
+        let (n, x, _) = self.sites[site];
+        x as f64 / n as f64
+    }
+
+    fn o_over_e(&self, site: &str) -> f64 {
+        let (_, x, e) = self.sites[site];
+        x as f64 / e
+    }
+
+    fn stratum_rate(&self, product: Option<&str>) -> f64 {
+        let (n, x) = self.strata[&product];
+        x as f64 / n as f64
+    }
+}
+
+#[test]
+fn the_mix_site_looks_worse_only_because_it_makes_the_hard_product() {
+    let data = generate(DEFAULT_SEED);
+
+    // Its units are mostly the hard product; at the other product lines' sites a minority.
+    let hard_share = |site: &str| {
+        let (mut hard, mut all) = (0, 0);
+        for r in data.records.iter().filter(|r| r.site == site) {
+            all += r.inspected;
+            if r.product == Some(PRODUCT_CODES[1]) {
+                hard += r.inspected;
+            }
+        }
+        hard as f64 / all as f64
+    };
+    let mrq_share = hard_share(MIX_SITE);
+    println!(
+        "{MIX_SITE}: {:.1}% of units are {}",
+        100.0 * mrq_share,
+        PRODUCT_CODES[1]
+    );
+    assert!((0.80..0.90).contains(&mrq_share), "{mrq_share}");
+
+    // The month: crude rate well above the pooled one (and flagged), O/E close to 1.
+    let march = MixTable::new(&data, |r| u8::from(r.date.month()) == 3);
+    let ratio = march.crude_rate(MIX_SITE) / march.pooled_rate();
+    let oe = march.o_over_e(MIX_SITE);
+    let relative =
+        march.stratum_rate(Some(PRODUCT_CODES[1])) / march.stratum_rate(Some(PRODUCT_CODES[0]));
+    println!(
+        "2026-03: {MIX_SITE} crude {:.3}% against pooled {:.3}% (x{ratio:.2}), O/E = {oe:.3}; \
+         pooled rates: none {:.3}%, {} {:.3}%, {} {:.3}% ({relative:.2}x)",
+        100.0 * march.crude_rate(MIX_SITE),
+        100.0 * march.pooled_rate(),
+        100.0 * march.stratum_rate(None),
+        PRODUCT_CODES[0],
+        100.0 * march.stratum_rate(Some(PRODUCT_CODES[0])),
+        PRODUCT_CODES[1],
+        100.0 * march.stratum_rate(Some(PRODUCT_CODES[1])),
+    );
+    assert!(ratio > CRUDE_ABOVE, "2026-03: crude ratio {ratio:.3}");
+    assert!((oe - 1.0).abs() < OE_CLOSE, "2026-03: O/E {oe:.3}");
+    assert!(
+        (1.6..2.2).contains(&relative),
+        "hard against easy: {relative:.2}"
+    );
+    let site_groups: Vec<Group> = march
+        .sites
+        .iter()
+        .map(|(s, (n, x, _))| (s.to_string(), *n, *x))
+        .collect();
+    let z = residual_of(&site_groups, &k_by_2(&site_groups), MIX_SITE);
+    println!("2026-03: {MIX_SITE} crude adjusted residual {z:+.1}");
+    assert!(z > FLAG_THRESHOLD, "2026-03: crude z {z:.2}");
+
+    // The weeks outside the spike: O/E close to 1 in most (the weeks of KES's drift too:
+    // KES makes no products, so its drift lifts only the "no product" stratum's rate).
+    let mut close = 0;
+    let mut weeks = 0;
+    for week in (2..=26).filter(|w| *w != SPIKE_WEEK) {
+        let t = MixTable::new(&data, |r| iso_week(r.date) == week);
+        let oe = t.o_over_e(MIX_SITE);
+        let ratio = t.crude_rate(MIX_SITE) / t.pooled_rate();
+        println!(
+            "W{week:02}: {MIX_SITE} crude {:.3}% against pooled {:.3}% (x{ratio:.2}), O/E = {oe:.3}",
+            100.0 * t.crude_rate(MIX_SITE),
+            100.0 * t.pooled_rate()
+        );
+        weeks += 1;
+        close += usize::from((oe - 1.0).abs() < OE_CLOSE);
+    }
+    assert!(
+        close + 1 >= weeks,
+        "O/E close to 1 in {close} of {weeks} weeks"
+    );
 }
