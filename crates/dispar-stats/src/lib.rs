@@ -20,6 +20,8 @@
 //! | [`pairwise`] | all pairs of groups as 2 x 2 tables, adjusted p over the testable pairs, rate difference with Newcombe CI | `pairwise(&[(inspected, defective)], &PairwiseOptions) -> Vec<Pair>`, `Untestable` |
 //! | [`baseline`] | a group's period against its own baseline: quasi-binomial dispersion of the baseline periods, prediction z, Student's t limit at a Šidák level (or three sigma), earlier excursions left out, exact for small counts, verdict | `compare((inspected, defective), &baseline, &BaselineOptions) -> Comparison {verdict, reason, method, rate, z, limit, ..}`, `Limit`, `Verdict`, `Reason`, `Method` |
 //! | [`spread`] | the usual spread between groups over the baseline periods (Spiegelhalter's phi from the pooled z-scores) and each group's above/below record | `usual_spread(&periods, groups, winsor_fraction) -> UsualSpread {overdispersion, periods, groups}` |
+//! | [`trend`] | Cochran-Armitage test for trend in proportions across ordered periods (binomial variance convention), slope per period, widened by the departure from a line | `cochran_armitage(&[(inspected, defective)], scores) -> Trend` |
+//! | [`power`] | power of the two-group comparison of rates (Cohen's h, both tails): smallest detectable rise, units needed | `PowerRule::new(alpha, power)`, `detectable_difference`, `units_needed` |
 //! | [`analysis`] | the whole analysis with method choice and reasons | `analyze(&Table, &Options) -> Analysis`, `analyze_rates(&[(inspected, defective)], &Options) -> RateAnalysis` |
 //!
 //! Errors are one enum, [`StatsError`]; a table on which no test is possible is

@@ -18,7 +18,7 @@
 //! 4. Loads the scenario of [`super::DEFAULT_SEED`] (generated in memory, identical to
 //!    `demo-data/`) through the HTTP application itself, in process: `PUT` of each site
 //!    and line with the admin key, then `POST /v1/counts` with the CSV batch of each
-//!    ISO week (about 82 records) with the ingest key. So the demo data pass the same
+//!    ISO week (about 111 records) with the ingest key. So the demo data pass the same
 //!    parsing, validation, authorisation and store writes as any client's. Progress
 //!    goes to standard error: one updating line on a terminal, a plain line every five
 //!    weeks otherwise.
