@@ -113,6 +113,13 @@ pub enum NotTestableReason {
         /// Columns with a non-zero total.
         usable: usize,
     },
+    /// A stratified comparison in which both groups (or several) and both outcomes occur,
+    /// but no single stratum has two groups and both outcomes, so no stratum compares
+    /// anything (for example each product made at one site only).
+    NoInformativeStratum {
+        /// Strata given.
+        strata: usize,
+    },
 }
 
 impl fmt::Display for NotTestableReason {
@@ -126,6 +133,11 @@ impl fmt::Display for NotTestableReason {
                 f,
                 "only {usable} outcome(s) occur (for rates: no defective units, or all units \
                  defective); a comparison needs at least 2"
+            ),
+            NotTestableReason::NoInformativeStratum { strata } => write!(
+                f,
+                "none of the {strata} strata has two groups with units and both outcomes; \
+                 a stratified comparison needs at least one"
             ),
         }
     }

@@ -159,8 +159,10 @@ async fn the_product_filter_keeps_only_that_product() {
     assert_eq!(a.groups[1].defects.len(), 1);
 }
 
-/// (site, line, product, inspected, defective) of every group's split by product.
-fn split(groups: &[GroupTotals]) -> Vec<(String, Option<String>, Option<String>, u64, u64)> {
+/// (site, line, product, inspected, defective): one cell of a group's split by product.
+type SplitCell = (String, Option<String>, Option<String>, u64, u64);
+
+fn split(groups: &[GroupTotals]) -> Vec<SplitCell> {
     groups
         .iter()
         .flat_map(|g| {
