@@ -14,6 +14,7 @@ use dispar_stats::spread;
 use super::build::GroupCounts;
 use super::model::{Baseline, BaselineVerdict, Change, Ci, SeriesPoint, Standing, UsualSpread};
 use super::params::LevelKind;
+use super::trend::{GroupTrend, rising_words};
 use crate::period::{Granularity, Period};
 
 /// Winsorising of the z-scores behind the usual spread (Spiegelhalter's 10% each end).
@@ -323,7 +324,7 @@ pub fn persistent_words(spread: &UsualSpread, unit: &str) -> Vec<String> {
 
 /// A period's label shortened after the first of a run: "2026-W15–W18",
 /// "2026-03–05"; the full label when the year differs.
-fn run_label(first: &Period, last: &Period) -> String {
+pub(super) fn run_label(first: &Period, last: &Period) -> String {
     let (a, b) = (first.to_string(), last.to_string());
     if first == last {
         return a;
@@ -342,6 +343,27 @@ fn run_label(first: &Period, last: &Period) -> String {
 /// better) periods as runs ("KES worse than its usual in 2026-W15–W18"); without
 /// baselines, how many periods differ.
 pub fn series_headline(points: &[SeriesPoint], level: LevelKind, with_baseline: bool) -> String {
+    series_headline_with_trends(points, level, with_baseline, &[])
+}
+
+/// [`series_headline`] followed by the groups whose rate is rising over the series
+/// ("…; KES getting steadily worse over 2026-W01–W12"): a change that builds up by a
+/// little each period is no change in any one of them.
+pub fn series_headline_with_trends(
+    points: &[SeriesPoint],
+    level: LevelKind,
+    with_baseline: bool,
+    trends: &[GroupTrend],
+) -> String {
+    let mut words = changes_headline(points, level, with_baseline);
+    for rising in rising_words(trends) {
+        words.push_str("; ");
+        words.push_str(&rising);
+    }
+    words
+}
+
+fn changes_headline(points: &[SeriesPoint], level: LevelKind, with_baseline: bool) -> String {
     let (one, many) = match level {
         LevelKind::Site => ("site", "Sites"),
         LevelKind::Line | LevelKind::AllLines => ("line", "Lines"),

@@ -14,6 +14,8 @@ use dispar_stats::table::Table;
 use dispar_stats::{NotTestable, NotTestableReason};
 
 use super::baseline::{BaselineWindow, Baselines, baselines};
+use super::gaps::DataGaps;
+use super::mix::{Counts, fill_power, product_mix};
 use super::model::{
     CategoryReport, CategoryTotal, CellRow, Ci, Excluded, Flag, FlagRule, Flagged, GroupRow,
     Margin, NotTestableNote, OverdispersionNote, PairRow, ParametersEcho, Report, SeriesPoint,
@@ -21,6 +23,7 @@ use super::model::{
 };
 use super::params::{
     AdjustChoice, DispersionChoice, Filters, LevelKind, MethodChoice, PairwiseChoice, Parameters,
+    StratifyChoice,
 };
 use crate::period::Period;
 use crate::tabular::{CountTable, RateRow};
@@ -50,6 +53,9 @@ pub struct GroupCounts {
     pub defective: u64,
     /// Defects counted per category code (may be empty).
     pub defects: BTreeMap<String, u64>,
+    /// (inspected, defective) per product code (`None`: records without a product);
+    /// empty when the products were not read. Adds up to the group's counts.
+    pub products: BTreeMap<Option<String>, (u64, u64)>,
 }
 
 /// What a report is about, besides its groups.
@@ -72,6 +78,9 @@ pub struct ReportRequest {
     /// The earlier periods' counts, when `parameters.baseline` asks for baselines
     /// (`None`: the report has no baselines, as with `baseline=off`).
     pub baseline: Option<BaselineWindow>,
+    /// The gaps in the lines' data over the period (`None`: not looked for, as for
+    /// `dispar analyze`).
+    pub gaps: Option<DataGaps>,
 }
 
 /// Sum that stops at `u64::MAX` instead of wrapping (release) or panicking (debug).
@@ -129,6 +138,7 @@ fn echo(p: &Parameters, as_of: Option<String>) -> ParametersEcho {
         overdispersion: p.overdispersion,
         as_of,
         baseline: p.baseline,
+        stratify: p.stratify,
     }
 }
 
@@ -361,6 +371,9 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
         flag_rule: None,
         overdispersion: None,
         categories: categories(&used, &opts, between),
+        product_mix: None,
+        power: None,
+        data_gaps: request.gaps.clone(),
         excluded,
         not_testable: None,
         cautions: Vec::new(),
@@ -395,9 +408,39 @@ fn build(request: &ReportRequest, groups: &[GroupCounts], follow: Follow) -> Rep
                     flag: None,
                     share_of_statistic: None,
                     baseline: None,
+                    detectable_difference: None,
                 })
                 .collect();
         }
+    }
+    if follow == Follow::Pairwise {
+        let by_code: std::collections::HashMap<&str, (u64, u64)> = used
+            .iter()
+            .map(|g| (g.code.as_str(), (g.inspected, g.defective)))
+            .collect();
+        let pair_counts: Vec<(Counts, Counts)> = report
+            .pairs
+            .iter()
+            .map(|p| {
+                let find = |code: &str| by_code.get(code).copied().unwrap_or((0, 0));
+                (find(&p.a), find(&p.b))
+            })
+            .collect();
+        fill_power(&mut report, &pair_counts);
+        if params.stratify == StratifyChoice::Product {
+            report.product_mix = product_mix(&used, &report, alpha, between);
+            if let Some(mix) = &report.product_mix {
+                for d in mix.disagreements.iter().filter(|d| d.code.is_none()) {
+                    cautions.push(d.note.clone());
+                }
+            }
+        }
+    }
+    if let Some(gaps) = report.data_gaps.as_ref().filter(|g| !g.is_empty()) {
+        cautions.push(format!(
+            "Gaps in the data: {} The comparison covers only the days posted.",
+            gaps.note
+        ));
     }
     if let Some(b) = base {
         for (row, baseline) in report.groups.iter_mut().zip(b.rows) {
@@ -451,6 +494,7 @@ fn fill_from_analysis(
                 },
                 share_of_statistic: Some(s.share_of_x2),
                 baseline: None,
+                detectable_difference: None,
             }
         })
         .collect();
@@ -494,6 +538,7 @@ fn fill_from_analysis(
             significant: p.reject,
             untestable: p.untestable.map(|u| u.reason().to_owned()),
             beyond_min_difference: p.practically_different,
+            detectable_difference: None,
         })
         .collect();
     let o = ra.overdispersion;
@@ -732,6 +777,7 @@ pub fn analyze_rates(params: &Parameters, rows: &[RateRow]) -> Report {
             inspected: r.inspected,
             defective: r.defective,
             defects: BTreeMap::new(),
+            products: BTreeMap::new(),
         })
         .collect();
     // A file of rates has no earlier periods.

@@ -3,8 +3,11 @@
 //!
 //! - [`params`]: the words callers use (`method=auto|pearson|g|exact`,
 //!   `pairwise=auto|pearson|pearson-yates|fisher`, `adjust=holm|bonferroni|hochberg|bh`,
-//!   `level=site|line|all-lines`, `overdispersion=estimate|widen`) and [`Parameters`];
+//!   `level=site|line|all-lines`, `overdispersion=estimate|widen`,
+//!   `stratify=product|none`) and [`Parameters`];
 //! - [`build`]: the pure builder ([`build_report`], [`analyze_rates`], [`analyze_table`]);
+//! - [`mix`]: the comparison adjusted for product mix, and the power of the test;
+//! - [`gaps`]: gaps in the data (lines that stopped posting, missing and implausible days);
 //! - [`baseline`]: each group against its own earlier periods, changes, usual spread;
 //! - [`model`]: the report's fields (what the JSON holds);
 //! - [`text`]: `Report::to_text()` and `TableReport::to_text()`.
@@ -12,9 +15,11 @@
 pub mod baseline;
 pub mod build;
 pub mod gaps;
+pub mod mix;
 pub mod model;
 pub mod params;
 pub mod text;
+pub mod trend;
 
 pub use baseline::BaselineWindow;
 pub use build::{
@@ -23,7 +28,7 @@ pub use build::{
 pub use model::{Report, SeriesPoint, TableReport};
 pub use params::{
     AdjustChoice, DispersionChoice, Filters, Level, LevelKind, MethodChoice, PairwiseChoice,
-    Parameters,
+    Parameters, StratifyChoice,
 };
 
 #[cfg(test)]

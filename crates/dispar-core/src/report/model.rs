@@ -13,8 +13,11 @@ use serde::{Serialize, Serializer};
 
 use crate::period::{DateRange, Period};
 
+pub use super::gaps::DataGaps;
+pub use super::mix::{PowerNote, ProductMix};
 use super::params::{
     AdjustChoice, DispersionChoice, Filters, LevelKind, MethodChoice, PairwiseChoice,
+    StratifyChoice,
 };
 
 /// Serializes a finite `f64`; a non-finite value is a bug (debug builds panic).
@@ -157,6 +160,10 @@ pub struct GroupRow {
     pub share_of_statistic: Option<f64>,
     /// The group's period against its own baseline (null with `baseline=off`).
     pub baseline: Option<Baseline>,
+    /// The smallest rise above the pooled rate that comparing this group with the rest
+    /// would detect with 80% power at alpha (rate units); null when no rise could be.
+    #[serde(serialize_with = "opt_num")]
+    pub detectable_difference: Option<f64>,
 }
 
 /// A group's verdict against its own baseline.
@@ -311,6 +318,11 @@ pub struct PairRow {
     /// difference lies beyond it (|difference| surely larger); absent otherwise.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub beyond_min_difference: Option<bool>,
+    /// The smallest difference between the two rates this pair's volumes would detect
+    /// with 80% power at alpha (a rise above the pair's pooled rate, rate units); null
+    /// when none could be.
+    #[serde(serialize_with = "opt_num")]
+    pub detectable_difference: Option<f64>,
 }
 
 /// A flagged contributor.
@@ -494,6 +506,8 @@ pub struct ParametersEcho {
     pub as_of: Option<String>,
     /// Earlier periods in each group's baseline, or null with `baseline=off`.
     pub baseline: Option<usize>,
+    /// Whether the product-mix comparison was asked for (`product`) or not (`none`).
+    pub stratify: StratifyChoice,
 }
 
 /// A rate comparison report (`GET /v1/reports`, `dispar report`, `dispar analyze`).
@@ -536,6 +550,15 @@ pub struct Report {
     pub overdispersion: Option<OverdispersionNote>,
     /// Defect-category totals and association test, when category counts exist.
     pub categories: Option<CategoryReport>,
+    /// The comparison adjusted for product mix, when the records carry products and
+    /// `stratify=product` (null otherwise).
+    pub product_mix: Option<ProductMix>,
+    /// What differences these volumes could detect, and whether "no difference" means
+    /// anything (null when not testable).
+    pub power: Option<PowerNote>,
+    /// Lines that stopped posting, days missing, implausible days (null when the
+    /// report was not given the lines' days, as for `dispar analyze`).
+    pub data_gaps: Option<DataGaps>,
     /// Groups left out, with the reason.
     pub excluded: Vec<Excluded>,
     /// Why there is no test, when there is none.

@@ -135,6 +135,19 @@ word_enum!(
 );
 
 word_enum!(
+    /// Whether a report adds the comparison adjusted for product mix (`--stratify`,
+    /// `stratify=`). Not `adjust`, which already names the adjustment of pairwise
+    /// p-values.
+    StratifyChoice, "product-mix choice", {
+        /// Add `product_mix` when the groups' records carry products.
+        #[default]
+        Product => "product",
+        /// Crude rates only.
+        Crude => "none",
+    }
+);
+
+word_enum!(
     /// What kind of groups a report compares (`level=`).
     LevelKind, "level", {
         /// Sites (lines of a site pooled).
@@ -221,6 +234,8 @@ pub struct Parameters {
     /// Earlier periods of the same kind in each group's baseline (`baseline=N`), or
     /// `None` for `baseline=off`.
     pub baseline: Option<usize>,
+    /// Whether the product-mix comparison is added when products exist.
+    pub stratify: StratifyChoice,
 }
 
 /// Earlier periods in a baseline unless the caller says otherwise.
@@ -273,13 +288,14 @@ impl Default for Parameters {
             min_difference: None,
             overdispersion: DispersionChoice::Estimate,
             baseline: Some(DEFAULT_BASELINE),
+            stratify: StratifyChoice::Product,
         }
     }
 }
 
 /// The names of the statistical parameters, as query parameters and (with `-` for
 /// `_`) command-line flags; [`Parameters::from_text`] reads each by its name.
-pub const PARAMETER_NAMES: [&str; 8] = [
+pub const PARAMETER_NAMES: [&str; 9] = [
     "alpha",
     "method",
     "pairwise",
@@ -288,6 +304,7 @@ pub const PARAMETER_NAMES: [&str; 8] = [
     "min_difference",
     "overdispersion",
     "baseline",
+    "stratify",
 ];
 
 /// The smallest `alpha` a report accepts. Below it the intervals' confidence 1 - alpha
@@ -341,6 +358,7 @@ impl Parameters {
                 min_difference,
                 overdispersion: DispersionChoice::Estimate,
                 baseline: Some(DEFAULT_BASELINE),
+                stratify: StratifyChoice::Product,
             })
         } else {
             Err(c.fail())
@@ -406,12 +424,16 @@ impl Parameters {
             c.take(DispersionChoice::parse_field(s, "overdispersion"))
         });
         let baseline = text("baseline").map_or(Some(d.baseline), |s| c.take(parse_baseline(s)));
-        match (method, pairwise, adjust, dispersion, baseline) {
-            (Some(m), Some(p), Some(a), Some(o), Some(b)) => {
+        let stratify = text("stratify").map_or(Some(d.stratify), |s| {
+            c.take(StratifyChoice::parse_field(s, "stratify"))
+        });
+        match (method, pairwise, adjust, dispersion, baseline, stratify) {
+            (Some(m), Some(p), Some(a), Some(o), Some(b), Some(st)) => {
                 match Parameters::new(alpha, m, p, a, resamples, min_difference) {
                     Ok(v) if c.is_empty() => Ok(Parameters {
                         overdispersion: o,
                         baseline: b,
+                        stratify: st,
                         ..v
                     }),
                     Ok(_) => Err(c.fail()),

@@ -18,6 +18,7 @@ fn group(code: &str, inspected: u64, defective: u64) -> GroupCounts {
         inspected,
         defective,
         defects: BTreeMap::new(),
+        products: BTreeMap::new(),
     }
 }
 
@@ -516,6 +517,7 @@ mod properties {
                             .enumerate()
                             .map(|(i, c)| (format!("c{i}"), c))
                             .collect(),
+                        products: BTreeMap::new(),
                     }
                 }),
             0..8,

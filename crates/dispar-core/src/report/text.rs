@@ -4,13 +4,14 @@
 //! Section headings carry the names of the JSON keys they show (glossary in the
 //! project's DEVELOPERS.md): "Verdict" (`test.verdict`), "Flag rule" (`flag_rule`),
 //! "Overdispersion", "Flagged contributors" (`flagged`), "Pairwise comparisons"
-//! (`pairs`), "Excluded" and "Cautions".
+//! (`pairs`), "Product mix" (`product_mix`), "Power" (`power`), "Data gaps"
+//! (`data_gaps`), "Excluded" and "Cautions".
 
 use std::fmt::Write as _;
 
 use super::model::{
-    BaselineVerdict, CategoryReport, Ci, Excluded, GroupRow, PairRow, ParametersEcho, Report,
-    TableAnalysis, TableReport, Test, ValidityNotes,
+    BaselineVerdict, CategoryReport, Ci, DataGaps, Excluded, GroupRow, PairRow, ParametersEcho,
+    ProductMix, Report, TableAnalysis, TableReport, Test, ValidityNotes,
 };
 use super::params::LevelKind;
 
@@ -112,6 +113,9 @@ fn params_line(out: &mut String, p: &ParametersEcho) {
     }
     if let Some(n) = p.baseline {
         let _ = write!(out, ", baseline {n}");
+    }
+    if p.stratify != super::params::StratifyChoice::Product {
+        let _ = write!(out, ", stratify {}", p.stratify);
     }
     if let Some(a) = &p.as_of {
         let _ = write!(out, ", data as of {a}");
@@ -468,6 +472,17 @@ impl Report {
             }
             (None, None) => {}
         }
+        if let Some(g) = self.data_gaps.as_ref().filter(|g| !g.is_empty()) {
+            let _ = writeln!(out, "Data gaps: {}", g.note);
+        }
+        if let Some(p) = &self.power {
+            let _ = writeln!(out, "Power: {}", p.note);
+        }
+        if let Some(mix) = &self.product_mix {
+            for d in mix.disagreements.iter().filter(|d| d.code.is_none()) {
+                let _ = writeln!(out, "Product mix: {}", d.note);
+            }
+        }
         if !self.groups.is_empty() {
             out.push('\n');
             let conf = format!("{:.0}% CI", (1.0 - alpha) * 100.0);
@@ -571,12 +586,187 @@ impl Report {
                 table(&mut out, &header, &pair_rows(&shown, practical.is_some()));
             }
         }
+        if let Some(mix) = &self.product_mix {
+            product_mix_lines(&mut out, mix, alpha);
+        }
+        if let Some(g) = self.data_gaps.as_ref().filter(|g| !g.is_empty()) {
+            data_gaps_lines(&mut out, g);
+        }
         if let Some(c) = &self.categories {
             categories_lines(&mut out, c, alpha);
         }
         excluded_lines(&mut out, &self.excluded);
         cautions_lines(&mut out, &self.cautions);
         out
+    }
+}
+
+fn product_label(p: &Option<String>) -> String {
+    p.clone()
+        .unwrap_or_else(|| format!("({})", super::mix::NO_PRODUCT))
+}
+
+fn product_mix_lines(out: &mut String, mix: &ProductMix, alpha: f64) {
+    out.push_str("\nProduct mix (each group against the pooled rate of each product)\n");
+    match (&mix.test, &mix.not_testable) {
+        (Some(t), _) => {
+            let _ = writeln!(out, "Verdict: {}", t.verdict);
+            let _ = writeln!(
+                out,
+                "Test: {} = {:.3}, df = {}, p = {}, {} products used",
+                if t.method == "cmh" {
+                    "Cochran-Mantel-Haenszel X^2"
+                } else {
+                    "generalised Cochran-Mantel-Haenszel X^2"
+                },
+                t.statistic,
+                t.df,
+                fmt_p(t.p_value, t.log10_p),
+                t.products_used
+            );
+        }
+        (None, Some(n)) => {
+            let _ = writeln!(out, "Not testable: {}", n.reason);
+        }
+        (None, None) => {}
+    }
+    if let Some(or) = &mix.common_odds_ratio {
+        let end = |x: Option<f64>| x.map_or_else(|| "inf".to_owned(), |x| format!("{x:.3}"));
+        let _ = write!(
+            out,
+            "Common odds ratio {} against {}: {:.3} ({:.0}% CI {} to {})",
+            or.a,
+            or.b,
+            or.odds_ratio,
+            (1.0 - alpha) * 100.0,
+            end(or.odds_ratio_ci.lower),
+            end(or.odds_ratio_ci.upper)
+        );
+        if let Some(b) = &or.breslow_day {
+            let _ = write!(
+                out,
+                "; Breslow-Day X^2 = {:.3}, df = {}, p = {:.4}{}",
+                b.statistic,
+                b.df,
+                b.p_value,
+                if b.significant {
+                    " (the odds ratio differs between products)"
+                } else {
+                    ""
+                }
+            );
+        }
+        out.push('\n');
+    }
+    for d in &mix.disagreements {
+        let _ = writeln!(out, "- {}", d.note);
+    }
+    let rows: Vec<Vec<String>> = mix
+        .groups
+        .iter()
+        .map(|g| {
+            let ends = |c: &Option<Ci>| {
+                c.as_ref()
+                    .map_or_else(String::new, |c| format!("{:.3}-{:.3}", c.lower, c.upper))
+            };
+            vec![
+                g.code.clone(),
+                g.observed.to_string(),
+                format!("{:.1}", g.expected),
+                g.ratio.map_or_else(String::new, |r| format!("{r:.3}")),
+                ends(&g.ratio_ci),
+                ends(&g.limits),
+                g.flag.map_or("", |f| f.as_str()).to_owned(),
+            ]
+        })
+        .collect();
+    let conf = format!("{:.0}% CI", (1.0 - alpha) * 100.0);
+    table(
+        out,
+        &[
+            "group", "observed", "expected", "O/E", &conf, "limits", "flag",
+        ],
+        &rows,
+    );
+    let _ = writeln!(
+        out,
+        "limits: funnel limits on O/E covering {:.2}% of equal groups each (alpha shared over the groups)",
+        mix.funnel_coverage * 100.0
+    );
+    out.push_str("\nBy product:\n");
+    let mut rows = Vec::new();
+    for g in &mix.groups {
+        for p in &g.products {
+            rows.push(vec![
+                g.code.clone(),
+                product_label(&p.product),
+                p.inspected.to_string(),
+                p.defective.to_string(),
+                fmt_rate(p.rate),
+            ]);
+        }
+    }
+    for p in &mix.products {
+        rows.push(vec![
+            "all".to_owned(),
+            product_label(&p.product),
+            p.inspected.to_string(),
+            p.defective.to_string(),
+            fmt_rate(p.rate),
+        ]);
+    }
+    table(
+        out,
+        &["group", "product", "inspected", "defective", "rate"],
+        &rows,
+    );
+}
+
+fn data_gaps_lines(out: &mut String, g: &DataGaps) {
+    out.push_str("\nData gaps:\n");
+    for s in &g.stopped {
+        let _ = writeln!(
+            out,
+            "- {} stopped posting: last posted {}, {} usual production days without data",
+            s.line,
+            s.last_posted
+                .map_or_else(|| "not in the window".to_owned(), crate::date::format_date),
+            s.usual_days_without_data
+        );
+    }
+    for m in &g.missing_days {
+        let days: Vec<String> = m
+            .dates
+            .iter()
+            .map(|d| crate::date::format_date(*d))
+            .collect();
+        let _ = writeln!(out, "- {} missing days: {}", m.line, days.join(", "));
+    }
+    for s in &g.site_days_off {
+        let days: Vec<String> = s
+            .dates
+            .iter()
+            .map(|d| crate::date::format_date(*d))
+            .collect();
+        let _ = writeln!(
+            out,
+            "- site {} posted nothing on: {}",
+            s.site,
+            days.join(", ")
+        );
+    }
+    for d in &g.implausible {
+        let _ = writeln!(
+            out,
+            "- {} on {}: {} of {} defective ({}){}",
+            d.line,
+            crate::date::format_date(d.date),
+            d.defective,
+            d.inspected,
+            fmt_rate(d.rate),
+            d.usual_rate
+                .map_or_else(String::new, |u| format!(", usually {}", fmt_rate(u)))
+        );
     }
 }
 

@@ -503,6 +503,7 @@ async fn series_page(State(state): State<AppState>, headers: HeaderMap, uri: Uri
             alpha: series.parameters.alpha,
             points: series.periods.clone(),
             headline: Some(series.headline.clone()),
+            trends: series.trends.clone(),
         })
     }
     .await;

@@ -706,6 +706,53 @@ fn series_body(view: &SeriesView, page: &SeriesPage, ctx: &PageContext) -> Marku
                 " worse or better: the group against its own usual over its earlier periods, with a limit that keeps such calls rare across the groups. Each period is tested on its own; with many periods, some significant differences appear by chance."
             }
         }
+        @if !page.trends.is_empty() {
+            (trends_section(view, page))
+        }
+    }
+}
+
+fn trends_section(view: &SeriesView, page: &SeriesPage) -> Markup {
+    html! {
+        section {
+            h2 { "Trends" }
+            div .scroll {
+                table #trends {
+                    thead { tr {
+                        th scope="col" { "Group" }
+                        th scope="col" { "Direction" }
+                        th scope="col" { "Slope a " (page.unit) }
+                        th scope="col" { "p (widened)" }
+                    } }
+                    tbody {
+                        @for t in &page.trends {
+                            tr data-code=(t.code) title=(t.title) {
+                                th scope="row" { (t.code) }
+                                @match (&t.direction, &t.reason) {
+                                    (Some(d), _) => {
+                                        td { span class={ "tag trend " (d.as_str()) } { (t.words) } }
+                                        td { (t.slope) }
+                                        td {
+                                            @match &t.p {
+                                                Some((p, title)) => { (p_cell(p, title)) }
+                                                None => { "\u{2014}" }
+                                            }
+                                        }
+                                    }
+                                    (None, reason) => {
+                                        td .muted colspan="3" { (reason.as_deref().unwrap_or("\u{2014}")) }
+                                    }
+                                }
+                            }
+                        }
+                    }
+                }
+            }
+            p .small .muted {
+                "Each group's rate across the periods of the series: the Cochran\u{2013}Armitage test for a trend, its p widened when the periods scatter around the line more than sampling alone would make them, so a line's usual ups and downs are not called a trend. Rising or falling where significant at \u{03b1} = "
+                (view.alpha) ", steady otherwise; a trend can build up by so little each period that no single period is a change."
+            }
+        }
     }
 }
 

@@ -22,6 +22,7 @@ fn group(code: &str, name: &str, inspected: u64, defective: u64) -> GroupCounts 
         inspected,
         defective,
         defects: BTreeMap::new(),
+        products: BTreeMap::new(),
     }
 }
 
@@ -610,6 +611,7 @@ fn the_series_headline_names_the_changes_and_the_strip_rings_them() {
         alpha: 0.05,
         points: points.clone(),
         headline: None,
+        trends: Vec::new(),
     };
     let html = super::render::render_series(&series, &c);
     let doc = scraper::Html::parse_document(&html);
@@ -664,6 +666,86 @@ fn the_series_headline_names_the_changes_and_the_strip_rings_them() {
         text_of(&doc, "#verdict h1"),
         "KES worse than its usual in 2026-W15–W18"
     );
+}
+
+#[test]
+fn the_series_page_shows_each_groups_trend_with_its_direction_slope_and_p() {
+    use dispar_core::report::trend::series_trends;
+    let last: Period = "2026-W12".parse().unwrap();
+    let mut periods = last.earlier(11);
+    periods.push(last);
+    let wobble = [0u64, 4, 1, 2, 0, 3, 1, 5, 2, 1, 0, 3];
+    // KES rises by 0.08 pp a week, MRQ stays near 1%, VAL posted only twice.
+    let groups: Vec<Vec<GroupCounts>> = (0..12u64)
+        .map(|w| {
+            let mut p = vec![
+                group(
+                    "KES",
+                    "Kestelmoor",
+                    10_000,
+                    100 + 8 * w + wobble[w as usize],
+                ),
+                group("MRQ", "Marquenne", 10_000, 100 + wobble[w as usize]),
+            ];
+            if w >= 10 {
+                p.push(group("VAL", "Valtrona", 5_000, 40));
+            }
+            p
+        })
+        .collect();
+    let trends = series_trends(&periods, &groups, 0.05);
+    let report = report_of(&five_sites(), Parameters::default());
+    let series = super::view::SeriesView {
+        from: "2026-W01".to_owned(),
+        to: "2026-W12".to_owned(),
+        alpha: 0.05,
+        points: vec![report.summary()],
+        headline: None,
+        trends: trends.clone(),
+    };
+    let html = super::render::render_series(&series, &ctx());
+    let doc = scraper::Html::parse_document(&html);
+    let row = |code: &str| {
+        let cells: Vec<String> = doc
+            .select(&sel(&format!("table#trends tr[data-code=\"{code}\"] td")))
+            .map(|td| td.text().collect())
+            .collect();
+        cells
+    };
+    let kes = row("KES");
+    assert_eq!(kes[0], "\u{2197} rising", "{kes:?}");
+    assert_eq!(kes[1], "+0.08 pp", "{kes:?}");
+    assert_eq!(
+        kes[2],
+        super::format::fmt_p(trends[0].trend.as_ref().unwrap().p_widened)
+    );
+    assert_eq!(row("MRQ")[0], "\u{2192} steady");
+    assert_eq!(row("VAL"), ["fewer than 3 weeks with units inspected (2)"]);
+    assert_eq!(
+        text_of(&doc, "table#trends thead th:nth-child(3)"),
+        "Slope a week"
+    );
+    let rising = doc
+        .select(&sel("table#trends span.tag.trend.rising"))
+        .count();
+    assert_eq!(rising, 1);
+    let title = doc
+        .select(&sel("table#trends tr[data-code=\"KES\"]"))
+        .next()
+        .and_then(|tr| tr.value().attr("title"))
+        .unwrap();
+    assert!(
+        title.starts_with("KES getting steadily worse over the last 12 weeks"),
+        "{title}"
+    );
+
+    // No trends, no section.
+    let without = super::view::SeriesView {
+        trends: Vec::new(),
+        ..series
+    };
+    let html = super::render::render_series(&without, &ctx());
+    assert!(!html.contains("table id=\"trends\""), "{html}");
 }
 
 #[test]
@@ -1332,6 +1414,7 @@ fn every_page_keeps_hostile_names_as_text() {
         alpha: 0.05,
         points: vec![report.summary(), report.summary()],
         headline: None,
+        trends: Vec::new(),
     };
     let html = super::render::render_series(&series, &c);
     let doc = assert_inert("series", &html, 1, &HOSTILE);
@@ -1478,6 +1561,7 @@ fn the_page_text_has_none_of_the_reported_glitches() {
             report_of(&five_sites(), Parameters::default()).summary(),
         ],
         headline: None,
+        trends: Vec::new(),
     };
     let doc = scraper::Html::parse_document(&super::render::render_series(&series, &ctx()));
     let text = page_text(&doc);
@@ -1536,6 +1620,7 @@ fn hostile_names_in_changes_and_baselines_stay_text() {
         alpha: 0.05,
         points: vec![point.clone(), point],
         headline: None,
+        trends: Vec::new(),
     };
     let html = super::render::render_series(&series, &c);
     let doc = assert_inert("series with changes", &html, 1, &HOSTILE[..1]);

@@ -13,6 +13,7 @@ use dispar_core::report::model::{
     Baseline, BaselineVerdict, Flag, GroupRow, PairRow, TableAnalysis, Test,
 };
 use dispar_core::report::text::method_words;
+use dispar_core::report::trend::{Direction, GroupTrend, fmt_slope};
 use dispar_core::report::{LevelKind, Report, SeriesPoint};
 
 use super::charts::{
@@ -116,6 +117,8 @@ pub struct SeriesView {
     /// The series' headline as the service words it (the changes over the range);
     /// without it the page composes one from the points' changes.
     pub headline: Option<String>,
+    /// Each group's trend over the periods, as the service gives them.
+    pub trends: Vec<GroupTrend>,
 }
 
 /// Words for what is compared.
@@ -1237,6 +1240,67 @@ pub struct SeriesRow {
     pub changes: Vec<(String, BaselineVerdict, String)>,
 }
 
+/// One row of the series page's trend table.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct TrendRow {
+    /// The group's code.
+    pub code: String,
+    /// Tooltip: the trend's verdict, or why there is none.
+    pub title: String,
+    /// `rising`, `falling` or `steady`; `None` without a trend.
+    pub direction: Option<Direction>,
+    /// Arrow and word: `↗ rising`.
+    pub words: &'static str,
+    /// The slope: `+0.08 pp`.
+    pub slope: String,
+    /// (widened p, tooltip with the dispersion and the unwidened p).
+    pub p: Option<(String, String)>,
+    /// Why there is no trend.
+    pub reason: Option<String>,
+}
+
+impl TrendRow {
+    fn of(g: &GroupTrend) -> Self {
+        match &g.trend {
+            Some(t) => Self {
+                code: g.code.clone(),
+                title: t.verdict.clone(),
+                direction: Some(t.direction),
+                words: direction_words(t.direction),
+                slope: fmt_slope(t.slope),
+                p: Some((
+                    fmt_p(t.p_widened),
+                    format!(
+                        "dispersion around the line {}; unwidened {}",
+                        fmt_num(t.dispersion, 2),
+                        p_equals(t.p_value)
+                    ),
+                )),
+                reason: None,
+            },
+            None => Self {
+                code: g.code.clone(),
+                title: g.reason.clone().unwrap_or_default(),
+                direction: None,
+                words: "\u{2014}",
+                slope: "\u{2014}".to_owned(),
+                p: None,
+                reason: g.reason.clone(),
+            },
+        }
+    }
+}
+
+/// A trend's direction with its arrow (not ▲ ▼, which are the flags against the
+/// pooled rate).
+pub fn direction_words(d: Direction) -> &'static str {
+    match d {
+        Direction::Rising => "\u{2197} rising",
+        Direction::Falling => "\u{2198} falling",
+        Direction::Steady => "\u{2192} steady",
+    }
+}
+
 /// Everything the series page shows.
 #[derive(Debug, Clone, PartialEq)]
 pub struct SeriesPage {
@@ -1250,6 +1314,10 @@ pub struct SeriesPage {
     pub chart: SeriesChart,
     /// The table.
     pub rows: Vec<SeriesRow>,
+    /// The trend table, one row per group.
+    pub trends: Vec<TrendRow>,
+    /// The period kind in words (`week`), for the slope's column.
+    pub unit: &'static str,
 }
 
 impl SeriesPage {
@@ -1361,6 +1429,8 @@ impl SeriesPage {
             ),
             chart: SeriesChart::of(&view.points, view.alpha, &links),
             rows,
+            trends: view.trends.iter().map(TrendRow::of).collect(),
+            unit: unit_of(view.points.first().and_then(|p| p.period.as_ref())),
         }
     }
 }

@@ -8,9 +8,11 @@ use std::time::Instant;
 
 use dispar_core::period::Period;
 use dispar_core::report::build::CAUTIONS;
+use dispar_core::report::gaps::{self, DataGaps, LineDays};
 use dispar_core::report::model::ParametersEcho;
 use dispar_core::report::{
-    BaselineWindow, GroupCounts, Level, Report, SeriesPoint, build_report, build_summary,
+    BaselineWindow, GroupCounts, Level, Report, SeriesPoint, StratifyChoice, build_report,
+    build_summary,
 };
 use dispar_store::{AggregateQuery, GroupTotals, Store, StoreError};
 use time::Date;
@@ -46,6 +48,11 @@ fn counts(code: String, name: Option<String>, g: GroupTotals) -> GroupCounts {
             .into_iter()
             .map(|(c, n)| (c.as_str().to_owned(), n))
             .collect::<BTreeMap<_, _>>(),
+        products: g
+            .products
+            .into_iter()
+            .map(|(p, n)| (p.map(|p| p.as_str().to_owned()), n))
+            .collect(),
     }
 }
 
@@ -102,7 +109,12 @@ pub async fn load(
     period: &Period,
     detail: Detail,
 ) -> Result<Loaded, StoreError> {
-    let mut aggregate = store.aggregate(&spec.aggregate_query(period)).await?;
+    let mut query = spec.aggregate_query(period);
+    // The product-mix comparison needs each group's split by product, read in the same
+    // statement so that it always adds up to the group.
+    query.by_product =
+        detail == Detail::Report && spec.parameters.stratify == StratifyChoice::Product;
+    let mut aggregate = store.aggregate(&query).await?;
     if detail == Detail::Summary {
         // The category association is not part of a summary; without categories the
         // builder skips it.
@@ -129,17 +141,80 @@ pub async fn load(
     })
 }
 
-/// The report of `period` over `groups` against the baseline `window` (pure;
-/// CPU-bound for many groups), the statistics giving up at `deadline`.
+/// The longest period whose gaps in the data are looked for (a year and a day): longer
+/// date ranges would read a bucket per day for little use.
+pub const MAX_GAP_DAYS: i64 = 367;
+
+/// The first day a report of `period` reads for its gaps in the data: the history
+/// window of [`gaps::HISTORY_DAYS`] before the period.
+pub fn gaps_start(period: &Period) -> Date {
+    period
+        .first_day()
+        .checked_sub(time::Duration::days(gaps::HISTORY_DAYS))
+        .unwrap_or(period.first_day())
+}
+
+/// The days each line in scope posted over `period` and the history before it (one
+/// aggregate bucketed by day, at the all-lines level within the report's site and
+/// product filters), and the gaps found in them; `None` for a period longer than
+/// [`MAX_GAP_DAYS`].
+pub async fn load_gaps(
+    store: &dyn Store,
+    spec: &ReportSpec,
+    period: &Period,
+) -> Result<Option<DataGaps>, StoreError> {
+    let (from, to) = (period.first_day(), period.last_day());
+    if to - from > time::Duration::days(MAX_GAP_DAYS) {
+        return Ok(None);
+    }
+    let start = gaps_start(period);
+    let mut query = spec.aggregate_query(period);
+    query.from = start;
+    query.level = dispar_store::Level::AllLines;
+    if let Level::Line { site } = &spec.level {
+        query.site = Some(site.clone());
+    }
+    let days: Vec<Date> =
+        std::iter::successors(Some(start), |d| d.next_day().filter(|n| *n <= to)).collect();
+    let buckets: Vec<(Date, Date)> = days.iter().map(|d| (*d, *d)).collect();
+    let a = store.aggregate_buckets(&query, &buckets).await?;
+    let mut lines: BTreeMap<String, LineDays> = BTreeMap::new();
+    for (day, bucket) in days.iter().zip(&a.buckets) {
+        for g in bucket {
+            let Some(line) = &g.line else { continue };
+            let entry = lines
+                .entry(format!("{}/{}", g.site, line))
+                .or_insert_with(|| LineDays {
+                    line: format!("{}/{}", g.site, line),
+                    site: g.site.as_str().to_owned(),
+                    days: Vec::new(),
+                });
+            if g.inspected > 0 {
+                entry.days.push((*day, g.inspected, g.defective));
+            }
+        }
+    }
+    let lines: Vec<LineDays> = lines.into_values().collect();
+    Ok(Some(gaps::data_gaps(
+        &lines,
+        &gaps::GapOptions::for_period(from, to),
+    )))
+}
+
+/// The report of `period` over `groups` against the baseline `window`, with the gaps
+/// in the data (pure; CPU-bound for many groups), the statistics giving up at
+/// `deadline`.
 pub fn build(
     spec: &ReportSpec,
     period: Period,
     groups: &[GroupCounts],
     window: Option<BaselineWindow>,
+    gaps: Option<DataGaps>,
     deadline: Option<Instant>,
 ) -> Report {
     let mut request = spec.request(period, deadline);
     request.baseline = window;
+    request.gaps = gaps;
     build_report(&request, groups)
 }
 
@@ -288,6 +363,7 @@ pub async fn load_series(
                     inspected: g.inspected,
                     defective: g.defective,
                     defects: BTreeMap::new(),
+                    products: BTreeMap::new(),
                 })
                 .collect()
         })
@@ -321,6 +397,7 @@ pub fn echo(spec: &ReportSpec) -> ParametersEcho {
         overdispersion: p.overdispersion,
         as_of: spec.as_of.map(format_as_of),
         baseline: p.baseline,
+        stratify: p.stratify,
     }
 }
 

@@ -99,6 +99,7 @@ mod tests {
             inspected,
             defective,
             defects: Default::default(),
+            products: Default::default(),
         }
     }
 

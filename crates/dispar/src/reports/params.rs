@@ -22,6 +22,7 @@ pub const REPORT_PARAMETERS: &[&str] = &[
     "min_difference",
     "overdispersion",
     "baseline",
+    "stratify",
     "as_of",
 ];
 
@@ -40,6 +41,7 @@ pub const SERIES_PARAMETERS: &[&str] = &[
     "min_difference",
     "overdispersion",
     "baseline",
+    "stratify",
     "as_of",
 ];
 
@@ -94,6 +96,10 @@ pub struct ReportParams {
     /// 8; a day uses the group's earlier days with production), or off.
     #[arg(long, value_name = "N|off")]
     pub baseline: Option<String>,
+    /// Product mix: product (default; add the comparison adjusted for product mix when
+    /// the records carry products) or none (crude rates only).
+    #[arg(long, value_name = "product|none")]
+    pub stratify: Option<String>,
     /// Use the data as they stood at this RFC 3339 instant (e.g. 2026-04-01T00:00:00Z).
     #[arg(long, value_name = "TIMESTAMP")]
     pub as_of: Option<String>,
@@ -119,6 +125,7 @@ impl ReportParams {
             min_difference,
             overdispersion,
             baseline,
+            stratify,
             as_of,
         } = self;
         let value = match name {
@@ -136,6 +143,7 @@ impl ReportParams {
             "min_difference" => min_difference,
             "overdispersion" => overdispersion,
             "baseline" => baseline,
+            "stratify" => stratify,
             "as_of" => as_of,
             _ => return None,
         };

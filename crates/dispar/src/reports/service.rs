@@ -15,7 +15,9 @@ use std::time::{Duration, Instant};
 
 use axum::body::Bytes;
 use dispar_core::period::{Granularity, Period};
+use dispar_core::report::baseline::series_headline_with_trends;
 use dispar_core::report::model::ParametersEcho;
+use dispar_core::report::trend::{GroupTrend, series_trends};
 use dispar_core::report::{Filters, LevelKind, Report, SeriesPoint};
 use dispar_store::{AggregateQuery, Store, StoreError, VersionScope};
 use serde::Serialize;
@@ -45,10 +47,14 @@ pub struct Series {
     /// The statistical choices.
     pub parameters: ParametersEcho,
     /// The series in words: the changes over the range ("KES worse than its usual in
-    /// 2026-W15–W18"), or, with `baseline=off`, how many periods differ.
+    /// 2026-W15–W18"), or, with `baseline=off`, how many periods differ; then the
+    /// rising trends ("KES getting steadily worse over 2026-W01–W12").
     pub headline: String,
     /// One verdict per period, in order.
     pub periods: Vec<SeriesPoint>,
+    /// Each group's trend over the periods: the groups of the last period in its
+    /// order, then the others by code.
+    pub trends: Vec<GroupTrend>,
     /// The cautions every series carries.
     pub cautions: Vec<String>,
 }
@@ -149,10 +155,11 @@ enum Cached {
 
 /// What a report of `period` reads: its days widened to its baseline window (the first
 /// day of the earliest earlier period; for a day, the candidate days a baseline of days
-/// with production is drawn from), and its site (line level, or a site filter).
+/// with production is drawn from) and to the history its gaps in the data are judged
+/// against, and its site (line level, or a site filter).
 pub fn report_scope(spec: &ReportSpec, period: Period) -> VersionScope {
     VersionScope {
-        from: window_start(spec, period),
+        from: window_start(spec, period).min(compute::gaps_start(&period)),
         to: period.last_day(),
         site: scope_site(spec),
     }
@@ -307,6 +314,7 @@ impl ReportService {
         let started = Instant::now();
         let loaded = compute::load(self.store.as_ref(), spec, &period, Detail::Report).await?;
         let window = compute::load_window(self.store.as_ref(), spec, &period).await?;
+        let gaps = compute::load_gaps(self.store.as_ref(), spec, &period).await?;
         let db = ms_since(started);
         // Keyed by the scoped version the caller read before the sums: the data read
         // are at least that new, so an entry is never older than its tag (a write in
@@ -321,7 +329,7 @@ impl ReportService {
         let (report, body, stats, json) = self
             .blocking(deadline, who, move || {
                 let started = Instant::now();
-                let report = compute::build(&spec, period, &loaded.groups, window, deadline);
+                let report = compute::build(&spec, period, &loaded.groups, window, gaps, deadline);
                 let stats = ms_since(started);
                 let started = Instant::now();
                 let body = compute::to_json(&report)?;
@@ -393,6 +401,9 @@ impl ReportService {
         let (series, body, stats, json) = self
             .blocking(deadline, who, move || {
                 let started = Instant::now();
+                // Before the points consume the groups; the same data as the points, so
+                // the series' cache entry and tag cover the trends too.
+                let trends = series_trends(&span.periods, &load.groups, spec.parameters.alpha);
                 let points: Vec<SeriesPoint> = span
                     .periods
                     .iter()
@@ -402,7 +413,12 @@ impl ReportService {
                         compute::summary(&spec, *p, &groups, window, deadline)
                     })
                     .collect();
-                let headline = compute::series_headline(&spec, &points);
+                let headline = series_headline_with_trends(
+                    &points,
+                    spec.level.kind(),
+                    spec.parameters.baseline.is_some(),
+                    &trends,
+                );
                 let stats = ms_since(started);
                 let started = Instant::now();
                 let series = Series {
@@ -414,6 +430,7 @@ impl ReportService {
                     parameters: compute::echo(&spec),
                     headline,
                     periods: points,
+                    trends,
                     cautions: compute::cautions(),
                 };
                 let body = serde_json::to_vec(&series)?;

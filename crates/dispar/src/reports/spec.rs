@@ -193,7 +193,7 @@ impl ReportSpec {
             Level::AllLines => "all-lines".to_owned(),
         };
         format!(
-            "level={level}&site={}&product={}&alpha={:?}&method={}&pairwise={}&adjust={}&resamples={}&min_difference={}&overdispersion={}&baseline={}&as_of={}",
+            "level={level}&site={}&product={}&alpha={:?}&method={}&pairwise={}&adjust={}&resamples={}&min_difference={}&overdispersion={}&baseline={}&stratify={}&as_of={}",
             self.filters.site.as_ref().map_or("", SiteCode::as_str),
             self.filters
                 .product
@@ -208,6 +208,7 @@ impl ReportSpec {
             p.overdispersion,
             p.baseline
                 .map_or_else(|| "off".to_owned(), |n| n.to_string()),
+            p.stratify,
             self.as_of.map(format_as_of).unwrap_or_default(),
         )
     }
@@ -240,6 +241,7 @@ impl ReportSpec {
             as_of: self.as_of.map(format_as_of),
             deadline,
             baseline: None,
+            gaps: None,
         }
     }
 }
