@@ -59,7 +59,7 @@ async fn main() {
             .map(|w| w.0);
         load.push(t.elapsed());
         let t = Instant::now();
-        let report = compute::build(&spec, period, &loaded.groups, window, None);
+        let report = compute::build(&spec, period, &loaded.groups, window, None, None);
         build.push(t.elapsed());
         let t = Instant::now();
         bytes = compute::to_json(&report).unwrap().len();

@@ -310,14 +310,15 @@ pub fn product_mix(
             let st = standardised.as_ref().and_then(|v| v.get(i));
             let expected = st.map_or(0.0, |s| s.expected);
             let ratio_value = st.and_then(|s| s.ratio);
-            let limits = ratio_value.and(funnel).map(|f| f.at(expected)).map(|l| Ci {
-                lower: l.lower,
-                upper: if l.upper.is_finite() {
-                    l.upper
-                } else {
-                    f64::MAX
-                },
-            });
+            // Finite whenever something is expected, which a ratio implies.
+            let limits = ratio_value
+                .and(funnel)
+                .map(|f| f.at(expected))
+                .filter(|l| l.upper.is_finite())
+                .map(|l| Ci {
+                    lower: l.lower,
+                    upper: l.upper,
+                });
             let flag = match (ratio_value, limits) {
                 (Some(r), Some(l)) if r > l.upper => Some(Flag::Above),
                 (Some(r), Some(l)) if r < l.lower => Some(Flag::Below),

@@ -26,6 +26,7 @@
 
 pub mod charts;
 pub mod data;
+pub mod fair;
 pub mod format;
 pub mod render;
 pub mod session;

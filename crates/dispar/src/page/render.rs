@@ -546,16 +546,18 @@ fn samples(v: &ReportView) -> Markup {
     }
 }
 
-fn report_body(v: &ReportView, ctx: &PageContext) -> Markup {
+fn report_body(v: &ReportView, report: &Report, ctx: &PageContext) -> Markup {
     html! {
         (picker(ctx))
         p .report-title #report-title { (v.title) }
         @if let Some(n) = &ctx.notice { p .notice #notice { (n) } }
         (verdict(v))
+        (super::fair::beside_verdict(report))
         (groups_table(v))
         (charts(v))
         (pairwise(v))
         (flagged(v))
+        (super::fair::product_mix(report))
         @if let Some(c) = &v.categories { (categories(c)) }
         (samples(v))
         section #method {
@@ -590,7 +592,7 @@ pub fn render_report(report: &Report, ctx: &PageContext) -> String {
         &format!("{} \u{2014} dispar", view.title),
         ctx.viewer.as_ref(),
         Nav::Report,
-        report_body(&view, ctx),
+        report_body(&view, report, ctx),
     )
 }
 
