@@ -1283,7 +1283,10 @@ fn a_write_changes_the_etags_of_the_reports_that_read_it_and_no_others() {
         "/v1/reports?period=2026-W10&level=line&site=S1", // S1's lines
         "/v1/reports?period=2026-W10&level=line&site=S2", // not S1
         "/v1/reports?period=2026-W40&level=site", // far from March, baseline too
-        "/v1/reports?period=2026-W12&level=site&baseline=off", // W12 alone
+        // W22 alone: neither its days nor the 56 days before them (the history its gaps
+        // in the data are judged against) hold 2026-03-03. (W12 with baseline=off
+        // would move: its gaps history holds W10.)
+        "/v1/reports?period=2026-W22&level=site&baseline=off",
         "/v1/reports/series?from=2026-W09&to=2026-W11", // covers it
         "/v1/reports/series?from=2026-W30&to=2026-W32", // does not
     ];
