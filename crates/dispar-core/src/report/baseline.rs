@@ -356,7 +356,20 @@ pub fn series_headline_with_trends(
     trends: &[GroupTrend],
 ) -> String {
     let mut words = changes_headline(points, level, with_baseline);
-    for rising in rising_words(trends) {
+    // A group already named worse than its usual in the range has its news said; a
+    // step change also fits a rising line, and "steadily" would misdescribe it.
+    let worse: std::collections::BTreeSet<&str> = points
+        .iter()
+        .flat_map(|p| &p.changes)
+        .filter(|c| c.verdict == BaselineVerdict::Worse)
+        .map(|c| c.code.as_str())
+        .collect();
+    let quiet: Vec<GroupTrend> = trends
+        .iter()
+        .filter(|t| !worse.contains(t.code.as_str()))
+        .cloned()
+        .collect();
+    for rising in rising_words(&quiet) {
         words.push_str("; ");
         words.push_str(&rising);
     }

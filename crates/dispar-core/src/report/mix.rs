@@ -650,6 +650,12 @@ pub fn fill_power(report: &mut Report, pair_counts: &[(Counts, Counts)]) {
     let uninformative = !test.significant && best.is_none_or(|b| b > wanted);
     let pct = |x: f64| fmt_rate(x);
     let mut note = match (best, median) {
+        (Some(b), Some(m)) if (m - b).abs() <= 0.005 * b => format!(
+            "With these volumes a group against the rest would detect a rise of {} above the pooled rate {} with {:.0}% power at α = {alpha}.",
+            pct(b),
+            pct(pooled),
+            100.0 * POWER
+        ),
         (Some(b), Some(m)) => format!(
             "With these volumes a group against the rest would detect a rise of {} (the largest group) to {} (the median group) above the pooled rate {} with {:.0}% power at α = {alpha}.",
             pct(b),
