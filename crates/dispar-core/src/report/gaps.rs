@@ -50,7 +50,12 @@
 //!   is far out (6 by default) because this flags data errors, not process changes;
 //!   those are the baseline's business. It needs [`MIN_HISTORY_DAYS`] posted history
 //!   days, and a history with no defectives (or only defectives) gives no z, since its
-//!   binomial variance is 0. A day on which every unit is defective with at least
+//!   binomial variance is 0. A day beyond the limit is listed only when it is also
+//!   beyond it against its neighbours (the line's posted days within
+//!   [`NEIGHBOUR_DAYS`] either side, pooled, on the same widened variance; with fewer
+//!   than [`MIN_NEIGHBOURS`] of them this check is skipped): a process that changed
+//!   stays changed for days, so its days agree with each other, while a wrong record
+//!   stands alone. A day on which every unit is defective with at least
 //!   [`ALL_DEFECTIVE_MIN_UNITS`] inspected is always implausible, history or not: that
 //!   is nearly always a column swapped or a count entered twice.
 //! - **Order.** By line code, then date; sites by code. The result never depends on
@@ -77,6 +82,10 @@ pub const MIN_HISTORY_DAYS: usize = 10;
 /// Fewest lines of a site usually producing on a day for the site's silence that day to
 /// be a site day off.
 pub const SITE_MIN_LINES: usize = 2;
+/// Days either side of a day whose posted days are its neighbours (a week).
+pub const NEIGHBOUR_DAYS: usize = 7;
+/// Fewest posted neighbour days for the neighbour check of an implausible day.
+pub const MIN_NEIGHBOURS: usize = 3;
 /// Fewest units inspected for an all-defective day to be implausible on its own.
 pub const ALL_DEFECTIVE_MIN_UNITS: u64 = 20;
 
@@ -482,7 +491,34 @@ fn implausible(line: &Line<'_>, window: &Window, limit: f64, out: &mut DataGaps)
         // More defectives than units cannot come from checked records; should it
         // ever happen, it is implausible too.
         let all_defective = x >= n && n >= ALL_DEFECTIVE_MIN_UNITS;
-        if all_defective || z.is_some_and(|z| z.abs() > limit) {
+        // A real change of the process lasts: the days around it share the new rate. A
+        // data error is a day unlike its neighbours too, so a day far from the
+        // history but in line with its neighbours is a change (the baseline's
+        // business), not a record to check.
+        let unlike_neighbours = || {
+            let Some(phi) = history.as_ref().and_then(|h| h.phi) else {
+                return true;
+            };
+            let lo = i.saturating_sub(NEIGHBOUR_DAYS);
+            let hi = (i + NEIGHBOUR_DAYS).min(window.len - 1);
+            let around: Vec<(u64, u64)> = (lo..=hi)
+                .filter(|&j| j != i)
+                .filter_map(|j| line.counts[j])
+                .collect();
+            if around.len() < MIN_NEIGHBOURS {
+                return true;
+            }
+            let (nn, xn) = around.iter().fold((0u64, 0u64), |(a, b), &(ni, xi)| {
+                (a.saturating_add(ni), b.saturating_add(xi))
+            });
+            let r = xn as f64 / nn as f64;
+            if !(r > 0.0 && r < 1.0) {
+                return true;
+            }
+            let e = n as f64 * r;
+            ((x as f64 - e) / (e * (1.0 - r) * phi).sqrt()).abs() > limit
+        };
+        if all_defective || (z.is_some_and(|z| z.abs() > limit) && unlike_neighbours()) {
             out.implausible.push(ImplausibleDay {
                 line: line.code.to_owned(),
                 date: window.date(i),
@@ -855,7 +891,9 @@ mod tests {
         );
 
         // At a limit of 4.5 the widened z = 4.8563328991605541 of the 6th (same
-        // source) is beyond it, the 5th's 1.8339673751137378 is not.
+        // source) is beyond it against the history, the 5th's 1.8339673751137378 is
+        // not; but the 6th's neighbours include the 4th's 100 defectives, and against
+        // them it is in line, so only the 4th stands alone.
         let g = data_gaps(
             &lines,
             &GapOptions {
@@ -864,8 +902,29 @@ mod tests {
             },
         );
         let dates: Vec<Date> = g.implausible.iter().map(|d| d.date).collect();
-        assert_eq!(dates, [date!(2026 - 03 - 04), date!(2026 - 03 - 06)]);
-        close(g.implausible[1].z.unwrap(), 4.856_332_899_160_554, "z 6th");
+        assert_eq!(dates, [date!(2026 - 03 - 04)]);
+    }
+
+    #[test]
+    fn a_rate_that_stays_raised_is_a_change_not_an_implausible_day() {
+        // Every weekday of the period at 4% (x4 the noisy history's 0.9%): each day is
+        // far beyond the history, but in line with its neighbours.
+        let lines = [line("R/1", |d| {
+            noisy_history(d)
+                .or_else(|| (is_weekday(d) && d >= options().from).then_some((1000, 40)))
+        })];
+        let g = data_gaps(&lines, &options());
+        assert!(g.implausible.is_empty(), "{:?}", g.implausible);
+        // One day of 40% among them stands alone.
+        let lines = [line("R/1", |d| {
+            noisy_history(d).or_else(|| {
+                (is_weekday(d) && d >= options().from)
+                    .then_some((1000, if d == date!(2026 - 03 - 10) { 400 } else { 40 }))
+            })
+        })];
+        let g = data_gaps(&lines, &options());
+        let dates: Vec<Date> = g.implausible.iter().map(|d| d.date).collect();
+        assert_eq!(dates, [date!(2026 - 03 - 10)]);
     }
 
     #[test]
