@@ -58,6 +58,30 @@ pub struct GroupCounts {
     pub products: BTreeMap<Option<String>, (u64, u64)>,
 }
 
+impl GroupCounts {
+    /// A group from its counts by product, `(product, inspected, defective)`, its totals
+    /// their sums (saturating). A product named twice is added up.
+    pub fn of_products<'a>(
+        code: &str,
+        cells: impl IntoIterator<Item = (Option<&'a str>, u64, u64)>,
+    ) -> Self {
+        let mut g = GroupCounts {
+            code: code.to_owned(),
+            ..GroupCounts::default()
+        };
+        for (product, n, x) in cells {
+            g.inspected = g.inspected.saturating_add(n);
+            g.defective = g.defective.saturating_add(x);
+            let cell = g
+                .products
+                .entry(product.map(str::to_owned))
+                .or_insert((0, 0));
+            *cell = (cell.0.saturating_add(n), cell.1.saturating_add(x));
+        }
+        g
+    }
+}
+
 /// What a report is about, besides its groups.
 #[derive(Debug, Clone, PartialEq, Default)]
 pub struct ReportRequest {

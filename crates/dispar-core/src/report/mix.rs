@@ -705,16 +705,7 @@ mod tests {
 
     /// A group from (product, inspected, defective) cells.
     fn group(code: &str, cells: &[(Option<&str>, u64, u64)]) -> GroupCounts {
-        GroupCounts {
-            code: code.to_owned(),
-            inspected: cells.iter().map(|c| c.1).sum(),
-            defective: cells.iter().map(|c| c.2).sum(),
-            products: cells
-                .iter()
-                .map(|&(p, n, x)| (p.map(str::to_owned), (n, x)))
-                .collect(),
-            ..GroupCounts::default()
-        }
+        GroupCounts::of_products(code, cells.iter().copied())
     }
 
     fn request(stratify: StratifyChoice) -> ReportRequest {

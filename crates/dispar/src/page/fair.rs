@@ -138,24 +138,13 @@ pub fn product_mix(report: &Report) -> Markup {
 
 #[cfg(test)]
 mod tests {
-    use std::collections::BTreeMap;
-
     use dispar_core::report::gaps::{DataGaps, Stopped};
     use dispar_core::report::{GroupCounts, LevelKind, Parameters, ReportRequest, build_report};
 
     use super::*;
 
     fn group(code: &str, cells: &[(&str, u64, u64)]) -> GroupCounts {
-        GroupCounts {
-            code: code.to_owned(),
-            inspected: cells.iter().map(|c| c.1).sum(),
-            defective: cells.iter().map(|c| c.2).sum(),
-            products: cells
-                .iter()
-                .map(|&(p, n, x)| (Some(p.to_owned()), (n, x)))
-                .collect::<BTreeMap<_, _>>(),
-            ..GroupCounts::default()
-        }
+        GroupCounts::of_products(code, cells.iter().map(|&(p, n, x)| (Some(p), n, x)))
     }
 
     #[test]
