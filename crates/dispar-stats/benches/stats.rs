@@ -12,6 +12,8 @@ use dispar_stats::analysis::{Options, analyze_rates};
 use dispar_stats::exact::fisher;
 use dispar_stats::montecarlo::{conditional_p, table_seed};
 use dispar_stats::pairwise::{PairMethod, PairwiseOptions, pairwise};
+use dispar_stats::standardise::indirect;
+use dispar_stats::stratified::generalised_cmh;
 use dispar_stats::table::Table;
 
 /// A small deterministic generator (splitmix64) for synthetic groups.
@@ -89,11 +91,29 @@ fn monte_carlo(c: &mut Criterion) {
     group.finish();
 }
 
+fn product_mix(c: &mut Criterion) {
+    // 200 groups x 5 products, the size of the product-mix report benchmark.
+    let cells: Vec<Vec<(u64, u64)>> = (0..200u64)
+        .map(|g| {
+            (0..5u64)
+                .map(|s| (5_000 + 37 * g + 11 * s, 60 + (g * 7 + s * 13) % 80))
+                .collect()
+        })
+        .collect();
+    c.bench_function("generalised_cmh_200x5", |b| {
+        b.iter(|| generalised_cmh(black_box(&cells)))
+    });
+    c.bench_function("indirect standardisation, 200 groups x 5 products", |b| {
+        b.iter(|| indirect(black_box(&cells), 0.95))
+    });
+}
+
 criterion_group!(
     benches,
     omnibus_and_flags,
     all_pairs,
     fisher_large,
-    monte_carlo
+    monte_carlo,
+    product_mix
 );
 criterion_main!(benches);

@@ -655,8 +655,10 @@ fn untestable_stratified_input_is_an_error_not_a_nan() {
 }
 
 #[test]
-fn two_hundred_groups_by_five_strata_take_well_under_ten_milliseconds() {
-    // Deterministic counts around a 2% rate; the timing is the point.
+fn two_hundred_groups_by_five_strata_are_linked_through_every_product() {
+    // Deterministic counts around a 2% rate, the size of the benchmark (its time is in
+    // the criterion bench `generalised_cmh_200x5`, not here): every group made every
+    // product, so V has full rank k - 1 and every stratum contributes.
     let groups: Vec<Vec<(u64, u64)>> = (0..200u64)
         .map(|g| {
             (0..5u64)
@@ -664,11 +666,8 @@ fn two_hundred_groups_by_five_strata_take_well_under_ten_milliseconds() {
                 .collect()
         })
         .collect();
-    let start = std::time::Instant::now();
     let got = generalised_cmh(&groups).expect("testable");
-    let took = start.elapsed();
-    assert_eq!(got.df, 199);
-    assert!(got.statistic.is_finite() && got.p_value >= 0.0);
-    // Debug builds run several times slower than release; 50 ms here is ~2 ms in release.
-    assert!(took.as_millis() < 50, "took {took:?}");
+    assert_eq!((got.df, got.groups_used, got.strata_used), (199, 200, 5));
+    assert!(got.statistic.is_finite() && got.statistic > 0.0);
+    assert!((0.0..=1.0).contains(&got.p_value));
 }
