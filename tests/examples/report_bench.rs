@@ -8,6 +8,7 @@
 //! cargo run --release -p dispar-system-tests --example report_bench -- \
 //!     [--out DIR] [--python /tmp/venv-ref/bin/python] [--misses 30] [--hits 200] [--series 5] \
 //!     [--analyze]   (PostgreSQL: ANALYZE after the load, as autovacuum soon would)
+//!     [--products N] [--mix-only] [--from 2025-01-01] [--to 2025-12-31]
 //! ```
 //!
 //! `--python` names an interpreter with `tools/reference/requirements.txt` installed (the
@@ -27,6 +28,18 @@
 //! as new data in the month would, and no count), so it is computed again: sums, statistics, JSON; a hit repeats
 //! the request; a 304 sends its `If-None-Match`. The Python time is measured by the script itself
 //! (`time.perf_counter`) and printed next to ours.
+//!
+//! `--products N` (default 0: records without a product, as above) splits each record
+//! into N, products P1..PN: the line and day's units shared out by the site's own mix of
+//! products (each site a different one), product k at (0.6 + 0.3 k) times the base rate,
+//! scaled so that an even mix keeps the base rate, so the totals stay those of the data
+//! above while sites differ in their mix, which is what the report's `product_mix`
+//! adjusts for. `--mix-only` measures only what that costs: the month's miss with
+//! `stratify=product` (products read, the mix computed) against `stratify=none` (crude
+//! rates only), alternating, against the same server and data, without the hits, the
+//! series, the command line and the Python side. `--from`/`--to` narrow the dates
+//! generated (the month reads its 8 months of baseline and 56 days of gap history
+//! before it, so 2024-10-01..2025-06-30 gives the same report as the whole year).
 
 #![allow(clippy::unwrap_used, clippy::print_stderr)] // a benchmark driver: panics report failures
 
@@ -51,6 +64,15 @@ struct Options {
     hits: usize,
     series: usize,
     analyze: bool,
+    products: usize,
+    mix_only: bool,
+    from: time::Date,
+    to: time::Date,
+}
+
+fn date_arg(value: &str, name: &str) -> time::Date {
+    let format = time::macros::format_description!("[year]-[month]-[day]");
+    time::Date::parse(value, format).unwrap_or_else(|e| panic!("{name} YYYY-MM-DD: {e}"))
 }
 
 fn options() -> Options {
@@ -61,13 +83,21 @@ fn options() -> Options {
         hits: 200,
         series: 5,
         analyze: false,
+        products: 0,
+        mix_only: false,
+        from: time::Date::from_calendar_date(YEAR, time::Month::January, 1).unwrap(),
+        to: time::Date::from_calendar_date(YEAR, time::Month::December, 31).unwrap(),
     };
     let args: Vec<String> = std::env::args().skip(1).collect();
     let mut i = 0;
     while i < args.len() {
         let value = args.get(i + 1).cloned().unwrap_or_default();
-        if args[i] == "--analyze" {
-            o.analyze = true;
+        match args[i].as_str() {
+            "--analyze" => o.analyze = true,
+            "--mix-only" => o.mix_only = true,
+            _ => {}
+        }
+        if matches!(args[i].as_str(), "--analyze" | "--mix-only") {
             i += 1;
             continue;
         }
@@ -77,6 +107,9 @@ fn options() -> Options {
             "--misses" => o.misses = value.parse().expect("--misses N"),
             "--hits" => o.hits = value.parse().expect("--hits N"),
             "--series" => o.series = value.parse().expect("--series N"),
+            "--products" => o.products = value.parse().expect("--products N"),
+            "--from" => o.from = date_arg(&value, "--from"),
+            "--to" => o.to = date_arg(&value, "--to"),
             other => panic!("unknown argument {other}"),
         }
         i += 2;
@@ -102,10 +135,12 @@ impl SplitMix {
     }
 }
 
-/// The CSV header and one row per site, line and day of [`YEAR`].
-fn generate() -> (String, Vec<String>) {
+/// The CSV header and one row per site, line and day from `o.from` to `o.to` (the
+/// whole of [`YEAR`] by default), or `o.products` rows, one a product, with `--products`.
+fn generate(o: &Options) -> (String, Vec<String>) {
+    let product_column = if o.products > 0 { "product," } else { "" };
     let header = format!(
-        "site,line,date,inspected,defective,{}",
+        "site,line,{product_column}date,inspected,defective,{}",
         CATEGORIES.map(|c| format!("defect:{c}")).join(",")
     );
     let mut g = SplitMix(20_250_601);
@@ -119,23 +154,55 @@ fn generate() -> (String, Vec<String>) {
             }
         })
         .collect();
-    let first = time::Date::from_calendar_date(YEAR, time::Month::January, 1).unwrap();
-    let mut rows = Vec::with_capacity(SITES * LINES * 365);
-    for day in 0..365 {
-        let date = first + time::Duration::days(day);
+    // Its own stream, so that the data without products stay those of earlier runs.
+    let mut m = SplitMix(20_250_612);
+    let factor: Vec<f64> = (1..=o.products).map(|k| 0.6 + 0.3 * k as f64).collect();
+    let mean = factor.iter().sum::<f64>() / o.products.max(1) as f64;
+    let factor: Vec<f64> = factor.iter().map(|f| f / mean).collect();
+    // Squared uniforms give lopsided mixes (one site mostly P5, another mostly P1),
+    // the floor keeps every product made everywhere.
+    let mix: Vec<Vec<f64>> = (0..SITES)
+        .map(|_| {
+            let w: Vec<f64> = (0..o.products).map(|_| 0.05 + m.unit().powi(2)).collect();
+            let sum: f64 = w.iter().sum();
+            w.iter().map(|x| x / sum).collect()
+        })
+        .collect();
+    let days = (o.to - o.from).whole_days() + 1;
+    assert!(days > 0, "--to before --from");
+    let mut rows = Vec::with_capacity(SITES * LINES * days as usize * o.products.max(1));
+    for day in 0..days {
+        let date = o.from + time::Duration::days(day);
         for (s, rate) in site_rate.iter().enumerate() {
             for l in 0..LINES {
                 let n = 800 + g.next() % 401;
                 let r = rate * [0.9, 1.0, 1.1][l] * (0.7 + 0.6 * g.unit());
-                let x = ((n as f64) * r).round() as u64;
-                let scratch = x / 2;
-                let dent = (x * 3) / 10;
-                let short = x - scratch - dent + g.next() % 2;
-                rows.push(format!(
-                    "S{:03},L{},{date},{n},{x},{scratch},{dent},{short}",
-                    s + 1,
-                    l + 1
-                ));
+                let site = format!("S{:03},L{}", s + 1, l + 1);
+                let mut push = |product: &str, n: u64, r: f64, g: &mut SplitMix| {
+                    let x = ((n as f64) * r).round() as u64;
+                    let scratch = x / 2;
+                    let dent = (x * 3) / 10;
+                    let short = x - scratch - dent + g.next() % 2;
+                    rows.push(format!(
+                        "{site},{product}{date},{n},{x},{scratch},{dent},{short}"
+                    ));
+                };
+                if o.products == 0 {
+                    push("", n, r, &mut g);
+                    continue;
+                }
+                let mut left = n;
+                for (k, (share, f)) in mix[s].iter().zip(&factor).enumerate() {
+                    // Floors for all but the last, which takes the rest: the products
+                    // add up to the line's units exactly.
+                    let nk = if k + 1 == o.products {
+                        left
+                    } else {
+                        ((n as f64) * share).floor() as u64
+                    };
+                    left -= nk;
+                    push(&format!("P{},", k + 1), nk, r * f, &mut g);
+                }
             }
         }
     }
@@ -177,8 +244,131 @@ fn stats(mut v: Vec<Duration>) -> (f64, f64, f64, f64) {
     (ms(v[0]), pick(0.5), pick(0.95), ms(v[v.len() - 1]))
 }
 
+/// The 1, 5 and 15 minute load averages: on a shared 2-core machine they say how much
+/// of a timing is other people's work.
+fn load_average() -> String {
+    std::fs::read_to_string("/proc/loadavg")
+        .map(|l| l.split_whitespace().take(3).collect::<Vec<_>>().join(" "))
+        .unwrap_or_else(|_| "unknown".to_owned())
+}
+
+/// `--mix-only`: the month's miss with the product mix against the same report with
+/// crude rates only, alternating (the order too, so neither always runs on the cache
+/// lines the other left warm), against one server and one data set.
+fn mix_only(s: &Server, o: &Options, records: usize, csv_bytes: usize, ingest: Duration) {
+    let read = s.key("read", &[]);
+    let base = format!("/v1/reports?period={MONTH}&level=site");
+    let variants = [
+        (
+            "`stratify=product` (products read, mix computed)",
+            format!("{base}&stratify=product"),
+        ),
+        (
+            "`stratify=none` (crude rates only)",
+            format!("{base}&stratify=none"),
+        ),
+    ];
+    let load_before = load_average();
+    let mut client = [Vec::new(), Vec::new()];
+    let mut server = [
+        [Vec::new(), Vec::new(), Vec::new()],
+        [Vec::new(), Vec::new(), Vec::new()],
+    ];
+    let mut bodies = [0, 0];
+    let mut mix: Option<Value> = None;
+    for i in 0..=o.misses {
+        let order = if i % 2 == 0 { [0, 1] } else { [1, 0] };
+        for v in order {
+            bump(s, 10_000 + 2 * i + v);
+            let t = Instant::now();
+            let r = s.request("GET", &variants[v].1, Some(&read), Body::None);
+            let elapsed = t.elapsed();
+            assert_eq!(r.status, 200, "{}", r.text);
+            let header = r.header("server-timing").unwrap_or("");
+            assert!(header.starts_with("db;dur="), "a miss: {header:?}");
+            if i == 0 {
+                // Page cache and the ANOM constant for 200 groups, as in main: not counted.
+                let report: Value = r.json();
+                let present = !report["product_mix"].is_null();
+                assert_eq!(
+                    present,
+                    v == 0 && o.products > 0,
+                    "product_mix only with stratify=product and products in the data"
+                );
+                if v == 0 {
+                    mix = Some(report["product_mix"].clone());
+                }
+                continue;
+            }
+            client[v].push(elapsed);
+            let timing = parse_timing(header);
+            for (k, name) in ["db", "stats", "json"].iter().enumerate() {
+                server[v][k].push(Duration::from_secs_f64(timing(name) / 1e3));
+            }
+            bodies[v] = r.text.len();
+        }
+    }
+    let load_after = load_average();
+    let mix = mix.expect("the first stratified report");
+    let days = (o.to - o.from).whole_days() + 1;
+    println!(
+        "## Product mix: the report miss with and without products ({SITES} sites x {LINES} lines x {} products x {days} days, {} to {}, month {MONTH}, level=site)",
+        o.products, o.from, o.to
+    );
+    println!();
+    let test = &mix["test"];
+    println!(
+        "Data: {records} records ({} MB CSV); product_mix: {} products, {} groups, test {} statistic {:.1}, df {}, log10 p = {:.1}; {} disagreements of crude and adjusted verdicts.",
+        csv_bytes / 1_000_000,
+        mix["products"].as_array().map_or(0, Vec::len),
+        mix["groups"].as_array().map_or(0, Vec::len),
+        test["method"],
+        test["statistic"].as_f64().unwrap_or(f64::NAN),
+        test["df"],
+        test["log10_p"].as_f64().unwrap_or(f64::NAN),
+        mix["disagreements"].as_array().map_or(0, Vec::len),
+    );
+    println!();
+    println!(
+        "Ingest: {records} records in {:.0} s ({:.0} records/s). Load average (1, 5, 15 min): {load_before} before the misses, {load_after} after; {} cores.",
+        ingest.as_secs_f64(),
+        records as f64 / ingest.as_secs_f64(),
+        std::thread::available_parallelism().map_or(0, |n| n.get())
+    );
+    println!();
+    println!(
+        "| cache miss | n | min ms | median ms | p95 ms | max ms | server db / stats / json ms (medians) | body MB |"
+    );
+    println!("|---|---|---|---|---|---|---|---|");
+    let mut medians = [0.0; 2];
+    let mut p95s = [0.0; 2];
+    for v in 0..2 {
+        let (mn, md, p95, mx) = stats(client[v].clone());
+        medians[v] = md;
+        p95s[v] = p95;
+        let [db, st, js] = server[v].clone();
+        println!(
+            "| {} | {} | {mn:.1} | {md:.1} | {p95:.1} | {mx:.1} | {:.1} / {:.1} / {:.1} | {:.2} |",
+            variants[v].0,
+            client[v].len(),
+            stats(db).1,
+            stats(st).1,
+            stats(js).1,
+            bodies[v] as f64 / 1e6
+        );
+    }
+    println!();
+    let ratio = medians[0] / medians[1];
+    println!(
+        "Ratio with / without products: {ratio:.2}x (medians), {:.2}x (p95s); target < 2x: {}.",
+        p95s[0] / p95s[1],
+        if ratio < 2.0 { "met" } else { "NOT met" }
+    );
+}
+
 fn main() {
     let o = options();
+    eprintln!("load average at start: {}", load_average());
     let tempdir = tempfile::tempdir().unwrap();
     let dir = o.out.clone().unwrap_or_else(|| tempdir.path().to_owned());
     std::fs::create_dir_all(&dir).unwrap();
@@ -186,7 +376,7 @@ fn main() {
     let _ = std::fs::remove_file(dir.join("dispar.db-wal"));
     let _ = std::fs::remove_file(dir.join("dispar.db-shm"));
 
-    let (header, rows) = generate();
+    let (header, rows) = generate(&o);
     let csv_path = dir.join("counts.csv");
     let mut csv = String::with_capacity(rows.len() * 48);
     writeln!(csv, "{header}").unwrap();
@@ -203,10 +393,18 @@ fn main() {
     }
     let registry = started.elapsed();
     let started = Instant::now();
-    for chunk in rows.chunks(BATCH) {
+    for (b, chunk) in rows.chunks(BATCH).enumerate() {
         let body = format!("{header}\n{}\n", chunk.join("\n"));
         let r = s.as_admin("POST", "/v1/counts", Body::Csv(body));
         assert!(r.status == 200 || r.status == 201, "{}", r.text);
+        if b % 20 == 19 {
+            // With products a load takes minutes: show that it moves and how fast.
+            eprintln!(
+                "  {} records in {:.0} s",
+                (b + 1) * BATCH,
+                started.elapsed().as_secs_f64()
+            );
+        }
     }
     let ingest = started.elapsed();
     eprintln!(
@@ -225,6 +423,10 @@ fn main() {
             .output()
             .expect("psql runs");
         assert!(out.status.success(), "ANALYZE: {:?}", out);
+    }
+    if o.mix_only {
+        mix_only(&s, &o, rows.len(), csv.len(), ingest);
+        return;
     }
     let read = s.key("read", &[]);
     let path = format!("/v1/reports?period={MONTH}&level=site");
@@ -355,7 +557,13 @@ fn main() {
     let (nmn, nmd, np95, nmx) = stats(not_modified);
     let t = &report["test"];
     println!(
-        "## Report latency: {SITES} sites x {LINES} lines x 365 days, month {MONTH}, level=site"
+        "## Report latency: {SITES} sites x {LINES} lines x {} days{}, month {MONTH}, level=site",
+        (o.to - o.from).whole_days() + 1,
+        if o.products > 0 {
+            format!(" x {} products", o.products)
+        } else {
+            String::new()
+        }
     );
     println!();
     println!(

@@ -66,6 +66,7 @@ where
     for<'r> TotalsRow: FromRow<'r, DB::Row>,
     for<'r> DefectsRow: FromRow<'r, DB::Row>,
     for<'r> (i64, String, Option<String>, i64, i64): FromRow<'r, DB::Row>,
+    for<'r> (String, String, Option<String>, i64, i64): FromRow<'r, DB::Row>,
     for<'r> CurrentRow: FromRow<'r, DB::Row>,
     for<'r> HistoryRow: FromRow<'r, DB::Row>,
     for<'t> Option<&'t str>: Encode<'t, DB> + Type<DB>,
@@ -642,6 +643,23 @@ where
             .fetch_one(&mut *conn)
             .await?;
         let registered = Self::registered_groups(conn, query).await?;
+        if let Some((from, to)) = one_day_buckets(query, buckets) {
+            let days: HashMap<String, i64> = buckets
+                .iter()
+                .enumerate()
+                .map(|(i, b)| (format_date(b.0), i64::try_from(i).unwrap_or(i64::MAX)))
+                .collect();
+            let rows: Vec<(String, String, Option<String>, i64, i64)> =
+                Sql::<DB>::day_sums(query, from, to)
+                    .build_query_as()
+                    .fetch_all(&mut *conn)
+                    .await?;
+            let rows = rows
+                .into_iter()
+                .filter_map(|(day, site, line, n, x)| Some((*days.get(&day)?, site, line, n, x)))
+                .collect();
+            return finish_buckets(version, &registered, buckets.len(), rows);
+        }
         let rows: Vec<(i64, String, Option<String>, i64, i64)> =
             match Sql::<DB>::bucket_sums(query, buckets)? {
                 Some(mut q) => q.build_query_as().fetch_all(&mut *conn).await?,
@@ -649,4 +667,20 @@ where
             };
         finish_buckets(version, &registered, buckets.len(), rows)
     }
+}
+
+/// With the current data and every bucket one day, consecutive, inside the query's range:
+/// the first and last day (read by [`Sql::day_sums`]).
+fn one_day_buckets(
+    query: &AggregateQuery,
+    buckets: &[(time::Date, time::Date)],
+) -> Option<(time::Date, time::Date)> {
+    let first = buckets.first()?.0;
+    let last = buckets.last()?.1;
+    let consecutive = buckets.iter().all(|b| b.0 == b.1)
+        && buckets
+            .windows(2)
+            .all(|w| w[0].0.next_day() == Some(w[1].0));
+    (query.as_of.is_none() && consecutive && first >= query.from && last <= query.to)
+        .then_some((first, last))
 }

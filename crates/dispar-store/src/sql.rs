@@ -460,6 +460,22 @@ where
         Ok(Some((totals, defects)))
     }
 
+    /// `(date, site, line, inspected, defective)` per day and group of the current data
+    /// from `from` to `to`: the buckets of [`Self::bucket_sums`] when each is one day,
+    /// read without the table of buckets. Grouping by the table's own key order (date,
+    /// then site and line) needs no sort, where joining to a table of 86 one-day buckets
+    /// made SQLite sort every row (measured: 57 ms against 152 ms for 258,000 rows).
+    pub(crate) fn day_sums(query: &AggregateQuery, from: Date, to: Date) -> QueryBuilder<DB> {
+        let (cols, group) = group_columns(&query.level, "t.");
+        let mut q = QueryBuilder::new(format!(
+            "SELECT t.date, {cols}, CAST(SUM(t.inspected) AS BIGINT), \
+             CAST(SUM(t.defective) AS BIGINT) FROM counts_current AS t"
+        ));
+        push_filters(&mut q, query, "date", format_date(from), format_date(to));
+        q.push(format!(" GROUP BY t.date, {group}"));
+        q
+    }
+
     /// `(bucket, site, line, inspected, defective)` per bucket and group, in one
     /// statement that joins the rows of the range to a table of the buckets (from the
     /// monthly sums when every bucket is whole months and the data are current). `None`
