@@ -83,7 +83,8 @@ pub use crate::keys::{ApiKey, KeyId, KeyRole, UnknownRole};
 pub use crate::options::{Backend, OpenOptions, backend_of};
 pub use crate::postgres::PostgresStore;
 pub use crate::reports::{
-    Aggregate, AggregateQuery, BucketedAggregate, GroupTotals, Level, VersionScope,
+    Aggregate, AggregateQuery, BucketedAggregate, GroupTotals, Level, LineDay, LineDays,
+    VersionScope,
 };
 pub use crate::sessions::{NewPageSession, PageSession};
 pub use crate::sites::{SiteWithLines, Upserted};

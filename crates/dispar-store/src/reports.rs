@@ -81,6 +81,30 @@ pub struct BucketedAggregate {
     pub buckets: Vec<Vec<GroupTotals>>,
 }
 
+/// One line's sums on one day ([`crate::Store::line_days`]).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct LineDay {
+    /// The day.
+    pub date: Date,
+    /// The site.
+    pub site: SiteCode,
+    /// The line.
+    pub line: LineCode,
+    /// Units inspected (over the line's products that day).
+    pub inspected: u64,
+    /// Units defective.
+    pub defective: u64,
+}
+
+/// Every line's posted days over a range ([`crate::Store::line_days`]).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct LineDays {
+    /// The data version the sums were read at (same read snapshot).
+    pub data_version: u64,
+    /// The line-days with a record, by date, then site and line.
+    pub days: Vec<LineDay>,
+}
+
 /// What a report reads, for [`crate::Store::scoped_version`].
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct VersionScope {

@@ -5,7 +5,7 @@
 
 use std::collections::{BTreeMap, HashMap, HashSet};
 
-use dispar_core::code::{CategoryCode, SiteCode};
+use dispar_core::code::{CategoryCode, LineCode, SiteCode};
 use dispar_core::record::RecordKey;
 use dispar_core::site::{Line, Site};
 use sqlx::{Database, Decode, Encode, Executor, FromRow, IntoArguments, QueryBuilder, Type};
@@ -16,16 +16,16 @@ use crate::counts::{CountFilter, CountPage, MAX_PAGE, StoredRecord};
 use crate::decode::{
     CURRENT_SELECT, CurrentRow, HISTORY_SELECT, HistoryRow, KEY_COLUMNS, KeyRow, decode_cursor,
     defects_by_revision, encode_cursor, history_from_rows, keys_from_rows, line_from_row,
-    site_from_row, stored_from_current,
+    parse_code, site_from_row, stored_from_current, to_u64,
 };
 use crate::error::{RecordError, StoreError};
 use crate::keys::{ApiKey, KeyId, KeyRole};
 use crate::plan::{Batch, Current, fill_current};
-use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate};
+use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate, LineDay, LineDays};
 use crate::sessions::{NewPageSession, PageSession};
 use crate::sites::{SiteWithLines, Upserted};
 use crate::sql::{BUMP_DATA_VERSION, DATA_VERSION, LOOKUP_CHUNK, MARK_REGISTRY_VERSION, Sql};
-use crate::timestamp::{format_date, format_instant, parse_instant};
+use crate::timestamp::{format_date, format_instant, parse_date, parse_instant};
 
 /// Rows a statement changed, for any database's query result.
 pub(crate) trait QueryRows {
@@ -633,6 +633,87 @@ where
         finish(version, query.by_product, registered, totals, defects)
     }
 
+    /// [`crate::Store::line_days`] on a connection inside one read snapshot.
+    pub(crate) async fn line_days(
+        conn: &mut DB::Connection,
+        query: &AggregateQuery,
+    ) -> Result<LineDays, StoreError> {
+        let version: i64 = sqlx::query_scalar(DATA_VERSION)
+            .fetch_one(&mut *conn)
+            .await?;
+        let query = AggregateQuery {
+            level: crate::reports::Level::AllLines,
+            ..query.clone()
+        };
+        let rows: Vec<(String, String, Option<String>, i64, i64)> = match query.as_of {
+            None => {
+                Sql::<DB>::day_sums(&query, query.from, query.to)
+                    .build_query_as()
+                    .fetch_all(&mut *conn)
+                    .await?
+            }
+            // As of an instant the latest revision of each key is found first; the
+            // bucketed statement does that, with one bucket a day.
+            Some(_) => {
+                let days: Vec<(time::Date, time::Date)> =
+                    std::iter::successors(Some(query.from), |d| {
+                        d.next_day().filter(|n| *n <= query.to)
+                    })
+                    .map(|d| (d, d))
+                    .collect();
+                let rows: Vec<(i64, String, Option<String>, i64, i64)> =
+                    match Sql::<DB>::bucket_sums(&query, &days)? {
+                        Some(mut q) => q.build_query_as().fetch_all(&mut *conn).await?,
+                        None => Vec::new(),
+                    };
+                rows.into_iter()
+                    .filter_map(|(b, site, line, n, x)| {
+                        let day = days.get(usize::try_from(b).ok()?)?.0;
+                        Some((format_date(day), site, line, n, x))
+                    })
+                    .collect()
+            }
+        };
+        // Codes repeat on every day: parse each once.
+        let mut codes: HashMap<(String, String), (SiteCode, LineCode)> = HashMap::new();
+        let mut dates: HashMap<String, time::Date> = HashMap::new();
+        let mut days = Vec::with_capacity(rows.len());
+        for (date, site, line, inspected, defective) in rows {
+            let Some(line) = line else { continue };
+            let date = match dates.get(&date) {
+                Some(d) => *d,
+                None => {
+                    let d = parse_date(&date)?;
+                    dates.insert(date, d);
+                    d
+                }
+            };
+            let key = (site, line);
+            let (site, line) = match codes.get(&key) {
+                Some(c) => c.clone(),
+                None => {
+                    let c = (
+                        parse_code::<SiteCode>(&key.0)?,
+                        parse_code::<LineCode>(&key.1)?,
+                    );
+                    codes.insert(key, c.clone());
+                    c
+                }
+            };
+            days.push(LineDay {
+                date,
+                site,
+                line,
+                inspected: to_u64(inspected, "sum")?,
+                defective: to_u64(defective, "sum")?,
+            });
+        }
+        Ok(LineDays {
+            data_version: to_u64(version, "data version")?,
+            days,
+        })
+    }
+
     /// [`crate::Store::aggregate_buckets`] on a connection inside one read snapshot.
     pub(crate) async fn aggregate_buckets(
         conn: &mut DB::Connection,
@@ -643,23 +724,6 @@ where
             .fetch_one(&mut *conn)
             .await?;
         let registered = Self::registered_groups(conn, query).await?;
-        if let Some((from, to)) = one_day_buckets(query, buckets) {
-            let days: HashMap<String, i64> = buckets
-                .iter()
-                .enumerate()
-                .map(|(i, b)| (format_date(b.0), i64::try_from(i).unwrap_or(i64::MAX)))
-                .collect();
-            let rows: Vec<(String, String, Option<String>, i64, i64)> =
-                Sql::<DB>::day_sums(query, from, to)
-                    .build_query_as()
-                    .fetch_all(&mut *conn)
-                    .await?;
-            let rows = rows
-                .into_iter()
-                .filter_map(|(day, site, line, n, x)| Some((*days.get(&day)?, site, line, n, x)))
-                .collect();
-            return finish_buckets(version, &registered, buckets.len(), rows);
-        }
         let rows: Vec<(i64, String, Option<String>, i64, i64)> =
             match Sql::<DB>::bucket_sums(query, buckets)? {
                 Some(mut q) => q.build_query_as().fetch_all(&mut *conn).await?,
@@ -667,20 +731,4 @@ where
             };
         finish_buckets(version, &registered, buckets.len(), rows)
     }
-}
-
-/// With the current data and every bucket one day, consecutive, inside the query's range:
-/// the first and last day (read by [`Sql::day_sums`]).
-fn one_day_buckets(
-    query: &AggregateQuery,
-    buckets: &[(time::Date, time::Date)],
-) -> Option<(time::Date, time::Date)> {
-    let first = buckets.first()?.0;
-    let last = buckets.last()?.1;
-    let consecutive = buckets.iter().all(|b| b.0 == b.1)
-        && buckets
-            .windows(2)
-            .all(|w| w[0].0.next_day() == Some(w[1].0));
-    (query.as_of.is_none() && consecutive && first >= query.from && last <= query.to)
-        .then_some((first, last))
 }

@@ -11,7 +11,7 @@ use crate::counts::{
 };
 use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
-use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate, VersionScope};
+use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate, LineDays, VersionScope};
 use crate::sessions::{NewPageSession, PageSession};
 use crate::sites::{SiteWithLines, Upserted};
 
@@ -155,6 +155,12 @@ pub trait Store: Send + Sync + std::fmt::Debug {
         query: &AggregateQuery,
         buckets: &[(Date, Date)],
     ) -> Result<BucketedAggregate, StoreError>;
+
+    /// Each line's sums per day from `query.from` to `query.to` (its level is ignored:
+    /// always per line; site and product filters and `as_of` apply), only the line-days
+    /// with a record: what the gaps in the data are judged from. One read, grouped in
+    /// the table's key order, without the registry: cheaper than one-day buckets.
+    async fn line_days(&self, query: &AggregateQuery) -> Result<LineDays, StoreError>;
 
     /// The data version: grows with every write that can change a report.
     async fn data_version(&self) -> Result<u64, StoreError>;

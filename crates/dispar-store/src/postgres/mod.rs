@@ -25,7 +25,7 @@ use crate::counts::{
 use crate::decode::to_u64;
 use crate::error::StoreError;
 use crate::keys::{ApiKey, KeyId, KeyRole};
-use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate, VersionScope};
+use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate, LineDays, VersionScope};
 use crate::sessions::{NewPageSession, PageSession};
 use crate::sites::{SiteWithLines, Upserted};
 use crate::sql::{DATA_VERSION, STATS, Sql};
@@ -171,6 +171,10 @@ impl Store for PostgresStore {
         buckets: &[(Date, Date)],
     ) -> Result<BucketedAggregate, StoreError> {
         self.aggregate_buckets_impl(query, buckets).await
+    }
+
+    async fn line_days(&self, query: &AggregateQuery) -> Result<LineDays, StoreError> {
+        self.line_days_impl(query).await
     }
 
     async fn data_version(&self) -> Result<u64, StoreError> {

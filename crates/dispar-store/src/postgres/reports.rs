@@ -7,7 +7,7 @@ use time::Date;
 
 use super::db::PostgresStore;
 use crate::error::StoreError;
-use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate};
+use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate, LineDays};
 use crate::run::Run;
 
 impl PostgresStore {
@@ -18,6 +18,16 @@ impl PostgresStore {
     ) -> Result<BucketedAggregate, StoreError> {
         let mut tx = self.begin_read().await?;
         let out = Run::<Postgres>::aggregate_buckets(&mut tx, query, buckets).await;
+        tx.rollback().await?;
+        out
+    }
+
+    pub(super) async fn line_days_impl(
+        &self,
+        query: &AggregateQuery,
+    ) -> Result<LineDays, StoreError> {
+        let mut tx = self.begin_read().await?;
+        let out = Run::<Postgres>::line_days(&mut tx, query).await;
         tx.rollback().await?;
         out
     }

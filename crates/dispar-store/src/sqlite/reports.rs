@@ -6,7 +6,7 @@ use time::Date;
 
 use super::db::SqliteStore;
 use crate::error::StoreError;
-use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate};
+use crate::reports::{Aggregate, AggregateQuery, BucketedAggregate, LineDays};
 use crate::run::Run;
 
 impl SqliteStore {
@@ -17,6 +17,16 @@ impl SqliteStore {
     ) -> Result<BucketedAggregate, StoreError> {
         let mut tx = self.reader.begin().await?;
         let out = Run::<Sqlite>::aggregate_buckets(&mut tx, query, buckets).await;
+        tx.rollback().await?;
+        out
+    }
+
+    pub(super) async fn line_days_impl(
+        &self,
+        query: &AggregateQuery,
+    ) -> Result<LineDays, StoreError> {
+        let mut tx = self.reader.begin().await?;
+        let out = Run::<Sqlite>::line_days(&mut tx, query).await;
         tx.rollback().await?;
         out
     }

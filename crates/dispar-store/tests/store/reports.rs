@@ -681,3 +681,64 @@ async fn scoped_versions_rise_only_for_the_days_and_sites_written() {
         assert_eq!(v(s).await, registry);
     }
 }
+
+#[tokio::test]
+async fn line_days_are_the_one_day_buckets_with_data_now_and_as_of() {
+    use time::macros::date;
+    let db = three_months().await;
+    let from = date!(2026 - 02 - 20);
+    let to = date!(2026 - 03 - 05);
+    let days: Vec<(Date, Date)> =
+        std::iter::successors(Some(from), |d| d.next_day().filter(|n| *n <= to))
+            .map(|d| (d, d))
+            .collect();
+    for as_of in [None, Some(time::OffsetDateTime::now_utc())] {
+        // The level is ignored: line-days are always per line.
+        let q = AggregateQuery {
+            as_of,
+            ..query(Level::Site, from, to)
+        };
+        let got = db.store.line_days(&q).await.expect("line days");
+        let buckets = db
+            .store
+            .aggregate_buckets(
+                &AggregateQuery {
+                    level: Level::AllLines,
+                    ..q.clone()
+                },
+                &days,
+            )
+            .await
+            .expect("buckets");
+        let want: Vec<(Date, String, String, u64, u64)> = days
+            .iter()
+            .zip(&buckets.buckets)
+            .flat_map(|(&(d, _), groups)| {
+                groups.iter().filter(|g| g.inspected > 0).map(move |g| {
+                    (
+                        d,
+                        g.site.to_string(),
+                        g.line.as_ref().map(ToString::to_string).unwrap_or_default(),
+                        g.inspected,
+                        g.defective,
+                    )
+                })
+            })
+            .collect();
+        let got: Vec<(Date, String, String, u64, u64)> = got
+            .days
+            .iter()
+            .map(|d| {
+                (
+                    d.date,
+                    d.site.to_string(),
+                    d.line.to_string(),
+                    d.inspected,
+                    d.defective,
+                )
+            })
+            .collect();
+        assert!(!want.is_empty());
+        assert_eq!(got, want, "as_of {as_of:?}");
+    }
+}

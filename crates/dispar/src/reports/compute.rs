@@ -155,9 +155,8 @@ pub fn gaps_start(period: &Period) -> Date {
 }
 
 /// The days each line in scope posted over `period` and the history before it (one
-/// aggregate bucketed by day, at the all-lines level within the report's site and
-/// product filters), and the gaps found in them; `None` for a period longer than
-/// [`MAX_GAP_DAYS`].
+/// read of line-days within the report's site and product filters and `as_of`), and
+/// the gaps found in them; `None` for a period longer than [`MAX_GAP_DAYS`].
 pub async fn load_gaps(
     store: &dyn Store,
     spec: &ReportSpec,
@@ -167,32 +166,26 @@ pub async fn load_gaps(
     if to - from > time::Duration::days(MAX_GAP_DAYS) {
         return Ok(None);
     }
-    let start = gaps_start(period);
     let mut query = spec.aggregate_query(period);
-    query.from = start;
-    query.level = dispar_store::Level::AllLines;
+    query.from = gaps_start(period);
     if let Level::Line { site } = &spec.level {
         query.site = Some(site.clone());
     }
-    let days: Vec<Date> =
-        std::iter::successors(Some(start), |d| d.next_day().filter(|n| *n <= to)).collect();
-    let buckets: Vec<(Date, Date)> = days.iter().map(|d| (*d, *d)).collect();
-    let a = store.aggregate_buckets(&query, &buckets).await?;
-    let mut lines: BTreeMap<String, LineDays> = BTreeMap::new();
-    for (day, bucket) in days.iter().zip(&a.buckets) {
-        for g in bucket {
-            let Some(line) = &g.line else { continue };
-            let entry = lines
-                .entry(format!("{}/{}", g.site, line))
-                .or_insert_with(|| LineDays {
-                    line: format!("{}/{}", g.site, line),
-                    site: g.site.as_str().to_owned(),
-                    days: Vec::new(),
-                });
-            if g.inspected > 0 {
-                entry.days.push((*day, g.inspected, g.defective));
-            }
+    let read = store.line_days(&query).await?;
+    let mut lines: BTreeMap<(&str, &str), LineDays> = BTreeMap::new();
+    for d in &read.days {
+        if d.inspected == 0 {
+            continue;
         }
+        lines
+            .entry((d.site.as_str(), d.line.as_str()))
+            .or_insert_with(|| LineDays {
+                line: format!("{}/{}", d.site, d.line),
+                site: d.site.as_str().to_owned(),
+                days: Vec::new(),
+            })
+            .days
+            .push((d.date, d.inspected, d.defective));
     }
     let lines: Vec<LineDays> = lines.into_values().collect();
     Ok(Some(gaps::data_gaps(
