@@ -67,6 +67,7 @@ where
     for<'r> DefectsRow: FromRow<'r, DB::Row>,
     for<'r> (i64, String, Option<String>, i64, i64): FromRow<'r, DB::Row>,
     for<'r> (String, String, Option<String>, i64, i64): FromRow<'r, DB::Row>,
+    for<'r> (String, String, String): FromRow<'r, DB::Row>,
     for<'r> CurrentRow: FromRow<'r, DB::Row>,
     for<'r> HistoryRow: FromRow<'r, DB::Row>,
     for<'t> Option<&'t str>: Encode<'t, DB> + Type<DB>,
@@ -647,10 +648,40 @@ where
         };
         let rows: Vec<(String, String, Option<String>, i64, i64)> = match query.as_of {
             None => {
-                Sql::<DB>::day_sums(&query, query.from, query.to)
-                    .build_query_as()
-                    .fetch_all(&mut *conn)
-                    .await?
+                let packed: Vec<(String, String, String)> =
+                    Sql::<DB>::packed_line_days(&query, query.from, query.to)
+                        .build_query_as()
+                        .fetch_all(&mut *conn)
+                        .await?;
+                let mut rows = Vec::new();
+                for (site, line, days) in packed {
+                    for day in days.split(';') {
+                        let mut parts = day.split(':');
+                        let (Some(date), Some(n), Some(x), None) =
+                            (parts.next(), parts.next(), parts.next(), parts.next())
+                        else {
+                            return Err(StoreError::internal(format!(
+                                "stored line-day {day:?} is unreadable"
+                            )));
+                        };
+                        let number = |s: &str| {
+                            s.parse::<i64>().map_err(|_| {
+                                StoreError::internal(format!(
+                                    "stored line-day {day:?} is unreadable"
+                                ))
+                            })
+                        };
+                        rows.push((
+                            date.to_owned(),
+                            site.clone(),
+                            Some(line.clone()),
+                            number(n)?,
+                            number(x)?,
+                        ));
+                    }
+                }
+                rows.sort_by(|a, b| (&a.0, &a.1, &a.2).cmp(&(&b.0, &b.1, &b.2)));
+                rows
             }
             // As of an instant the latest revision of each key is found first; the
             // bucketed statement does that, with one bucket a day.

@@ -460,19 +460,22 @@ where
         Ok(Some((totals, defects)))
     }
 
-    /// `(date, site, line, inspected, defective)` per day and group of the current data
-    /// from `from` to `to`, in that order ([`crate::Store::line_days`]): what one-day
-    /// buckets of [`Self::bucket_sums`] would give, read without the table of buckets. Grouping by the table's own key order (date,
-    /// then site and line) needs no sort, where joining to a table of 86 one-day buckets
-    /// made SQLite sort every row (measured: 57 ms against 152 ms for 258,000 rows).
-    pub(crate) fn day_sums(query: &AggregateQuery, from: Date, to: Date) -> QueryBuilder<DB> {
-        let (cols, group) = group_columns(&query.level, "t.");
-        let mut q = QueryBuilder::new(format!(
-            "SELECT t.date, {cols}, CAST(SUM(t.inspected) AS BIGINT), \
-             CAST(SUM(t.defective) AS BIGINT) FROM counts_current AS t"
-        ));
+    /// `(site, line, days)` per line of the current data from `from` to `to`, `days`
+    /// packed as `DATE:INSPECTED:DEFECTIVE` joined by `;` ([`crate::Store::line_days`]):
+    /// one row a line, not one a line and day, because handing rows over from SQLite
+    /// costs about 2 us each (51,600 line-days took 120 ms; packed, 600 rows).
+    pub(crate) fn packed_line_days(
+        query: &AggregateQuery,
+        from: Date,
+        to: Date,
+    ) -> QueryBuilder<DB> {
+        let mut q = QueryBuilder::new(
+            "SELECT site, line, string_agg(date || ':' || CAST(i AS TEXT) || ':' || \
+             CAST(d AS TEXT), ';') FROM (SELECT date, site, line, SUM(inspected) AS i, \
+             SUM(defective) AS d FROM counts_current",
+        );
         push_filters(&mut q, query, "date", format_date(from), format_date(to));
-        q.push(format!(" GROUP BY t.date, {group} ORDER BY t.date, {group}"));
+        q.push(" GROUP BY date, site, line) AS days GROUP BY site, line ORDER BY site, line");
         q
     }
 
