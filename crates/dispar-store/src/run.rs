@@ -648,36 +648,30 @@ where
         };
         let rows: Vec<(String, String, Option<String>, i64, i64)> = match query.as_of {
             None => {
-                let packed: Vec<(String, String, String)> =
+                let packed: Vec<(String, String)> =
                     Sql::<DB>::packed_line_days(&query, query.from, query.to)
                         .build_query_as()
                         .fetch_all(&mut *conn)
                         .await?;
                 let mut rows = Vec::new();
-                for (site, line, days) in packed {
-                    for day in days.split(';') {
-                        let mut parts = day.split(':');
-                        let (Some(date), Some(n), Some(x), None) =
-                            (parts.next(), parts.next(), parts.next(), parts.next())
-                        else {
-                            return Err(StoreError::internal(format!(
-                                "stored line-day {day:?} is unreadable"
-                            )));
+                for (date, lines) in packed {
+                    for entry in lines.split(';') {
+                        let unreadable = || {
+                            StoreError::internal(format!("stored line-day {entry:?} is unreadable"))
                         };
-                        let number = |s: &str| {
-                            s.parse::<i64>().map_err(|_| {
-                                StoreError::internal(format!(
-                                    "stored line-day {day:?} is unreadable"
-                                ))
-                            })
+                        let mut parts = entry.split(',');
+                        let (Some(site), Some(line), Some(n), Some(x), None) = (
+                            parts.next(),
+                            parts.next(),
+                            parts.next(),
+                            parts.next(),
+                            parts.next(),
+                        ) else {
+                            return Err(unreadable());
                         };
-                        rows.push((
-                            date.to_owned(),
-                            site.clone(),
-                            Some(line.clone()),
-                            number(n)?,
-                            number(x)?,
-                        ));
+                        let n = n.parse::<i64>().map_err(|_| unreadable())?;
+                        let x = x.parse::<i64>().map_err(|_| unreadable())?;
+                        rows.push((date.clone(), site.to_owned(), Some(line.to_owned()), n, x));
                     }
                 }
                 rows.sort_by(|a, b| (&a.0, &a.1, &a.2).cmp(&(&b.0, &b.1, &b.2)));

@@ -30,6 +30,8 @@ async fn main() {
         ..ReportParams::default()
     };
     let (spec, period) = ReportSpec::parse_report(&raw).unwrap();
+    let mut gaps_t = Vec::new();
+    let mut window_t = Vec::new();
     let (mut version, mut sums, mut load, mut build, mut json, mut json_plain) = (
         Vec::new(),
         Vec::new(),
@@ -59,7 +61,17 @@ async fn main() {
             .map(|w| w.0);
         load.push(t.elapsed());
         let t = Instant::now();
-        let report = compute::build(&spec, period, &loaded.groups, window, None, None);
+        let _ = compute::load_window(store.as_ref(), &spec, &period)
+            .await
+            .unwrap();
+        window_t.push(t.elapsed());
+        let t = Instant::now();
+        let gaps = compute::load_gaps(store.as_ref(), &spec, &period)
+            .await
+            .unwrap();
+        gaps_t.push(t.elapsed());
+        let t = Instant::now();
+        let report = compute::build(&spec, period, &loaded.groups, window, gaps, None);
         build.push(t.elapsed());
         let t = Instant::now();
         bytes = compute::to_json(&report).unwrap().len();
@@ -68,6 +80,11 @@ async fn main() {
         let _ = serde_json::to_vec(&report).unwrap().len();
         json_plain.push(t.elapsed());
     }
+    println!(
+        "period {period}, {rounds} rounds, medians: baseline window {:.1} ms, gaps in the data (line-days read and data_gaps) {:.1} ms",
+        median(window_t),
+        median(gaps_t)
+    );
     println!(
         "period {period}, {rounds} rounds, medians: data_version {:.2} ms, aggregate {:.1} ms, load (aggregate + names + baseline window) {:.1} ms, build_report {:.1} ms, JSON {:.1} ms ({:.1} MB; serde_json::to_vec without a size hint {:.1} ms)",
         median(version),
